@@ -1,0 +1,247 @@
+"""The ``comove`` command line.
+
+Exit codes (DESIGN.md): 0 success; 2 bad input or usage, with one line ``error: ...`` on stderr
+naming the file, row/date, column or option at fault; 1 unexpected failure. No traceback reaches
+the user unless ``COMOVE_DEBUG=1`` is set.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import os
+import sys
+import traceback
+from collections.abc import Sequence
+
+from .config import Config, load_config
+from .errors import InputError
+
+CAUTION = ("Caution: statistical estimates with model risk, not investment advice; follow your "
+           "firm's model-risk policy and local regulation.")
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse with the contract's one-line error and exit code 2."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        sys.stderr.write(f"error: {message} (see '{self.prog} --help')\n")
+        raise SystemExit(2)
+
+
+def _common(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--config", metavar="FILE",
+                   help="configuration file (default $COMOVE_CONFIG, else ./comove.toml if present)")
+    p.add_argument("--store", metavar="URL",
+                   help="store URL, overriding the config (default $COMOVE_STORE)")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser with every subcommand of the contract."""
+    parser = _Parser(
+        prog="comove",
+        description="Monitor time-varying dependence between daily asset returns: GARCH-filtered "
+                    "rolling copulas, Kendall's tau and tail dependence, regime alerts.",
+        epilog=CAUTION,
+    )
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    sub.required = True
+
+    p = sub.add_parser("demo", help="synthetic scenario -> store -> update -> dashboard")
+    _common(p)
+    p.add_argument("--port", type=int, default=8050, help="dashboard port (default 8050)")
+    p.add_argument("--no-browser", action="store_true", help="do not open a web browser")
+
+    p = sub.add_parser("synth", help="write a synthetic scenario (prices.csv, truth.json)")
+    _common(p)
+    p.add_argument("scenario", help="scenario name")
+    p.add_argument("--out", required=True, metavar="DIR", help="output directory")
+    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+
+    p = sub.add_parser("ingest", help="validate and store price or return files")
+    _common(p)
+    p.add_argument("files", nargs="+", metavar="FILE", help="CSV or Parquet, wide or long")
+    p.add_argument("--kind", choices=("prices", "returns"), default="prices")
+
+    p = sub.add_parser("update", help="marginals, rolling metrics, signals, alert queue")
+    _common(p)
+
+    p = sub.add_parser(
+        "fit", help="one-window study of a pair: every candidate family",
+        description="Fit every candidate copula family to one window of a pair by maximum "
+                    "pseudo-likelihood and rank them by AIC (or BIC).", epilog=CAUTION)
+    _common(p)
+    p.add_argument("file", metavar="FILE", help="CSV or Parquet, wide or long")
+    p.add_argument("--pair", nargs=2, required=True, metavar=("A", "B"), help="the two columns")
+    p.add_argument("--start", metavar="D", help="first date of the window (YYYY-MM-DD)")
+    p.add_argument("--end", metavar="D", help="last date of the window (YYYY-MM-DD)")
+    p.add_argument("--kind", choices=("prices", "returns", "uniforms"), default="returns",
+                   help="what the columns hold (default returns: ranked into pseudo-observations)")
+    p.add_argument("--families", nargs="+", metavar="NAME",
+                   help="candidate families (default: rolling.families of the config)")
+    p.add_argument("--criterion", choices=("aic", "bic"),
+                   help="selection criterion (default: rolling.criterion of the config)")
+    p.add_argument("--tail-q", type=float, help="level q of the empirical tail dependence "
+                   "(default: rolling.tail_q of the config, 0.10)")
+    p.add_argument("--bootstrap", type=int, default=0, metavar="B",
+                   help="parametric-bootstrap replicates for goodness-of-fit p-values and "
+                        "intervals (0 skips; 200 is a good choice)")
+    p.add_argument("--seed", type=int, default=0, help="seed of the bootstrap (default 0)")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+
+    p = sub.add_parser("export", help="export stored data as CSV")
+    _common(p)
+    esub = p.add_subparsers(dest="what", metavar="WHAT", parser_class=_Parser)
+    esub.required = True
+    q = esub.add_parser("timeline", help="a pair's metrics timeline")
+    _common(q)
+    q.add_argument("--pair", nargs=2, required=True, metavar=("A", "B"))
+    q.add_argument("--out", metavar="FILE", help="output file (default stdout)")
+    q = esub.add_parser("returns", help="stored log returns, wide")
+    _common(q)
+    q.add_argument("--assets", nargs="+", metavar="A")
+    q.add_argument("--out", metavar="FILE", help="output file (default stdout)")
+
+    p = sub.add_parser("alerts", help="alert e-mail")
+    _common(p)
+    asub = p.add_subparsers(dest="action", metavar="ACTION", parser_class=_Parser)
+    asub.required = True
+    q = asub.add_parser("send", help="deliver queued alert e-mails; failures stay queued")
+    _common(q)
+    q.add_argument("--dry-run", action="store_true", help="print what would be sent")
+
+    p = sub.add_parser("serve", help="the dashboard")
+    _common(p)
+    p.add_argument("--host", default="127.0.0.1", help="bind address (default 127.0.0.1)")
+    p.add_argument("--port", type=int, default=8050, help="port (default 8050)")
+    return parser
+
+
+# ----------------------------------------------------------------------------- commands
+def _fmt(x: float, digits: int = 3) -> str:
+    if x is None or (isinstance(x, float) and not math.isfinite(x)):
+        return "-"
+    return f"{x:.{digits}f}"
+
+
+def _cmd_fit(args: argparse.Namespace, cfg: Config) -> int:
+    from .tables import read_series
+    from .window_study import study_window
+
+    if args.kind == "prices":
+        raise InputError("--kind prices needs the GARCH marginal filter, which this version "
+                         "does not have yet; pass log returns with --kind returns")
+    families = tuple(args.families) if args.families else cfg.rolling.families
+    from .copulas import FAMILY_NAMES
+
+    for name in families:
+        if name not in FAMILY_NAMES:
+            raise InputError(f"--families: unknown family {name!r}; known: "
+                             f"{', '.join(FAMILY_NAMES)}")
+    frame = read_series(args.file)
+    study = study_window(
+        frame, args.pair[0], args.pair[1], kind=args.kind, start=args.start, end=args.end,
+        families=families, criterion=args.criterion or cfg.rolling.criterion,
+        tail_q=args.tail_q if args.tail_q is not None else cfg.rolling.tail_q,
+        bootstrap=args.bootstrap, rng=args.seed, source=args.file,
+    )
+    if args.json:
+        print(json.dumps(study.to_json(), allow_nan=False, default=float))
+        return 0
+    print(render_study(study))
+    return 0
+
+
+def render_study(study) -> str:
+    """The readable table ``comove fit`` prints."""
+    a, b = study.pair
+    how = {"returns": "rank pseudo-observations of returns",
+           "uniforms": "pseudo-observations as given"}[study.kind]
+    kt = study.kendall_tau
+    lines = [
+        f"Pair {a} / {b}: {study.start.date()} to {study.end.date()}, n = {study.n} ({how})",
+    ]
+    if study.dropped:
+        lines.append(f"  {study.dropped} date(s) in the range had only one of the two columns "
+                     "and were left out")
+    lines += [
+        (f"  Kendall's tau {kt.estimate:.3f} (95% interval {kt.lower:.3f} to {kt.upper:.3f}), "
+        f"Spearman's rho {study.spearman_rho:.3f}"),
+        (f"  Empirical tail dependence at q = {study.tail_q:g}: lower {study.tail_lower_emp:.3f}, "
+        f"upper {study.tail_upper_emp:.3f}"),
+        "",
+    ]
+    header = (f"  {'family':<13}{'rot':>4}  {'parameters':<24}{'loglik':>9}{'AIC':>10}{'BIC':>10}"
+              f"{'tau':>7}{'tailL':>7}{'tailU':>7}")
+    if study.gof:
+        header += f"{'GoF p':>7}"
+    lines.append(header)
+    crit = study.selection.criterion
+    for f in sorted(study.selection.fits, key=lambda f: getattr(f, crit)):
+        params = ", ".join(f"{k}={v:.4g}" for k, v in f.params.items()) or "-"
+        row = (f"  {f.family:<13}{f.rotation:>4}  {params:<24}{f.loglik:>9.2f}{f.aic:>10.2f}"
+               f"{f.bic:>10.2f}{f.kendall_tau:>7.3f}{f.tail_lower:>7.3f}{f.tail_upper:>7.3f}")
+        if study.gof:
+            row += f"{study.gof[f.label].p_value:>7.3f}"
+        if not f.converged:
+            row += "  (did not converge)"
+        if f is study.selection.selected:
+            row += "  <- selected"
+        lines.append(row)
+    sel = study.selection.selected
+    lines += ["", f"Selected by {crit.upper()}: {sel.label}."]
+    if study.uncertainty is not None:
+        unc = study.uncertainty
+        lines.append(f"  {int(unc.level * 100)}% intervals ({unc.method}, "
+                     f"{unc.replicates} replicates):")
+        for k, q in unc.quantities.items():
+            lines.append(f"    {k:<12} {q.estimate:8.4f}  s.e. {q.std_error:.4f}  "
+                         f"[{q.lower:.4f}, {q.upper:.4f}]")
+    lines += ["", CAUTION]
+    return "\n".join(lines)
+
+
+def _not_yet(name: str):
+    def run(args: argparse.Namespace, cfg: Config) -> int:
+        raise InputError(f"'comove {name}' is not available in this version yet")
+    return run
+
+
+_COMMANDS = {
+    "fit": _cmd_fit,
+    "demo": _not_yet("demo"),
+    "synth": _not_yet("synth"),
+    "ingest": _not_yet("ingest"),
+    "update": _not_yet("update"),
+    "export": _not_yet("export"),
+    "alerts": _not_yet("alerts"),
+    "serve": _not_yet("serve"),
+}
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run ``comove``; returns the exit code."""
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:
+        return int(exc.code or 0)
+    try:
+        cfg = load_config(args.config, args.store)
+        return _COMMANDS[args.command](args, cfg)
+    except InputError as exc:
+        sys.stderr.write(f"error: {exc}\n")
+        return 2
+    except KeyboardInterrupt:
+        sys.stderr.write("error: interrupted\n")
+        return 130
+    except BrokenPipeError:
+        return 0
+    except Exception as exc:  # noqa: BLE001 - the contract: no traceback, exit 1
+        if os.environ.get("COMOVE_DEBUG") == "1":
+            traceback.print_exc()
+        first = str(exc).splitlines()[0] if str(exc) else ""
+        sys.stderr.write(f"error: unexpected failure: {type(exc).__name__}: {first} "
+                         "(set COMOVE_DEBUG=1 for details)\n")
+        return 1

@@ -1,0 +1,211 @@
+"""One-window study of a pair: every candidate family fitted, ranked, tested and bounded.
+
+This is the library behind ``comove fit`` (and the dashboard's window study): given two
+aligned columns it computes the sample dependence measures, fits every candidate copula by
+maximum pseudo-likelihood, ranks them by AIC (or BIC), and optionally adds parametric-bootstrap
+goodness-of-fit p-values and intervals.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from .copulas import FAMILY_NAMES
+from .empirical import pseudo_observations, spearman_rho, tail_dependence
+from .errors import InputError
+from .fitting import Selection, select_copula
+from .inference import (
+    FitUncertainty,
+    GoodnessOfFit,
+    Interval,
+    fit_uncertainty,
+    goodness_of_fit,
+    kendall_tau_interval,
+)
+
+#: Fewest usable rows a window study accepts.
+MIN_ROWS = 30
+KINDS = ("prices", "returns", "uniforms")
+
+
+@dataclass(frozen=True, slots=True)
+class WindowStudy:
+    """Everything computed for one pair on one window.
+
+    ``kind`` says what the columns were (``returns``: rank pseudo-observations of the returns;
+    ``uniforms``: pseudo-observations as given; ``prices``: filtered residuals of the log
+    returns); ``dropped`` counts dates in the window that only one of the two columns had.
+    """
+
+    pair: tuple[str, str]
+    kind: str
+    start: pd.Timestamp
+    end: pd.Timestamp
+    n: int
+    dropped: int
+    u: np.ndarray
+    v: np.ndarray
+    kendall_tau: Interval
+    spearman_rho: float
+    tail_q: float
+    tail_lower_emp: float
+    tail_upper_emp: float
+    selection: Selection
+    gof: dict[str, GoodnessOfFit]
+    uncertainty: FitUncertainty | None
+
+    def to_json(self) -> dict:
+        """The ``comove fit --json`` object (DESIGN.md contract, with extra keys)."""
+        fits = sorted(self.selection.fits, key=lambda f: f.aic)
+        out_fits = []
+        for f in fits:
+            item = {
+                "family": f.family, "rotation": f.rotation, "params": dict(f.params),
+                "loglik": f.loglik, "aic": f.aic, "bic": f.bic, "kendall_tau": f.kendall_tau,
+                "tail_lower": f.tail_lower, "tail_upper": f.tail_upper,
+                "converged": f.converged,
+            }
+            g = self.gof.get(f.label)
+            if g is not None:
+                item["gof"] = {"statistic": g.statistic, "p_value": g.p_value,
+                               "replicates": g.replicates}
+            out_fits.append(item)
+        sel = self.selection.selected
+        out = {
+            "n": self.n, "start": self.start.strftime("%Y-%m-%d"),
+            "end": self.end.strftime("%Y-%m-%d"),
+            "kendall_tau": self.kendall_tau.estimate, "spearman_rho": self.spearman_rho,
+            "empirical_tail": {"q": self.tail_q, "lower": self.tail_lower_emp,
+                               "upper": self.tail_upper_emp},
+            "fits": out_fits,
+            "selected": {"family": sel.family, "rotation": sel.rotation},
+            "pair": list(self.pair), "kind": self.kind, "criterion": self.selection.criterion,
+            "dropped_dates": self.dropped,
+            "kendall_tau_interval": {"lower": self.kendall_tau.lower,
+                                     "upper": self.kendall_tau.upper,
+                                     "std_error": self.kendall_tau.std_error,
+                                     "method": "influence function, asymptotic normal"},
+        }
+        if self.uncertainty is not None:
+            unc = self.uncertainty
+            out["selected"]["intervals"] = {
+                "method": unc.method, "level": unc.level, "replicates": unc.replicates,
+                **{k: {"estimate": q.estimate, "std_error": q.std_error, "lower": q.lower,
+                       "upper": q.upper} for k, q in unc.quantities.items()},
+            }
+        return out
+
+
+def _date(text: str | None, option: str) -> pd.Timestamp | None:
+    if text is None:
+        return None
+    try:
+        return pd.Timestamp(pd.to_datetime(text, format="ISO8601"))
+    except (ValueError, TypeError):
+        raise InputError(f"{option}: cannot read date {text!r} (expected YYYY-MM-DD)") from None
+
+
+def pair_window(frame: pd.DataFrame, a: str, b: str, start: str | None = None,
+                end: str | None = None, source: str = "input") -> tuple[pd.DataFrame, int]:
+    """The two columns on the dates both have, inside [start, end].
+
+    Returns the aligned frame and how many dates in the range only one column had.
+    """
+    for col in (a, b):
+        if col not in frame.columns:
+            raise InputError(f"{source}: no column {col!r} (columns: "
+                             f"{', '.join(map(str, frame.columns))})")
+    if a == b:
+        raise InputError("--pair: the two columns must differ")
+    lo, hi = _date(start, "--start"), _date(end, "--end")
+    if lo is not None and hi is not None and lo > hi:
+        raise InputError(f"--start {start} is after --end {end}")
+    sub = frame[[a, b]]
+    if lo is not None:
+        sub = sub[sub.index >= lo]
+    if hi is not None:
+        sub = sub[sub.index <= hi]
+    either = sub.notna().any(axis=1)
+    both = sub.dropna()
+    return both, int(either.sum() - len(both))
+
+
+def study_window(frame: pd.DataFrame, a: str, b: str, *, kind: str = "returns",
+                 start: str | None = None, end: str | None = None,
+                 families: tuple[str, ...] = FAMILY_NAMES, criterion: str = "aic",
+                 tail_q: float = 0.10, bootstrap: int = 0,
+                 rng: np.random.Generator | int | None = None,
+                 source: str = "input") -> WindowStudy:
+    """Study one pair on one window.
+
+    Parameters
+    ----------
+    frame : DataFrame
+        Wide frame indexed by date (as :func:`monitor.tables.read_series` returns). For
+        ``kind="returns"`` the columns are returns; for ``"uniforms"`` pseudo-observations in
+        (0, 1) taken as given.
+    a, b : str
+        The two columns.
+    start, end : str, optional
+        Inclusive window bounds (YYYY-MM-DD).
+    families : tuple of str
+        Candidate families.
+    criterion : {"aic", "bic"}
+    tail_q : float
+        Level of the empirical tail dependence C_n(q, q)/q.
+    bootstrap : int
+        Parametric-bootstrap replicates for goodness-of-fit p-values (every candidate) and
+        intervals (the selected family); 0 skips them.
+
+    Raises
+    ------
+    InputError
+        Unknown column, fewer than :data:`MIN_ROWS` usable rows, a constant column, uniforms
+        outside (0, 1).
+    """
+    if kind not in ("returns", "uniforms"):
+        raise InputError(f"--kind must be returns or uniforms here, got {kind!r}")
+    if not 0 < tail_q < 0.5:
+        raise InputError(f"--tail-q must lie in (0, 0.5), got {tail_q}")
+    if bootstrap < 0 or 0 < bootstrap < 20:
+        raise InputError(f"--bootstrap must be 0 or at least 20, got {bootstrap}")
+    both, dropped = pair_window(frame, a, b, start, end, source)
+    n = len(both)
+    if n < MIN_ROWS:
+        raise InputError(f"{source}: only {n} dates with both {a!r} and {b!r} in the window; "
+                         f"at least {MIN_ROWS} are needed")
+    x = both[a].to_numpy(dtype=float)
+    y = both[b].to_numpy(dtype=float)
+    for col, arr in ((a, x), (b, y)):
+        if np.all(arr == arr[0]):
+            raise InputError(f"{source}: column {col!r} is constant in the window "
+                             f"({arr[0]!r} on every date)")
+    if kind == "uniforms":
+        for col, arr in ((a, x), (b, y)):
+            bad = np.flatnonzero(~((arr > 0) & (arr < 1)))
+            if bad.size:
+                d = both.index[bad[0]].date()
+                raise InputError(f"{source}: {d}, column {col!r}: {float(arr[bad[0]])!r} is not in "
+                                 "(0, 1) as uniforms must be")
+        u, v = x, y
+    else:
+        u, v = pseudo_observations(x), pseudo_observations(y)
+    gen = rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
+    selection = select_copula(u, v, families, criterion)
+    tail = tail_dependence(u, v, tail_q)
+    gof: dict[str, GoodnessOfFit] = {}
+    uncertainty = None
+    if bootstrap:
+        for f in selection.fits:
+            gof[f.label] = goodness_of_fit(u, v, f, replicates=bootstrap, rng=gen)
+        uncertainty = fit_uncertainty(selection.selected, u, v, replicates=bootstrap, rng=gen)
+    return WindowStudy(
+        pair=(a, b), kind=kind, start=both.index[0], end=both.index[-1], n=n, dropped=dropped,
+        u=u, v=v, kendall_tau=kendall_tau_interval(u, v),
+        spearman_rho=float(spearman_rho(u, v)), tail_q=float(tail_q),
+        tail_lower_emp=float(tail.lower), tail_upper_emp=float(tail.upper),
+        selection=selection, gof=gof, uncertainty=uncertainty,
+    )
