@@ -439,3 +439,19 @@ def _invert_increasing(func, target, lo: float = UNIT_EPS, hi: float = 1 - UNIT_
         b = np.where(below, b, m)
     m = 0.5 * (a + b)
     return 1.0 / (1.0 + np.exp(-m))
+
+
+def rank_grid(u: NDArray) -> NDArray[np.intp] | None:
+    """0-based ranks if every row of ``u`` (shape (windows, n)) is a permutation of the grid
+    1/(n+1), ..., n/(n+1) -- pseudo-observations without ties -- else None."""
+    n = u.shape[-1]
+    scaled = u * (n + 1)
+    ranks = np.rint(scaled)
+    if not np.all(np.abs(scaled - ranks) < 1e-6):
+        return None
+    ranks = ranks.astype(np.intp) - 1
+    if ranks.min() < 0 or ranks.max() >= n:
+        return None
+    seen = np.zeros(ranks.shape, dtype=bool)
+    np.put_along_axis(seen, ranks, True, axis=-1)
+    return ranks if seen.all() else None
