@@ -152,11 +152,13 @@ class CopulaFit:
 def _coordinates(fam: CopulaFamily):
     """Per-parameter maps between parameters and the optimiser's coordinates.
 
-    Positive parameters whose box spans more than a factor of ten (Clayton's theta, the t
-    copula's nu, ...) are optimised on the log scale, where their likelihoods are closer to
-    quadratic; the others on their own scale.
+    Parameters bounded below by 1 or more whose box spans more than a factor of ten (the t
+    copula's nu, Gumbel's theta, ...) are optimised on the log scale, where their likelihoods
+    are closer to quadratic; the others on their own scale. Parameters that may approach 0
+    (Clayton's theta, BB1's theta) stay on their own scale: on the log scale an optimum near
+    the lower end would be reached only in tiny steps.
     """
-    logs = np.array([lo > 0 and hi / lo >= 10 for lo, hi in fam.fit_bounds], dtype=bool)
+    logs = np.array([lo >= 1 and hi / lo >= 10 for lo, hi in fam.fit_bounds], dtype=bool)
     lo = np.array([b[0] for b in fam.fit_bounds], dtype=float)
     hi = np.array([b[1] for b in fam.fit_bounds], dtype=float)
     xlo = np.where(logs, np.log(np.where(logs, lo, 1.0)), lo)
@@ -187,14 +189,14 @@ def _validate_batch(u: ArrayLike, v: ArrayLike) -> tuple[NDArray, NDArray]:
         bad = ~((a > 0) & (a < 1))
         if bad.any():
             w, i = np.argwhere(bad)[0]
-            raise ValueError(f"{name}[{w}, {i}] = {a[w, i]!r} is not in (0, 1)")
+            raise ValueError(f"{name}[{w}, {i}] = {float(a[w, i])!r} is not in (0, 1)")
     return np.clip(u, UNIT_EPS, 1 - UNIT_EPS), np.clip(v, UNIT_EPS, 1 - UNIT_EPS)
 
 
 # ----------------------------------------------------------------------------- batched fit
 def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
                 start: ArrayLike | None = None, tau: ArrayLike | None = None,
-                rotation_by_sign: bool = False, max_iter: int = 100) -> BatchFit:
+                rotation_by_sign: bool = False, chain: int = 0, max_iter: int = 100) -> BatchFit:
     """Fit one family by maximum pseudo-likelihood on every window of a batch.
 
     Parameters
@@ -212,6 +214,10 @@ def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
         For a rotatable family given at rotation 0 or 180: use that rotation on windows with
         tau >= 0 and the rotation 90 degrees further (90 or 270) on windows with tau < 0, so
         that one call covers the sign of every window.
+    chain : int
+        When the rows are consecutive rolling windows, fit every ``chain``-th row first and
+        start every other row from its nearest fitted neighbour (overlapping windows have
+        nearby optima, so Newton needs fewer steps). 0 or 1 fits all rows from ``start``.
     max_iter : int
         Newton iterations at most per window.
 
@@ -255,7 +261,21 @@ def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
         start = np.column_stack(fam.start_params(t))
     start = np.broadcast_to(np.asarray(start, dtype=float), (windows, k))
     data = fam.prepare(u, v)
-    params, ll, conv, iters = _newton(fam, data, start, max_iter, n)
+    if chain > 1 and windows > chain:
+        # Stage 1 on a lattice of rows, stage 2 on the rest warm-started from the lattice.
+        lattice = np.arange(0, windows, chain)
+        p1, ll1, c1, i1 = _newton(fam, fam.take(data, lattice), start[lattice], max_iter, n)
+        rest = np.setdiff1d(np.arange(windows), lattice)
+        nearest = np.clip(np.rint(rest / chain).astype(int), 0, lattice.size - 1)
+        p2, ll2, c2, i2 = _newton(fam, fam.take(data, rest), p1[nearest], max_iter, n)
+        params = np.empty((windows, k))
+        ll = np.empty(windows)
+        conv = np.empty(windows, dtype=bool)
+        iters = np.empty(windows, dtype=np.int64)
+        for rows, vals in ((lattice, (p1, ll1, c1, i1)), (rest, (p2, ll2, c2, i2))):
+            params[rows], ll[rows], conv[rows], iters[rows] = vals
+    else:
+        params, ll, conv, iters = _newton(fam, data, start, max_iter, n)
     return BatchFit(fam.name, fam.param_names, _readonly(rotations, np.int64), _readonly(params),
                     _readonly(ll), _readonly(conv, bool), _readonly(iters, np.int64), n)
 

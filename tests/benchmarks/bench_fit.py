@@ -96,6 +96,7 @@ def main() -> None:
     ap.add_argument("--n", type=int, default=250)
     ap.add_argument("--loop-every", type=int, default=10)
     ap.add_argument("--seed", type=int, default=20261201)
+    ap.add_argument("--chain", type=int, default=0, help="warm-start lattice step (0: none)")
     args = ap.parse_args()
 
     u, v = rolling_pseudo_observations(args.windows, args.n, args.seed)
@@ -111,7 +112,7 @@ def main() -> None:
     worst = 0.0
     for fam in candidate_slots(FAMILY_NAMES):
         t0 = time.perf_counter()
-        fit = fit_batched(fam, u, v, tau=tau, rotation_by_sign=True)
+        fit = fit_batched(fam, u, v, tau=tau, rotation_by_sign=True, chain=args.chain)
         tb = time.perf_counter() - t0
         t0 = time.perf_counter()
         ll = np.array([loop_fit(fam, u[w], v[w], tau[w]) for w in sample])

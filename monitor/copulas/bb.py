@@ -1,0 +1,375 @@
+"""Two-parameter Archimedean families BB1 (Clayton-Gumbel) and BB7 (Joe-Clayton), from Joe
+(1997), *Multivariate Models and Dependence Concepts*, section 5.2; both have lower and upper
+tail dependence governed by separate parameters.
+
+Both are written as C(u, v) = psi(phi(u) + phi(v)) with generator phi and inverse psi, so that
+
+- h_{1|2}(u | v) = dC/dv = psi'(s) phi'(v),
+- c(u, v) = psi''(s) phi'(u) phi'(v),  s = phi(u) + phi(v).
+
+Every quantity is evaluated in log space from log u and log(1 - u): powers such as u^-theta
+overflow at u = 1e-10 with theta = 15, and 1 - (1 - u)^theta cancels for u near 0. The
+conditional inverse is a safeguarded Newton iteration on logit h against logit u, with the
+density as derivative, and the Kendall's tau of BB7 is a closed form rearranged so that its
+removable singularity at theta = 2 is harmless.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import special
+
+from .base import UNIT_EPS, CopulaFamily
+
+_ROTATIONS = (0, 90, 180, 270)
+_LN2 = float(np.log(2.0))
+
+#: Starting rules treat a sample tau below this as near-independence (BB1 and BB7 only reach
+#: tau >= 0, and an interior point is a better start for an optimiser than the box corner).
+_TAU_FLOOR = 1e-3
+
+#: |2/theta - 1| below which BB7's tau uses the Taylor series of log R (see ``_bb7_tau``).
+_BB7_SERIES_RADIUS = 0.05
+_BB7_SERIES_TERMS = 12
+
+_LOGIT_MAX = float(np.log((1.0 - UNIT_EPS) / UNIT_EPS))
+_NEWTON_MAX_ITER = 60
+
+
+# ---------------------------------------------------------------------- log-space helpers
+def _log1mexp(x):
+    """log(1 - exp(-x)) for x > 0, with Maechler's (2012) branches split at x = log 2."""
+    with np.errstate(divide="ignore"):
+        return np.where(x < _LN2, np.log(-np.expm1(-x)), np.log1p(-np.exp(-x)))
+
+
+def _log_expm1(y):
+    """log(exp(y) - 1) for y > 0, as y + log(1 - exp(-y)): no overflow for large y and no
+    cancellation for tiny y."""
+    with np.errstate(divide="ignore"):
+        return y + np.log(-np.expm1(-y))
+
+
+def _log_of_unit(x):
+    """(log x, log(1 - x)) for x in (0, 1)."""
+    return np.log(x), np.log1p(-x)
+
+
+def _logit_to_logs(z):
+    """(log u, log(1 - u)) for u = 1 / (1 + exp(-z)), accurate at both ends."""
+    return -np.logaddexp(0.0, -z), -np.logaddexp(0.0, z)
+
+
+class _Archimedean2(CopulaFamily):
+    """Shared machinery of the two-parameter Archimedean families.
+
+    A subclass provides ``_log_h_and_log_c(lu, lub, lv, lvb, p, want_h, want_c)``: the logs of
+    h_{1|2}(u | v) and of the density (``None`` where not wanted) from log u, log(1 - u),
+    log v and log(1 - v); this class turns it into the private API of :class:`CopulaFamily`.
+    """
+
+    __slots__ = ()
+
+    def _log_h_and_log_c(self, lu, lub, lv, lvb, p, want_h=True, want_c=True):
+        raise NotImplementedError  # pragma: no cover
+
+    def _logpdf(self, u, v, p):
+        lu, lub = _log_of_unit(u)
+        lv, lvb = _log_of_unit(v)
+        return self._log_h_and_log_c(lu, lub, lv, lvb, p, want_h=False)[1]
+
+    def _h_u_given_v(self, u, v, p):
+        lu, lub = _log_of_unit(u)
+        lv, lvb = _log_of_unit(v)
+        log_h = self._log_h_and_log_c(lu, lub, lv, lvb, p, want_c=False)[0]
+        return np.clip(np.exp(log_h), 0.0, 1.0)
+
+    def _h_u_given_v_inverse(self, w, v, p):
+        """Solve h_{1|2}(u | v) = w for u.
+
+        Newton's method on g(z) = logit h(u(z) | v) - logit w in z = logit u, whose
+        derivative is c(u, v) u (1 - u) / (h (1 - h)). In both tails h behaves like a power of
+        u (or of 1 - u), so g is close to linear in z there and Newton converges in a few
+        steps from z = logit w. The root is kept bracketed; a step that leaves the bracket (or
+        is not finite) is replaced by bisection of the bracket, so the iteration cannot
+        diverge; as in the safeguarded Newton-Raphson of Press et al. (2007, *Numerical
+        Recipes*, 3rd ed., section 9.4), it also bisects when a Newton step is not at most half
+        the step before last, which breaks two-point cycles where h bends sharply. Stops when
+        |h - w| <= 1e-13 or the step is at rounding level.
+        """
+        lv, lvb = _log_of_unit(v)
+        shape = np.broadcast_shapes(np.shape(w), np.shape(v), *(np.shape(a) for a in p))
+        w = np.broadcast_to(w, shape)
+        target = np.log(w) - np.log1p(-w)
+        z = np.clip(target, -_LOGIT_MAX, _LOGIT_MAX).copy()
+        lo = np.full(shape, -_LOGIT_MAX)
+        hi = np.full(shape, _LOGIT_MAX)
+        active = np.ones(shape, dtype=bool)
+        step_last = np.full(shape, 2.0 * _LOGIT_MAX)
+        step_before = step_last.copy()
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            for _ in range(_NEWTON_MAX_ITER):
+                lu, lub = _logit_to_logs(z)
+                log_h, log_c = self._log_h_and_log_c(lu, lub, lv, lvb, p)
+                log_h = np.minimum(log_h, 0.0)
+                log_1mh = np.log(-np.expm1(log_h))
+                g = log_h - log_1mh - target
+                below = g < 0.0
+                lo = np.where(active & below, z, lo)
+                hi = np.where(active & ~below, z, hi)
+                step = g * np.exp(log_h + log_1mh - log_c - lu - lub)
+                z_new = z - step
+                bad = ~((z_new > lo) & (z_new < hi)) | ~(np.abs(step) <= 0.5 * step_before)
+                z_new = np.where(bad, 0.5 * (lo + hi), z_new)
+                step_before = step_last
+                step_last = np.abs(z_new - z)
+                done = (np.abs(np.exp(log_h) - w) <= 1e-13) | (
+                    np.abs(z_new - z) <= 1e-15 * (1.0 + np.abs(z))
+                )
+                active &= ~done
+                z = np.where(active, z_new, z)
+                if not active.any():
+                    break
+        return 1.0 / (1.0 + np.exp(-z))
+
+    def _params_from_tau(self, tau):
+        # Kendall's tau does not identify two parameters; the starting rule picks one member.
+        return self._start_params(tau)
+
+
+class BB1(_Archimedean2):
+    """BB1 copula, theta > 0, delta >= 1.
+
+    C(u, v) = {1 + [(u^-theta - 1)^delta + (v^-theta - 1)^delta]^(1/delta)}^(-1/theta).
+
+    Notes
+    -----
+    Generator phi(t) = (t^-theta - 1)^delta, inverse psi(s) = (1 + s^(1/delta))^(-1/theta)
+    (Joe 1997, section 5.2, family BB1). With x = u^-theta - 1, y = v^-theta - 1,
+    s = x^delta + y^delta and z = s^(1/delta):
+
+    - h_{1|2}(u | v) = (1 + z)^(-1/theta - 1) s^(1/delta - 1) y^(delta - 1) v^(-theta - 1),
+    - c(u, v) = (1 + z)^(-1/theta - 2) s^(1/delta - 2) [theta (delta - 1) + (theta delta + 1) z]
+      (x y)^(delta - 1) (u v)^(-theta - 1),
+
+    the second from psi''(s) = (1 + z)^(-1/theta - 2) s^(1/delta - 2)
+    [theta (delta - 1) + (theta delta + 1) z] / (theta delta)^2.
+    Kendall's tau 1 - 2 / (delta (theta + 2)); tail dependence lambda_L = 2^(-1/(theta delta)),
+    lambda_U = 2 - 2^(1/delta). delta = 1 is Clayton(theta); theta -> 0 gives Gumbel(delta).
+
+    Starting rule (also used by ``params_from_tau``, since tau cannot identify two
+    parameters): as 1 - tau = (1 - tau_Clayton(theta)) (1 - tau_Gumbel(delta)), split it
+    equally, tau_Clayton = tau_Gumbel = t = 1 - sqrt(1 - tau), i.e. theta = 2t/(1 - t) and
+    delta = 1/(1 - t). Where that leaves the fit box (tau > 1 - (2/17)^2) theta is held at 15
+    and delta = 2 / (17 (1 - tau)), at most 15. tau below 1e-3 is raised to 1e-3 (BB1 has
+    tau >= 0 only), which gives a near-independence interior point.
+    """
+
+    name = "bb1"
+    param_names = ("theta", "delta")
+    domain = ((0.0, np.inf), (1.0, np.inf))
+    domain_open = ((True, True), (False, True))
+    fit_bounds = ((1e-4, 15.0), (1.0, 15.0))
+    rotations = _ROTATIONS
+
+    __slots__ = ()
+
+    @staticmethod
+    def _log_x(lu, theta):
+        """log(u^-theta - 1) from log u."""
+        return _log_expm1(-theta * lu)
+
+    def _cdf(self, u, v, p):
+        theta, delta = p
+        ls = np.logaddexp(delta * self._log_x(np.log(u), theta),
+                          delta * self._log_x(np.log(v), theta))
+        return np.exp(-np.logaddexp(0.0, ls / delta) / theta)
+
+    def _log_h_and_log_c(self, lu, lub, lv, lvb, p, want_h=True, want_c=True):
+        theta, delta = p
+        lx = self._log_x(lu, theta)
+        ly = self._log_x(lv, theta)
+        ls = np.logaddexp(delta * lx, delta * ly)
+        lz = ls / delta
+        log1p_z = np.logaddexp(0.0, lz)
+        log_h = log_c = None
+        if want_h:
+            log_h = (-(1.0 / theta + 1.0) * log1p_z + (1.0 / delta - 1.0) * ls
+                     + (delta - 1.0) * ly - (theta + 1.0) * lv)
+        if want_c:
+            with np.errstate(divide="ignore"):
+                # theta (delta - 1) vanishes at delta = 1 (Clayton); logaddexp takes -inf.
+                bracket = np.logaddexp(np.log(theta) + np.log(delta - 1.0),
+                                       np.log1p(theta * delta) + lz)
+            log_c = (-(1.0 / theta + 2.0) * log1p_z + (1.0 / delta - 2.0) * ls + bracket
+                     + (delta - 1.0) * (lx + ly) - (theta + 1.0) * (lu + lv))
+        return log_h, log_c
+
+    def _kendall_tau(self, p):
+        theta, delta = p
+        return 1.0 - 2.0 / (delta * (theta + 2.0))
+
+    def _tail_lower(self, p):
+        theta, delta = np.broadcast_arrays(*p)
+        return 2.0 ** (-1.0 / (theta * delta))
+
+    def _tail_upper(self, p):
+        _, delta = np.broadcast_arrays(*p)
+        return 2.0 - 2.0 ** (1.0 / delta)
+
+    def _start_params(self, tau):
+        tau = np.maximum(np.asarray(tau, dtype=float), _TAU_FLOOR)
+        r = np.sqrt(1.0 - tau)  # = 1 - t
+        (_, theta_hi), (_, delta_hi) = self.fit_bounds
+        inside = 2.0 / r - 2.0 <= theta_hi
+        theta = np.where(inside, 2.0 / r - 2.0, theta_hi)
+        delta = np.where(inside, 1.0 / r, 2.0 / ((theta_hi + 2.0) * (1.0 - tau)))
+        return theta, np.minimum(delta, delta_hi)
+
+
+def _bb7_tau(theta, delta):
+    """Kendall's tau of BB7, tau = 1 - 2/(delta (2 - theta)) + 4 B(delta + 2, 2/theta - 1) /
+    (theta^2 delta) (Joe 1997, section 5.2), rearranged without its theta = 2 singularity.
+
+    With e = 2/theta - 1 and Gamma(e) = Gamma(1 + e)/e, B(delta + 2, e) = R/e with
+    R = Gamma(1 + e) Gamma(delta + 2) / Gamma(delta + 2 + e), and the formula becomes
+    tau = 1 + (1 + e) [(R - 1)/e + R] / delta. All Gamma arguments are positive for
+    theta >= 1 (no continuation is needed for theta > 2), and (R - 1)/e is finite at e = 0.
+    For |e| < 0.05, log R comes from its Taylor series
+    log R = sum_k [psi^(k-1)(1) - psi^(k-1)(delta + 2)] e^k / k!, which avoids cancellation
+    in the differences of log-gamma values.
+    """
+    theta, delta = np.broadcast_arrays(np.asarray(theta, float), np.asarray(delta, float))
+    e = 2.0 / theta - 1.0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_r_over_e = (special.gammaln(1.0 + e) + special.gammaln(delta + 2.0)
+                        - special.gammaln(delta + 2.0 + e)) / e
+    near = np.abs(e) < _BB7_SERIES_RADIUS
+    if np.any(near):
+        en, dn = e[near], delta[near]
+        series = np.zeros_like(en)
+        power = np.ones_like(en)  # e^(k-1) / k!
+        for k in range(1, _BB7_SERIES_TERMS + 1):
+            power = power / k if k > 1 else power
+            coeff = special.polygamma(k - 1, 1.0) - special.polygamma(k - 1, dn + 2.0)
+            series = series + coeff * power
+            power = power * en
+        log_r_over_e = np.array(log_r_over_e, copy=True)
+        log_r_over_e[near] = series
+    r_minus_1_over_e = log_r_over_e * special.exprel(e * log_r_over_e)
+    r = np.exp(e * log_r_over_e)
+    return 1.0 + (1.0 + e) * (r_minus_1_over_e + r) / delta
+
+
+class BB7(_Archimedean2):
+    """BB7 (Joe-Clayton) copula, theta >= 1, delta > 0.
+
+    C(u, v) = 1 - (1 - [(1 - ubar^theta)^-delta + (1 - vbar^theta)^-delta - 1]^(-1/delta))
+    ^(1/theta), with ubar = 1 - u.
+
+    Notes
+    -----
+    Generator phi(t) = (1 - (1 - t)^theta)^-delta - 1, inverse
+    psi(s) = 1 - (1 - (1 + s)^(-1/delta))^(1/theta) (Joe 1997, section 5.2, family BB7).
+    With a = 1 - ubar^theta, b = 1 - (1 + s)^(-1/delta):
+
+    - h_{1|2}(u | v) = b^(1/theta - 1) (1 + s)^(-1/delta - 1) a_v^(-delta - 1) vbar^(theta - 1),
+    - c(u, v) = b^(1/theta - 2) (1 + s)^(-1/delta - 2) [theta (delta + 1) b + (theta - 1)(1 - b)]
+      (a_u a_v)^(-delta - 1) (ubar vbar)^(theta - 1),
+
+    the second from psi''(s) = b^(1/theta - 2) (1 + s)^(-1/delta - 2)
+    [theta (delta + 1) b + (theta - 1)(1 - b)] / (theta delta)^2. Kendall's tau: see
+    ``_bb7_tau``. Tail dependence lambda_L = 2^(-1/delta), lambda_U = 2 - 2^(1/theta).
+    theta = 1 is Clayton(delta); delta -> 0 gives Joe(theta).
+
+    Starting rule (also used by ``params_from_tau``, since tau cannot identify two
+    parameters): theta and delta are the Gumbel and Clayton parameters of one common tau
+    level t, theta = 1/(1 - t), delta = 2t/(1 - t) -- the same split as BB1's, with BB7's
+    upper-tail parameter in the Gumbel role and its lower-tail parameter in the Clayton role --
+    and t is solved by bisection so that BB7's tau equals the target. tau increases along
+    this path (checked on a fine grid), although for delta above about 3.4 BB7's tau is not
+    monotone in theta alone (at delta = 15 it falls from theta = 1 to about 3.4). Past the fit
+    box the path runs along its faces (delta = 15, then theta = 15), so a tau above that of
+    (15, 15), 0.9034, gives (15, 15). tau below 1e-3 is raised to 1e-3 (BB7 has tau >= 0
+    only).
+    """
+
+    name = "bb7"
+    param_names = ("theta", "delta")
+    domain = ((1.0, np.inf), (0.0, np.inf))
+    domain_open = ((False, True), (True, True))
+    fit_bounds = ((1.0, 15.0), (1e-4, 15.0))
+    rotations = _ROTATIONS
+
+    __slots__ = ()
+
+    @staticmethod
+    def _logs_a_phi(lub, theta, delta):
+        """(log a, log phi) with a = 1 - (1 - u)^theta and phi = a^-delta - 1, from log(1 - u)."""
+        g = theta * lub
+        la = _log1mexp(-g)
+        # Where (1 - u)^theta underflows, log a = -(1 - u)^theta is lost but phi ~ delta e^g.
+        return la, np.where(g < -700.0, np.log(delta) + g, _log_expm1(-delta * la))
+
+    @staticmethod
+    def _logs_b(ls, delta):
+        """(log(1 + s), log b, log(1 - b)) with b = 1 - (1 + s)^(-1/delta), from log s."""
+        log1p_s = np.logaddexp(0.0, ls)
+        # Where 1 + s rounds to 1, b ~ s / delta.
+        lb = np.where(ls < -700.0, ls - np.log(delta), _log1mexp(log1p_s / delta))
+        return log1p_s, lb, -log1p_s / delta
+
+    def _cdf(self, u, v, p):
+        theta, delta = p
+        _, lphi_u = self._logs_a_phi(np.log1p(-u), theta, delta)
+        _, lphi_v = self._logs_a_phi(np.log1p(-v), theta, delta)
+        _, lb, _ = self._logs_b(np.logaddexp(lphi_u, lphi_v), delta)
+        return -np.expm1(lb / theta)
+
+    def _log_h_and_log_c(self, lu, lub, lv, lvb, p, want_h=True, want_c=True):
+        theta, delta = p
+        la_u, lphi_u = self._logs_a_phi(lub, theta, delta)
+        la_v, lphi_v = self._logs_a_phi(lvb, theta, delta)
+        log1p_s, lb, l1mb = self._logs_b(np.logaddexp(lphi_u, lphi_v), delta)
+        log_h = log_c = None
+        if want_h:
+            log_h = ((1.0 / theta - 1.0) * lb - (1.0 / delta + 1.0) * log1p_s
+                     - (delta + 1.0) * la_v + (theta - 1.0) * lvb)
+        if want_c:
+            with np.errstate(divide="ignore"):
+                # theta - 1 vanishes at theta = 1 (Clayton); logaddexp takes -inf.
+                bracket = np.logaddexp(np.log(theta * (delta + 1.0)) + lb,
+                                       np.log(theta - 1.0) + l1mb)
+            log_c = ((1.0 / theta - 2.0) * lb - (1.0 / delta + 2.0) * log1p_s + bracket
+                     - (delta + 1.0) * (la_u + la_v) + (theta - 1.0) * (lub + lvb))
+        return log_h, log_c
+
+    def _kendall_tau(self, p):
+        theta, delta = p
+        return _bb7_tau(theta, delta)
+
+    def _tail_lower(self, p):
+        _, delta = np.broadcast_arrays(*p)
+        return 2.0 ** (-1.0 / delta)
+
+    def _tail_upper(self, p):
+        theta, _ = np.broadcast_arrays(*p)
+        return 2.0 - 2.0 ** (1.0 / theta)
+
+    def _start_params(self, tau):
+        tau = np.maximum(np.asarray(tau, dtype=float), _TAU_FLOOR)
+        (_, theta_hi), (delta_lo, delta_hi) = self.fit_bounds
+
+        def path(t):
+            return (np.minimum(1.0 / (1.0 - t), theta_hi),
+                    np.minimum(2.0 * t / (1.0 - t), delta_hi))
+
+        # Bisection in t: 55 halvings of an interval shorter than 1 reach rounding level.
+        a = np.full(tau.shape, delta_lo / (2.0 + delta_lo))
+        b = np.full(tau.shape, 1.0 - 1.0 / theta_hi)
+        for _ in range(55):
+            m = 0.5 * (a + b)
+            below = self._kendall_tau(path(m)) < tau
+            a = np.where(below, m, a)
+            b = np.where(below, b, m)
+        return path(0.5 * (a + b))
