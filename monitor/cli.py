@@ -139,6 +139,9 @@ def _cmd_fit(args: argparse.Namespace, cfg: Config) -> int:
         if name not in FAMILY_NAMES:
             raise InputError(f"--families: unknown family {name!r}; known: "
                              f"{', '.join(FAMILY_NAMES)}")
+    if len(set(families)) != len(families):
+        twice = next(name for name in families if families.count(name) > 1)
+        raise InputError(f"--families: {twice!r} is listed twice")
     frame = read_series(args.file)
     study = study_window(
         frame, args.pair[0], args.pair[1], kind=args.kind, start=args.start, end=args.end,
@@ -204,7 +207,10 @@ def render_study(study) -> str:
 
 def _not_yet(name: str):
     def run(args: argparse.Namespace, cfg: Config) -> int:
-        raise InputError(f"'comove {name}' is not available in this version yet")
+        # Name the whole command a user typed, e.g. 'comove export timeline'.
+        full = " ".join([name, *(w for w in (getattr(args, "what", None),
+                                             getattr(args, "action", None)) if w)])
+        raise InputError(f"'comove {full}' is not available in this version yet")
     return run
 
 

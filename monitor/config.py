@@ -125,6 +125,8 @@ def _section(cls: type, table: Any, where: str, path: str):
 
 
 def _validate(cfg: Config, path: str) -> None:
+    if not cfg.store.url.strip():
+        raise InputError(f"{path}: store.url must not be empty")
     r = cfg.rolling
     if r.window < 30:
         raise InputError(f"{path}: rolling.window must be at least 30, got {r.window}")
@@ -188,13 +190,15 @@ def load_config(path: str | os.PathLike | None = None, store_url: str | None = N
         if not p.is_file():
             raise InputError(f"config file {str(p)!r} not found")
         try:
-            raw = tomllib.loads(p.read_text(encoding="utf-8"))
+            # utf-8-sig: editors on Windows start the file with a byte-order mark.
+            raw = tomllib.loads(p.read_text(encoding="utf-8-sig"))
         except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
             raise InputError(f"{p}: not valid TOML ({exc})") from None
         values = {}
         for key, table in raw.items():
             if key not in _SECTIONS:
-                raise InputError(f"{p}: unknown section [{key}]; known: {', '.join(_SECTIONS)}")
+                what = f"section [{key}]" if isinstance(table, dict) else f"top-level key {key}"
+                raise InputError(f"{p}: unknown {what}; known sections: {', '.join(_SECTIONS)}")
             values[key] = _section(_SECTIONS[key], table, key, str(p))
         cfg = replace(cfg, **values, source=str(p))
         _validate(cfg, str(p))

@@ -9,6 +9,8 @@ an :class:`~monitor.errors.InputError` naming file, line, date and column.
 
 from __future__ import annotations
 
+import csv
+import io
 from pathlib import Path
 
 import numpy as np
@@ -19,30 +21,44 @@ from .errors import InputError
 _PARQUET_MAGIC = b"PAR1"
 
 
-def _line(i: int) -> int:
-    """File line of data row ``i`` (0-based) in a CSV with one header line."""
-    return i + 2
+def _where(i: int, lines: np.ndarray | None) -> str:
+    """Where data row ``i`` (0-based) sits: its file line in a CSV, its row number otherwise."""
+    return f"line {int(lines[i])}" if lines is not None else f"row {i + 1}"
 
 
-def _parse_dates(raw: pd.Series, path: str, is_csv: bool) -> pd.DatetimeIndex:
+def _show(cell: object, limit: int = 40) -> str:
+    """A cell quoted for a one-line message, cut short so a runaway cell stays readable."""
+    text = str(cell)
+    return repr(text if len(text) <= limit else text[:limit - 3] + "...")
+
+
+def _parse_dates(raw: pd.Series, path: str, lines: np.ndarray | None) -> pd.DatetimeIndex:
     if pd.api.types.is_datetime64_any_dtype(raw):
         dates = pd.DatetimeIndex(raw)
+        bad = np.flatnonzero(dates.isna())
+        if bad.size:
+            raise InputError(f"{path}: {_where(int(bad[0]), lines)}: the date is missing")
     else:
         text = raw.astype("string").str.strip()
-        dates = pd.DatetimeIndex(pd.to_datetime(text, format="ISO8601", errors="coerce"))
+        try:
+            parsed = pd.to_datetime(text, format="ISO8601", errors="coerce")
+        except ValueError:
+            # errors="coerce" does not cover dates that mix time zones (or a zone and none).
+            raise InputError(f"{path}: the dates mix time zones; give plain YYYY-MM-DD "
+                             "dates") from None
+        dates = pd.DatetimeIndex(parsed)
         bad = np.flatnonzero(dates.isna())
         if bad.size:
             i = int(bad[0])
-            where = f"line {_line(i)}" if is_csv else f"row {i + 1}"
-            raise InputError(f"{path}: {where}: cannot read date {str(raw.iloc[i])!r} "
-                             "(expected YYYY-MM-DD)")
+            raise InputError(f"{path}: {_where(i, lines)}: cannot read date "
+                             f"{_show(raw.iloc[i])} (expected YYYY-MM-DD)")
     if dates.tz is not None:
         dates = dates.tz_localize(None)
     return dates.normalize()
 
 
 def _parse_numbers(raw: pd.Series, path: str, column: str, dates: pd.DatetimeIndex,
-                   is_csv: bool) -> np.ndarray:
+                   lines: np.ndarray | None) -> np.ndarray:
     """Numbers of one column; empty cells become NaN (= no value on that date)."""
     if pd.api.types.is_numeric_dtype(raw) and not pd.api.types.is_bool_dtype(raw):
         values = raw.to_numpy(dtype=float, na_value=np.nan)
@@ -61,38 +77,87 @@ def _parse_numbers(raw: pd.Series, path: str, column: str, dates: pd.DatetimeInd
     bad = np.flatnonzero(text_bad | nonfinite)
     if bad.size:
         i = int(bad[0])
-        where = f"line {_line(i)}" if is_csv else f"row {i + 1}"
-        raise InputError(f"{path}: {where} ({dates[i].date()}), column {column!r}: "
-                         f"{str(raw.iloc[i])!r} is not a finite number")
+        raise InputError(f"{path}: {_where(i, lines)} ({dates[i].date()}), column {column!r}: "
+                         f"{_show(raw.iloc[i])} is not a finite number")
     return values
 
 
-def _read_raw(path: Path) -> tuple[pd.DataFrame, bool]:
+def _read_csv(path: Path, data: bytes) -> tuple[pd.DataFrame, np.ndarray]:
+    """Cells of a CSV file as text, with the file line of every data row.
+
+    The csv module rather than pandas' reader, because pandas renames a repeated header name
+    (``A``, ``A.1``) where it must be refused, pads a short row with empty cells, turns a row
+    with one extra field into an index, and skips blank lines so that its row numbers stop
+    being file lines. Reading is I/O bound, so the loop over rows is not a hot path.
+    """
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = data[:exc.start].count(b"\n") + 1
+        raise InputError(f"{path}: line {line}: not UTF-8 text, expected CSV or "
+                         "Parquet") from None
+    reader = csv.reader(io.StringIO(text, newline=""), skipinitialspace=True, strict=True)
+    header: list[str] | None = None
+    rows: list[list[str]] = []
+    lines: list[int] = []
+    end = 0
+    try:
+        for row in reader:
+            first, end = end + 1, reader.line_num
+            if not any(cell.strip() for cell in row):
+                continue  # a blank line (or only separators) holds no data to lose
+            if header is None:
+                header = row
+                continue
+            if len(row) != len(header):
+                raise InputError(f"{path}: line {first}: {len(row)} fields where the header "
+                                 f"has {len(header)}")
+            rows.append(row)
+            lines.append(first)
+    except csv.Error as exc:
+        raise InputError(f"{path}: line {end + 1}: not a readable CSV row ({exc})") from None
+    if header is None:
+        raise InputError(f"{path}: file is empty")
+    frame = pd.DataFrame(rows, columns=range(len(header)), dtype=object)
+    frame.columns = header
+    return frame, np.asarray(lines, dtype=int)
+
+
+def _read_raw(path: Path) -> tuple[pd.DataFrame, np.ndarray | None]:
+    """The file's cells and, for a CSV, the file line of each row (None for Parquet)."""
     if not path.exists():
         raise InputError(f"{path}: file not found")
     if not path.is_file():
         raise InputError(f"{path}: not a file")
-    with path.open("rb") as fh:
-        head = fh.read(8192)
-    if not head:
+    data = path.read_bytes()
+    if not data:
         raise InputError(f"{path}: file is empty")
-    if head.startswith(_PARQUET_MAGIC):
+    if data.startswith(_PARQUET_MAGIC):
         try:
-            return pd.read_parquet(path), False
+            frame = pd.read_parquet(path)
         except Exception as exc:  # noqa: BLE001 - any reader failure is a bad file
             raise InputError(f"{path}: unreadable Parquet file ({type(exc).__name__})") from None
-    if b"\x00" in head:
+        if any(name is not None for name in frame.index.names):
+            # A frame saved together with its date index comes back with it as the index.
+            frame = frame.reset_index()
+        return frame, None
+    if b"\x00" in data:
         raise InputError(f"{path}: binary file, expected CSV or Parquet")
-    try:
-        frame = pd.read_csv(path, dtype=str, keep_default_na=False, skipinitialspace=True,
-                            encoding="utf-8")
-    except pd.errors.EmptyDataError:
-        raise InputError(f"{path}: file is empty") from None
-    except UnicodeDecodeError:
-        raise InputError(f"{path}: not UTF-8 text, expected CSV or Parquet") from None
-    except pd.errors.ParserError as exc:
-        raise InputError(f"{path}: not a readable CSV file ({str(exc).splitlines()[0]})") from None
-    return frame, True
+    return _read_csv(path, data)
+
+
+def _check_header(names: list[str], path: Path) -> None:
+    """Refuse a header with a nameless, repeated or second date column."""
+    for k, name in enumerate(names):
+        if not name or name.lower().startswith("unnamed:"):
+            raise InputError(f"{path}: column {k + 1} has no name in the header")
+    seen: dict[str, int] = {}
+    for k, name in enumerate(names):
+        key = name.lower() if name.lower() == "date" else name
+        if key in seen:
+            raise InputError(f"{path}: column name {name!r} appears twice in the header "
+                             f"(columns {seen[key] + 1} and {k + 1})")
+        seen[key] = k
 
 
 def read_series(path: str | Path) -> pd.DataFrame:
@@ -112,28 +177,31 @@ def read_series(path: str | Path) -> pd.DataFrame:
     Raises
     ------
     InputError
-        Missing, empty, binary or unreadable file; header only; no date column; an unparseable
-        date; text or a non-finite number in a value column; a duplicated date (or date and
-        asset) with different values; a column with no values; a single row.
+        Missing, empty, binary or unreadable file; header only; a header column without a
+        name or named twice; a row with more or fewer fields than the header; no date column;
+        an unparseable date; text or a non-finite number in a value column; a duplicated date
+        (or date and asset) with different values; a column with no values; a single row.
     """
     path = Path(path)
-    frame, is_csv = _read_raw(path)
+    frame, lines = _read_raw(path)
     if frame.shape[1] == 0:
         raise InputError(f"{path}: file is empty")
     if frame.shape[0] == 0:
         raise InputError(f"{path}: header only, no data rows")
-    lower = {str(c).strip().lower(): c for c in frame.columns}
+    names = [str(c).strip() for c in frame.columns]
+    _check_header(names, path)
+    frame.columns = names
+    lower = {n.lower(): n for n in names}
     if "date" not in lower:
-        raise InputError(f"{path}: no 'date' column (columns: "
-                         f"{', '.join(map(str, frame.columns))})")
-    dates = _parse_dates(frame[lower["date"]], str(path), is_csv)
-    long = set(lower) == {"date", "asset", "value"}
+        raise InputError(f"{path}: no 'date' column (columns: {', '.join(names)})")
+    dates = _parse_dates(frame[lower["date"]], str(path), lines)
+    long = set(lower) == {"date", "asset", "value"} and len(names) == 3
     if long:
         assets = frame[lower["asset"]].astype("string").str.strip().fillna("")
         blank = np.flatnonzero((assets == "").to_numpy())
         if blank.size:
-            raise InputError(f"{path}: line {_line(int(blank[0]))}: empty asset name")
-        values = _parse_numbers(frame[lower["value"]], str(path), "value", dates, is_csv)
+            raise InputError(f"{path}: {_where(int(blank[0]), lines)}: empty asset name")
+        values = _parse_numbers(frame[lower["value"]], str(path), "value", dates, lines)
         tidy = pd.DataFrame({"date": dates, "asset": assets.to_numpy(dtype=object),
                              "value": values})
         tidy = tidy.dropna(subset=["value"])
@@ -149,16 +217,10 @@ def read_series(path: str | Path) -> pd.DataFrame:
         wide = tidy.pivot(index="date", columns="asset", values="value")
         wide.columns = [str(c) for c in wide.columns]
     else:
-        cols = [c for c in frame.columns if c != lower["date"]]
+        cols = [c for c in names if c != lower["date"]]
         if not cols:
             raise InputError(f"{path}: no asset columns besides 'date'")
-        names = [str(c).strip() for c in cols]
-        if any(not n or n.lower().startswith("unnamed:") for n in names):
-            raise InputError(f"{path}: a column has no name in the header")
-        if len(set(names)) != len(names):
-            raise InputError(f"{path}: a column name appears twice in the header")
-        data = {name: _parse_numbers(frame[c], str(path), name, dates, is_csv)
-                for name, c in zip(names, cols, strict=True)}
+        data = {c: _parse_numbers(frame[c], str(path), c, dates, lines) for c in cols}
         wide = pd.DataFrame(data, index=dates)
         dup = wide.index.duplicated(keep=False)
         if dup.any():
@@ -182,16 +244,37 @@ def read_series(path: str | Path) -> pd.DataFrame:
 def log_returns(prices: pd.DataFrame, source: str = "prices") -> pd.DataFrame:
     """Log returns ln(P_t / P_s) per asset, s the asset's previous date with a price.
 
+    Parameters
+    ----------
+    prices : DataFrame
+        Wide prices indexed by date (as :func:`read_series` returns); NaN where an asset has
+        no price on a date.
+    source : str
+        Name of the data used in error messages (usually the file).
+
+    Returns
+    -------
+    DataFrame
+        Same columns; row t holds ln(P_t / P_s) for every asset priced on t and on an earlier
+        date s (its previous price), NaN elsewhere. Each asset's first price gives no return.
+
+    Raises
+    ------
+    InputError
+        A zero, negative or non-finite price, naming its date and column.
+
+    Notes
+    -----
     Each asset keeps its own calendar: a missing price skips that date rather than breaking
-    the series. Zero, negative or non-finite prices are refused naming date and column.
+    the series, so the return after a gap spans the gap.
     """
     out = {}
     for col in prices.columns:
         s = prices[col].dropna()
         bad = s[~(np.isfinite(s.to_numpy()) & (s.to_numpy() > 0))]
         if len(bad):
-            raise InputError(f"{source}: price {bad.iloc[0]!r} on {bad.index[0].date()} in "
-                             f"column {col!r} is not positive")
+            raise InputError(f"{source}: price {float(bad.iloc[0])!r} on {bad.index[0].date()} "
+                             f"in column {col!r} is not a positive finite number")
         out[col] = np.log(s).diff().iloc[1:]
     result = pd.DataFrame(out).reindex(columns=prices.columns)
     result.index.name = "date"

@@ -292,7 +292,12 @@ class CopulaFamily:
             raise ValueError("tau must lie in (-1, 1)")
         if self.rotation in (90, 270):
             tau = -tau
-        return self._params_from_tau(tau)
+        params = self._params_from_tau(tau)
+        try:
+            return self.as_params(params)
+        except ValueError:
+            raise ValueError(f"{self.label} copula cannot reach every tau in "
+                             f"{np.unique(np.round(tau, 6)).tolist()[:5]}") from None
 
     def start_params(self, tau: ArrayLike) -> Params:
         """Starting values for estimation from a sample Kendall's tau, inside :attr:`fit_bounds`."""
