@@ -24,8 +24,11 @@ from .copulas import CopulaFamily, family
 from .copulas.base import UNIT_EPS
 from .empirical import kendall_tau
 
-#: Finite-difference step in transformed coordinates.
+#: Finite-difference steps in transformed coordinates: central differences for gradient and
+#: Hessian, forward differences for a gradient alone (its bias, half the step times the
+#: curvature, moves the optimum by about 5e-7).
 _FD_STEP = 1e-4
+_FD_GRADIENT_STEP = 1e-6
 #: Numbers per block when evaluating log-likelihoods over many windows.
 _BLOCK = 1 << 15
 
@@ -196,7 +199,8 @@ def _validate_batch(u: ArrayLike, v: ArrayLike) -> tuple[NDArray, NDArray]:
 # ----------------------------------------------------------------------------- batched fit
 def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
                 start: ArrayLike | None = None, tau: ArrayLike | None = None,
-                rotation_by_sign: bool = False, chain: int = 0, max_iter: int = 100) -> BatchFit:
+                rotation_by_sign: bool = False, chain: int = 0,
+                max_iter: int = 100) -> BatchFit:
     """Fit one family by maximum pseudo-likelihood on every window of a batch.
 
     Parameters
@@ -261,45 +265,86 @@ def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
         start = np.column_stack(fam.start_params(t))
     start = np.broadcast_to(np.asarray(start, dtype=float), (windows, k))
     data = fam.prepare(u, v)
-    if chain > 1 and windows > chain:
-        # Stage 1 on a lattice of rows, stage 2 on the rest warm-started from the lattice.
-        lattice = np.arange(0, windows, chain)
-        p1, ll1, c1, i1 = _newton(fam, fam.take(data, lattice), start[lattice], max_iter, n)
-        rest = np.setdiff1d(np.arange(windows), lattice)
-        nearest = np.clip(np.rint(rest / chain).astype(int), 0, lattice.size - 1)
-        p2, ll2, c2, i2 = _newton(fam, fam.take(data, rest), p1[nearest], max_iter, n)
-        params = np.empty((windows, k))
-        ll = np.empty(windows)
-        conv = np.empty(windows, dtype=bool)
-        iters = np.empty(windows, dtype=np.int64)
-        for rows, vals in ((lattice, (p1, ll1, c1, i1)), (rest, (p2, ll2, c2, i2))):
-            params[rows], ll[rows], conv[rows], iters[rows] = vals
-    else:
-        params, ll, conv, iters = _newton(fam, data, start, max_iter, n)
+    params, ll, conv, iters = _solve(fam, data, start, chain, max_iter, n)
     return BatchFit(fam.name, fam.param_names, _readonly(rotations, np.int64), _readonly(params),
                     _readonly(ll), _readonly(conv, bool), _readonly(iters, np.int64), n)
 
 
-def _newton(fam: CopulaFamily, data: tuple, start: NDArray, max_iter: int, n: int):
+def _solve(fam, data, start, chain, max_iter, n):
+    windows, k = start.shape
+    if not (chain > 1 and windows > chain):
+        return _newton(fam, data, start, max_iter, n)[:4]
+    # Stage 1 on a lattice of rows; stage 2 on the rest, started from the nearest lattice
+    # row's estimate *and* its Hessian (overlapping windows have nearly the same curvature),
+    # so a stage-2 window usually needs only two gradient evaluations and one trial point.
+    lattice = np.arange(0, windows, chain)
+    p1, ll1, c1, i1, h1 = _newton(fam, fam.take(data, lattice), start[lattice], max_iter, n)
+    rest = np.setdiff1d(np.arange(windows), lattice)
+    nearest = np.clip(np.rint(rest / chain).astype(int), 0, lattice.size - 1)
+    p2, ll2, c2, i2, _ = _newton(fam, fam.take(data, rest), p1[nearest], max_iter, n,
+                                 hess0=h1[nearest])
+    params = np.empty((windows, k))
+    ll = np.empty(windows)
+    conv = np.empty(windows, dtype=bool)
+    iters = np.empty(windows, dtype=np.int64)
+    for rows, vals in ((lattice, (p1, ll1, c1, i1)), (rest, (p2, ll2, c2, i2))):
+        params[rows], ll[rows], conv[rows], iters[rows] = vals
+    return params, ll, conv, iters
+
+
+def _newton(fam: CopulaFamily, data: tuple, start: NDArray, max_iter: int, n: int,
+            hess0: NDArray | None = None):
+    """Trust-region Newton on every window; returns estimates, logliks, flags, iterations and
+    the last finite-difference Hessians (in the optimiser's coordinates).
+
+    Without ``hess0`` the Hessian is recomputed (central differences) at every new point;
+    with it, the given Hessian is kept while steps succeed and only the gradient is taken
+    (forward differences), the Hessian being recomputed after a rejected step.
+    """
     xlo, xhi, to_x, to_p = _coordinates(fam)
     windows, k = start.shape
-    h = _FD_STEP
+    h, hg = _FD_STEP, _FD_GRADIENT_STEP
     eye = np.eye(k)
+    step_rows = max(1, _BLOCK // n)
 
     def loglik(d, x):
         p = to_p(x)
-        rows = len(x)
         # Blocks of about 2**15 numbers stay in cache through the family's chain of NumPy
         # temporaries: markedly faster than one pass over all windows.
-        step = max(1, _BLOCK // n)
-        if rows <= step:
-            val = fam.loglik_prepared(d, tuple(p[:, j] for j in range(k)))
-        else:
-            val = np.empty(rows)
-            for lo in range(0, rows, step):
-                sl = np.arange(lo, min(lo + step, rows))
-                val[sl] = fam.loglik_prepared(fam.take(d, sl), tuple(p[sl, j] for j in range(k)))
+        val = np.concatenate([
+            fam.loglik_prepared(fam.take(d, slice(lo, lo + step_rows)),
+                                tuple(p[lo:lo + step_rows, j] for j in range(k)))
+            for lo in range(0, len(x), step_rows)
+        ]) if len(x) else np.empty(0)
         return np.where(np.isfinite(val), val, -np.inf)
+
+    def stencil(rows):
+        """Central-difference gradient and Hessian at x[rows] (kept inside the box)."""
+        d = fam.take(data, rows)
+        xc = np.clip(x[rows], xlo + h, xhi - h)
+        moved = np.any(xc != x[rows], axis=1)
+        fc = f[rows].copy()
+        if moved.any():
+            fc[moved] = loglik(fam.take(d, np.flatnonzero(moved)), xc[moved])
+        fp = np.column_stack([loglik(d, xc + h * eye[j]) for j in range(k)])
+        fm = np.column_stack([loglik(d, xc - h * eye[j]) for j in range(k)])
+        g = (fp - fm) / (2 * h)
+        hs = np.zeros((rows.size, k, k))
+        for j in range(k):
+            hs[:, j, j] = (fp[:, j] - 2 * fc + fm[:, j]) / h**2
+        if k == 2:
+            cross = (loglik(d, xc + h * (eye[0] + eye[1])) - fp[:, 0] - fp[:, 1] + fc) / h**2
+            hs[:, 0, 1] = hs[:, 1, 0] = cross
+        return np.where(np.isfinite(g), g, 0.0), np.where(np.isfinite(hs), hs, -1.0)
+
+    def forward_gradient(rows):
+        d = fam.take(data, rows)
+        xr = x[rows]
+        g = np.empty((rows.size, k))
+        for j in range(k):
+            sign = np.where(xr[:, j] + hg > xhi[j], -1.0, 1.0)
+            g[:, j] = (loglik(d, xr + (sign * hg)[:, None] * eye[j]) - f[rows]) / (sign * hg)
+        return np.where(np.isfinite(g), g, 0.0)
 
     x = to_x(start.copy())
     f = loglik(data, x)
@@ -308,39 +353,25 @@ def _newton(fam: CopulaFamily, data: tuple, start: NDArray, max_iter: int, n: in
     converged = np.zeros(windows, dtype=bool)
     iterations = np.zeros(windows, dtype=np.int64)
     grad = np.zeros((windows, k))
-    hess = np.zeros((windows, k, k))
-    fresh = np.zeros(windows, dtype=bool)  # derivatives valid at the current x
+    reuse = hess0 is not None
+    hess = np.array(hess0, dtype=float) if reuse else np.zeros((windows, k, k))
+    has_hess = np.full(windows, reuse)
+    fresh = np.zeros(windows, dtype=bool)  # gradient valid at the current x
 
     for _ in range(max_iter):
         idx = np.flatnonzero(active)
         if idx.size == 0:
             break
         iterations[idx] += 1
-        # Derivatives where x moved (or at the start); stencils kept inside the box.
         need = idx[~fresh[idx]]
-        if need.size:
-            d = fam.take(data, need)
-            xc = np.clip(x[need], xlo + h, xhi - h)
-            moved = np.any(xc != x[need], axis=1)
-            fc = f[need].copy()
-            if moved.any():
-                fc[moved] = loglik(fam.take(d, np.flatnonzero(moved)), xc[moved])
-            fp = np.empty((need.size, k))
-            fm = np.empty((need.size, k))
-            for j in range(k):
-                fp[:, j] = loglik(d, xc + h * eye[j])
-                fm[:, j] = loglik(d, xc - h * eye[j])
-            g = (fp - fm) / (2 * h)
-            hs = np.zeros((need.size, k, k))
-            for j in range(k):
-                hs[:, j, j] = (fp[:, j] - 2 * fc + fm[:, j]) / h**2
-            if k == 2:
-                fpp = loglik(d, xc + h * (eye[0] + eye[1]))
-                cross = (fpp - fp[:, 0] - fp[:, 1] + fc) / h**2
-                hs[:, 0, 1] = hs[:, 1, 0] = cross
-            grad[need] = np.where(np.isfinite(g), g, 0.0)
-            hess[need] = np.where(np.isfinite(hs), hs, -1.0)
-            fresh[need] = True
+        full = need[~has_hess[need]]
+        if full.size:
+            grad[full], hess[full] = stencil(full)
+            has_hess[full] = True
+        quick = need[has_hess[need] & ~np.isin(need, full)]
+        if quick.size:
+            grad[quick] = forward_gradient(quick)
+        fresh[need] = True
 
         xa, fa, g, hs = x[idx], f[idx], grad[idx].copy(), hess[idx].copy()
         # Projection: hold coordinates at a bound whose gradient points outwards.
@@ -352,22 +383,34 @@ def _newton(fam: CopulaFamily, data: tuple, start: NDArray, max_iter: int, n: in
             hs[hj, :, j] = 0.0
             hs[hj, j, j] = -1.0
         gnorm = np.max(np.abs(g), axis=1)
-        done = gnorm < 1e-7
-        step = _newton_step(-hs, g)
+        step, concave = _newton_step(-hs, g)
         scale = np.max(np.abs(step), axis=1)
+        # Converged at x: the gradient vanishes, or the concave local model predicts a gain
+        # below 1e-7 from a step below 1e-4 -- no trial evaluation is then needed.
+        done = (gnorm < 1e-7) | (concave & (0.5 * np.sum(g * step, axis=1) < 1e-7)
+                                 & (scale < 1e-4))
         shrink = np.where(scale > radius[idx], radius[idx] / np.maximum(scale, 1e-300), 1.0)
         step *= shrink[:, None]
         xn = np.clip(xa + step, xlo, xhi)
         sn = np.max(np.abs(xn - xa), axis=1)
-        fn = loglik(fam.take(data, idx), xn)
+        fn = np.full(idx.size, -np.inf)
+        trial = np.flatnonzero(~done)
+        if trial.size:
+            fn[trial] = loglik(fam.take(data, idx[trial]), xn[trial])
         accept = (fn >= fa - 1e-12 * (1 + np.abs(fa))) & ~done
         small = (sn < 1e-7) & (np.abs(fn - fa) < 1e-9)
         ia = idx[accept]
         x[ia], f[ia] = xn[accept], fn[accept]
         fresh[ia] = False
+        if not reuse:
+            has_hess[ia] = False
         radius[ia] = np.minimum(np.maximum(radius[ia], 2.0 * sn[accept]), 4.0)
         rej = idx[~accept & ~done]
         radius[rej] = 0.25 * sn[~accept & ~done]
+        # A rejected step under a kept Hessian: recompute it before shrinking further.
+        stale = rej[has_hess[rej] & reuse]
+        has_hess[stale] = False
+        fresh[stale] = False
         ok = done | (accept & small)
         # A trust radius that collapsed without an accepted step: stationary only if the
         # projected gradient is already negligible.
@@ -375,27 +418,30 @@ def _newton(fam: CopulaFamily, data: tuple, start: NDArray, max_iter: int, n: in
         converged[idx[ok]] = True
         converged[idx[stuck]] = gnorm[stuck] < 1e-4
         active[idx[ok | stuck]] = False
-    return to_p(x), f, converged, iterations
+    return to_p(x), f, converged, iterations, hess
 
 
-def _newton_step(a: NDArray, g: NDArray) -> NDArray:
-    """Solve a s = g for each window with a made positive definite (k = 1 or 2)."""
+def _newton_step(a: NDArray, g: NDArray) -> tuple[NDArray, NDArray]:
+    """Solve a s = g for each window (k = 1 or 2), with a shifted by a multiple of the identity
+    where it is not positive definite; also returns where no shift was needed."""
     k = g.shape[1]
     if k == 1:
         d = a[:, 0, 0]
-        d = np.where(d > 1e-10 * (1 + np.abs(g[:, 0])), d, np.abs(d) + 1e-3 + np.abs(g[:, 0]))
-        return g / d[:, None]
+        concave = d > 1e-10 * (1 + np.abs(g[:, 0]))
+        d = np.where(concave, d, np.abs(d) + 1e-3 + np.abs(g[:, 0]))
+        return g / d[:, None], concave
     p, q, r = a[:, 0, 0], a[:, 0, 1], a[:, 1, 1]
     half_tr = 0.5 * (p + r)
     disc = np.sqrt(0.25 * (p - r) ** 2 + q**2)
     lam_min = half_tr - disc
     floor = 1e-8 * (1 + np.abs(half_tr) + disc)
-    mu = np.where(lam_min > floor, 0.0, floor - lam_min + 1e-3 * (1 + np.abs(half_tr)))
+    concave = lam_min > floor
+    mu = np.where(concave, 0.0, floor - lam_min + 1e-3 * (1 + np.abs(half_tr)))
     p, r = p + mu, r + mu
     det = p * r - q * q
     s0 = (r * g[:, 0] - q * g[:, 1]) / det
     s1 = (p * g[:, 1] - q * g[:, 0]) / det
-    return np.column_stack([s0, s1])
+    return np.column_stack([s0, s1]), concave
 
 
 # ----------------------------------------------------------------------------- reference path

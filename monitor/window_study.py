@@ -182,7 +182,7 @@ def study_window(frame: pd.DataFrame, a: str, b: str, *, kind: str = "returns",
     for col, arr in ((a, x), (b, y)):
         if np.all(arr == arr[0]):
             raise InputError(f"{source}: column {col!r} is constant in the window "
-                             f"({arr[0]!r} on every date)")
+                             f"({float(arr[0])!r} on every date)")
     if kind == "uniforms":
         for col, arr in ((a, x), (b, y)):
             bad = np.flatnonzero(~((arr > 0) & (arr < 1)))

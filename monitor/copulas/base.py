@@ -348,7 +348,7 @@ class CopulaFamily:
         """
         return self._rotate_uv(u, v)
 
-    def take(self, data: tuple, index: NDArray) -> tuple:
+    def take(self, data: tuple, index: NDArray | slice) -> tuple:
         """The prepared data of the windows ``index`` (a subset for the active windows)."""
         return tuple(a[index] for a in data)
 

@@ -78,6 +78,16 @@ class _Archimedean2(CopulaFamily):
         lv, lvb = _log_of_unit(v)
         return self._log_h_and_log_c(lu, lub, lv, lvb, p, want_h=False)[1]
 
+    def prepare(self, u, v):
+        # The four logs do not depend on the parameters: compute them once per optimisation.
+        ru, rv = self._rotate_uv(u, v)
+        return (*_log_of_unit(ru), *_log_of_unit(rv))
+
+    def loglik_prepared(self, data, p):
+        lu, lub, lv, lvb = data
+        pw = tuple(a[:, None] for a in p)
+        return np.sum(self._log_h_and_log_c(lu, lub, lv, lvb, pw, want_h=False)[1], axis=-1)
+
     def _h_u_given_v(self, u, v, p):
         lu, lub = _log_of_unit(u)
         lv, lvb = _log_of_unit(v)
