@@ -22,6 +22,8 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from .arrays import read_only
+
 __all__ = [
     "ConditionalCorrelation",
     "ExceedanceCorrelation",
@@ -49,12 +51,6 @@ _SCALES = ("standardised", "quantile", "data")
 
 
 # ---------------------------------------------------------------------------------- helpers
-def _read_only(a: ArrayLike) -> NDArray:
-    arr = np.array(a)
-    arr.flags.writeable = False
-    return arr
-
-
 def _as_samples(x: ArrayLike, name: str, *, min_n: int = 1) -> NDArray[np.float64]:
     """Validate one sample or a batch along the last axis; returns a float array."""
     raw = np.asarray(x)
@@ -577,7 +573,7 @@ def tail_dependence(u: ArrayLike, v: ArrayLike, q: ArrayLike) -> TailDependence:
     qs = qb[..., 0]
     lower = lower_count / n / qs
     upper = (1.0 - 2.0 * (1.0 - qs) + upper_count / n) / qs
-    return TailDependence(_read_only(lower), _read_only(upper), _read_only(qs))
+    return TailDependence(read_only(lower), read_only(upper), read_only(qs))
 
 
 def _extreme_rank_bounds(x: ArrayLike, y: ArrayLike, min_n: int):
@@ -640,7 +636,7 @@ def tail_dependence_rank(x: ArrayLike, y: ArrayLike, k: int | None = None) -> Ra
     lower = np.count_nonzero(hi <= k, axis=-1) / k
     upper = np.count_nonzero(lo > n - k, axis=-1) / k
     return RankTailDependence(
-        _read_only(lower.reshape(batch)), _read_only(upper.reshape(batch)), int(k), n
+        read_only(lower.reshape(batch)), read_only(upper.reshape(batch)), int(k), n
     )
 
 
@@ -739,12 +735,12 @@ def tail_dependence_plateau(x: ArrayLike, y: ArrayLike, *, bandwidth: int | None
     lower, k_lower, found_lower = _plateau(hist_lower.reshape(rows, n), n, b, m)
     upper, k_upper, found_upper = _plateau(hist_upper.reshape(rows, n), n, b, m)
     return PlateauTailDependence(
-        lower=_read_only(lower.reshape(batch)),
-        upper=_read_only(upper.reshape(batch)),
-        k_lower=_read_only(k_lower.reshape(batch)),
-        k_upper=_read_only(k_upper.reshape(batch)),
-        found_lower=_read_only(found_lower.reshape(batch)),
-        found_upper=_read_only(found_upper.reshape(batch)),
+        lower=read_only(lower.reshape(batch)),
+        upper=read_only(upper.reshape(batch)),
+        k_lower=read_only(k_lower.reshape(batch)),
+        k_upper=read_only(k_upper.reshape(batch)),
+        found_lower=read_only(found_lower.reshape(batch)),
+        found_upper=read_only(found_upper.reshape(batch)),
         bandwidth=b,
         length=m,
         n=n,
@@ -808,7 +804,7 @@ def tail_dependence_cfg(x: ArrayLike, y: ArrayLike) -> ExtremeValueTailDependenc
     upper = _cfg_upper(u, v)
     lower = _cfg_upper(1.0 - u, 1.0 - v)
     return ExtremeValueTailDependence(
-        _read_only(lower.reshape(batch)), _read_only(upper.reshape(batch)), n
+        read_only(lower.reshape(batch)), read_only(upper.reshape(batch)), n
     )
 
 
@@ -943,7 +939,7 @@ def conditional_correlation(x: ArrayLike, y: ArrayLike, where: ArrayLike, *,
         np.broadcast_to(a, shape), np.broadcast_to(b, shape), np.broadcast_to(mask, shape),
         min_count,
     )
-    return ConditionalCorrelation(_read_only(corr), _read_only(count), _read_only(reason))
+    return ConditionalCorrelation(read_only(corr), read_only(count), read_only(reason))
 
 
 def exceedance_correlation(x: ArrayLike, y: ArrayLike, xi: ArrayLike, *,
@@ -1046,12 +1042,12 @@ def exceedance_correlation(x: ArrayLike, y: ArrayLike, xi: ArrayLike, *,
         why_up = np.where(c, "x or y is constant in the window", why_up)
         why_down = np.where(c, "x or y is constant in the window", why_down)
     return ExceedanceCorrelation(
-        xi=_read_only(t[..., 0]),
+        xi=read_only(t[..., 0]),
         scale=scale,
-        upper=_read_only(upper),
-        lower=_read_only(lower),
-        count_upper=_read_only(n_up),
-        count_lower=_read_only(n_down),
-        reason_upper=_read_only(why_up),
-        reason_lower=_read_only(why_down),
+        upper=read_only(upper),
+        lower=read_only(lower),
+        count_upper=read_only(n_up),
+        count_lower=read_only(n_down),
+        reason_upper=read_only(why_up),
+        reason_lower=read_only(why_down),
     )

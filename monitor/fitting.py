@@ -20,6 +20,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import optimize
 
+from .arrays import read_only
 from .copulas import CopulaFamily, family
 from .copulas.base import UNIT_EPS
 from .empirical import kendall_tau
@@ -31,12 +32,6 @@ _FD_STEP = 1e-4
 _FD_GRADIENT_STEP = 1e-6
 #: Numbers per block when evaluating log-likelihoods over many windows.
 _BLOCK = 1 << 15
-
-
-def _readonly(a: ArrayLike, dtype=float) -> NDArray:
-    arr = np.array(a, dtype=dtype)
-    arr.flags.writeable = False
-    return arr
 
 
 @dataclass(frozen=True, slots=True)
@@ -256,18 +251,18 @@ def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
     k = fam.n_params
     if k == 0:
         ll = np.zeros(windows)
-        return BatchFit(fam.name, fam.param_names, _readonly(rotations, np.int64),
-                        _readonly(np.zeros((windows, 0))), _readonly(ll),
-                        _readonly(np.ones(windows, bool), bool),
-                        _readonly(np.zeros(windows, np.int64), np.int64), n)
+        return BatchFit(fam.name, fam.param_names, read_only(rotations),
+                        read_only(np.zeros((windows, 0))), read_only(ll),
+                        read_only(np.ones(windows, bool)),
+                        read_only(np.zeros(windows, np.int64)), n)
     if start is None:
         t = np.where(flip, -tau, tau)
         start = np.column_stack(fam.start_params(t))
     start = np.broadcast_to(np.asarray(start, dtype=float), (windows, k))
     data = fam.prepare(u, v)
     params, ll, conv, iters = _solve(fam, data, start, chain, max_iter, n)
-    return BatchFit(fam.name, fam.param_names, _readonly(rotations, np.int64), _readonly(params),
-                    _readonly(ll), _readonly(conv, bool), _readonly(iters, np.int64), n)
+    return BatchFit(fam.name, fam.param_names, read_only(rotations), read_only(params),
+                    read_only(ll), read_only(conv), read_only(iters), n)
 
 
 def _solve(fam, data, start, chain, max_iter, n):
@@ -582,4 +577,4 @@ def select_batched(u: ArrayLike, v: ArrayLike, families: tuple[str, ...] | list[
         for fam in candidate_slots(names)
     )
     scores = np.stack([getattr(f, criterion) for f in fits])
-    return BatchSelection(fits, criterion, _readonly(np.argmin(scores, axis=0), np.int64))
+    return BatchSelection(fits, criterion, read_only(np.argmin(scores, axis=0)))

@@ -25,15 +25,11 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special
 
+from ..arrays import read_only
 from .base import UNIT_EPS, CopulaFamily, rank_grid
 
 #: Starting value of the t copula's degrees of freedom: Kendall's tau does not depend on nu.
 NU_START = 8.0
-
-
-def _read_only(a: np.ndarray) -> np.ndarray:
-    a.setflags(write=False)
-    return a
 
 
 # Trapezoid rule for int_0^phimax g(phi) dphi after phi = phimax * sigma(t), sigma the logistic
@@ -43,9 +39,9 @@ def _read_only(a: np.ndarray) -> np.ndarray:
 # 0.3 on |t| <= 24 gives about 1e-10 absolute error in C (checked against adaptive quadrature
 # of the chi-square mixture of bivariate normal probabilities for nu in [0.2, 1e4] and
 # |rho| <= 0.999; a step of 0.5 would already cost 2e-7).
-_PLACKETT_T = _read_only(np.arange(-24.0, 24.0 + 1e-9, 0.3))
-_PLACKETT_S = _read_only(special.expit(_PLACKETT_T))
-_PLACKETT_W = _read_only(0.3 * _PLACKETT_S * special.expit(-_PLACKETT_T))
+_PLACKETT_T = read_only(np.arange(-24.0, 24.0 + 1e-9, 0.3))
+_PLACKETT_S = read_only(special.expit(_PLACKETT_T))
+_PLACKETT_W = read_only(0.3 * _PLACKETT_S * special.expit(-_PLACKETT_T))
 #: Largest number of array elements materialised at once by the node loops.
 _BLOCK_ELEMENTS = 1 << 18
 
@@ -388,7 +384,7 @@ class _QuantileTable:
         grid = np.arange(1, n + 1) / (n + 1.0)
         quantile = special.stdtrit(1.0 / s[:, None], grid[None, :])
         marginal = np.sum(np.log1p(quantile * quantile * s[:, None]), axis=-1)
-        return cls(float(s[0]), step, _read_only(quantile), _read_only(marginal))
+        return cls(float(s[0]), step, read_only(quantile), read_only(marginal))
 
     def quantiles(self, nu):
         """Quantiles (windows, n) at each window's nu, and sum_i log1p(x_i^2/nu) * 2."""
