@@ -59,10 +59,24 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", required=True, metavar="DIR", help="output directory")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
 
-    p = sub.add_parser("ingest", help="validate and store price or return files")
+    p = sub.add_parser(
+        "ingest", help="validate and store price or return files",
+        description="Validate price or return tables and store them. A bad file is refused "
+                    "whole and nothing stored changes; all sources of one call are stored "
+                    "together or not at all.")
     _common(p)
-    p.add_argument("files", nargs="+", metavar="FILE", help="CSV or Parquet, wide or long")
-    p.add_argument("--kind", choices=("prices", "returns"), default="prices")
+    p.add_argument("files", nargs="*", metavar="FILE",
+                   help="CSV or Parquet, wide (date + one column per asset) or long "
+                        "(date, asset, value); glob patterns allowed")
+    p.add_argument("--kind", choices=("prices", "returns"), default="prices",
+                   help="what the values are (default prices: log returns are derived)")
+    p.add_argument("--accept-revisions", action="store_true",
+                   help="replace stored values that differ, keeping the old ones in the audit "
+                        "table (default: refuse)")
+    p.add_argument("--sql", metavar="URL", help="read from a database (SQLAlchemy URL) instead")
+    grp = p.add_mutually_exclusive_group()
+    grp.add_argument("--table", help="with --sql: a table to read whole")
+    grp.add_argument("--query", help="with --sql: a SELECT statement")
 
     p = sub.add_parser("update", help="marginals, rolling metrics, signals, alert queue")
     _common(p)
@@ -100,7 +114,7 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--out", metavar="FILE", help="output file (default stdout)")
     q = esub.add_parser("returns", help="stored log returns, wide")
     _common(q)
-    q.add_argument("--assets", nargs="+", metavar="A")
+    q.add_argument("--assets", nargs="+", metavar="A", help="columns to export (default all)")
     q.add_argument("--out", metavar="FILE", help="output file (default stdout)")
 
     p = sub.add_parser("alerts", help="alert e-mail")
@@ -205,6 +219,61 @@ def render_study(study) -> str:
     return "\n".join(lines)
 
 
+def _cmd_ingest(args: argparse.Namespace, cfg: Config) -> int:
+    from .ingest import expand_paths, ingest_sources, read_file_source, read_sql_table_source
+    from .store import Store
+
+    if args.sql and args.files:
+        raise InputError("give files or --sql, not both")
+    if (args.table or args.query) and not args.sql:
+        raise InputError("--table and --query go with --sql")
+    if args.sql:
+        if not (args.table or args.query):
+            raise InputError("--sql needs --table or --query")
+        sources = [read_sql_table_source(args.sql, args.kind, query=args.query,
+                                         table=args.table)]
+    else:
+        if not args.files:
+            raise InputError("name at least one file (or --sql)")
+        paths = [p for pattern in args.files for p in expand_paths(pattern)]
+        # Every source is read and checked before the store is opened.
+        sources = [read_file_source(p, args.kind) for p in paths]
+    with Store(cfg.store.url) as store:
+        for report in ingest_sources(store, sources, accept_revisions=args.accept_revisions):
+            print("\n".join(report.lines()))
+    return 0
+
+
+def _write_csv(frame, out: str | None) -> None:
+    text = frame.to_csv(float_format="%.17g", date_format="%Y-%m-%d")
+    if out:
+        try:
+            with open(out, "w", encoding="utf-8", newline="") as fh:
+                fh.write(text)
+        except OSError as exc:
+            raise InputError(f"--out {out}: cannot write ({exc.strerror})") from None
+    else:
+        sys.stdout.write(text)
+
+
+def _cmd_export(args: argparse.Namespace, cfg: Config) -> int:
+    from .store import Store
+
+    if args.what != "returns":
+        return _not_yet("export")(args, cfg)
+    with Store(cfg.store.url, create=False) as store:
+        known = store.assets()
+        if args.assets:
+            unknown = [a for a in args.assets if a not in known]
+            if unknown:
+                raise InputError(f"--assets: no stored returns for {unknown[0]!r} "
+                                 f"(stored: {', '.join(known) or 'none'})")
+        frame = store.read_returns(args.assets or known)
+    frame.index.name = "date"
+    _write_csv(frame, args.out)
+    return 0
+
+
 def _not_yet(name: str):
     def run(args: argparse.Namespace, cfg: Config) -> int:
         # Name the whole command a user typed, e.g. 'comove export timeline'.
@@ -218,9 +287,9 @@ _COMMANDS = {
     "fit": _cmd_fit,
     "demo": _not_yet("demo"),
     "synth": _not_yet("synth"),
-    "ingest": _not_yet("ingest"),
+    "ingest": _cmd_ingest,
     "update": _not_yet("update"),
-    "export": _not_yet("export"),
+    "export": _cmd_export,
     "alerts": _not_yet("alerts"),
     "serve": _not_yet("serve"),
 }

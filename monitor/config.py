@@ -65,6 +65,22 @@ class AlertsConfig:
 
 
 @dataclass(frozen=True, slots=True)
+class SourceConfig:
+    """One configured input pulled by ``comove update``: a file path or glob (``path``), or a
+    SQL source (``url`` with ``table`` or ``query``); ``kind`` says prices or returns.
+    Credentials belong in the URL's environment, never in the file: ``url_env`` names an
+    environment variable holding the URL instead of ``url``."""
+
+    path: str = ""
+    url: str = ""
+    url_env: str = ""
+    table: str = ""
+    query: str = ""
+    kind: str = "prices"
+    accept_revisions: bool = False
+
+
+@dataclass(frozen=True, slots=True)
 class Config:
     """The whole configuration; ``source`` names the file it came from (or ``"defaults"``)."""
 
@@ -73,12 +89,13 @@ class Config:
     marginals: MarginalsConfig = field(default_factory=MarginalsConfig)
     compute: ComputeConfig = field(default_factory=ComputeConfig)
     alerts: AlertsConfig = field(default_factory=AlertsConfig)
+    sources: tuple[SourceConfig, ...] = ()
     source: str = "defaults"
 
 
 _SECTIONS: dict[str, type] = {
     "store": StoreConfig, "rolling": RollingConfig, "marginals": MarginalsConfig,
-    "compute": ComputeConfig, "alerts": AlertsConfig,
+    "compute": ComputeConfig, "alerts": AlertsConfig, "sources": SourceConfig,
 }
 
 
@@ -122,6 +139,28 @@ def _section(cls: type, table: Any, where: str, path: str):
         else:
             values[key] = _coerce(f"{path}: {where}.{key}", value, default)
     return replace(defaults, **values)
+
+
+def _sources(value: Any, path: str) -> tuple[SourceConfig, ...]:
+    if not isinstance(value, list) or not all(isinstance(t, dict) for t in value):
+        raise InputError(f"{path}: sources must be an array of tables ([[sources]])")
+    out = []
+    for i, table in enumerate(value, start=1):
+        where = f"sources[{i}]"
+        src = _section(SourceConfig, table, where, path)
+        if bool(src.path) == bool(src.url or src.url_env):
+            raise InputError(f"{path}: {where} needs exactly one of path and url (or url_env)")
+        if src.url and src.url_env:
+            raise InputError(f"{path}: {where}: give url or url_env, not both")
+        if (src.url or src.url_env) and bool(src.table) == bool(src.query):
+            raise InputError(f"{path}: {where} needs exactly one of table and query")
+        if src.path and (src.table or src.query):
+            raise InputError(f"{path}: {where}: table and query go with url")
+        if src.kind not in ("prices", "returns"):
+            raise InputError(f"{path}: {where}.kind must be \"prices\" or \"returns\", "
+                             f"got {src.kind!r}")
+        out.append(src)
+    return tuple(out)
 
 
 def _validate(cfg: Config, path: str) -> None:
@@ -196,6 +235,9 @@ def load_config(path: str | os.PathLike | None = None, store_url: str | None = N
             raise InputError(f"{p}: not valid TOML ({exc})") from None
         values = {}
         for key, table in raw.items():
+            if key == "sources":
+                values[key] = _sources(table, str(p))
+                continue
             if key not in _SECTIONS:
                 what = f"section [{key}]" if isinstance(table, dict) else f"top-level key {key}"
                 raise InputError(f"{p}: unknown {what}; known sections: {', '.join(_SECTIONS)}")

@@ -184,6 +184,14 @@ def read_series(path: str | Path) -> pd.DataFrame:
     """
     path = Path(path)
     frame, lines = _read_raw(path)
+    return tidy_frame(frame, path, lines)
+
+
+def tidy_frame(frame: pd.DataFrame, path: str | Path, lines: np.ndarray | None = None
+               ) -> pd.DataFrame:
+    """Check a raw table of cells (wide or long, as read from a file or a SQL query) and
+    return the wide frame :func:`read_series` describes; ``path`` names the source in
+    messages and ``lines`` gives each row's file line (None: rows are numbered from 1)."""
     if frame.shape[1] == 0:
         raise InputError(f"{path}: file is empty")
     if frame.shape[0] == 0:
@@ -279,3 +287,44 @@ def log_returns(prices: pd.DataFrame, source: str = "prices") -> pd.DataFrame:
     result = pd.DataFrame(out).reindex(columns=prices.columns)
     result.index.name = "date"
     return result
+
+
+def read_sql_source(url: str, *, query: str | None = None, table: str | None = None
+                    ) -> pd.DataFrame:
+    """Read series from a SQL source: a whole table or a query, wide or long.
+
+    Parameters
+    ----------
+    url : str
+        SQLAlchemy URL of the source database.
+    query : str, optional
+        A SELECT statement returning ``date`` plus asset columns, or ``date, asset, value``.
+    table : str, optional
+        A table name (quoted as an identifier, never pasted into SQL); exactly one of
+        ``query`` and ``table``.
+
+    Returns
+    -------
+    DataFrame
+        As :func:`read_series`.
+    """
+    import sqlalchemy as sa
+
+    if (query is None) == (table is None):
+        raise InputError("a SQL source needs exactly one of a query and a table")
+    try:
+        shown = sa.engine.make_url(url).render_as_string(hide_password=True)
+    except sa.exc.ArgumentError:
+        raise InputError(f"SQL source: {url!r} is not a database URL") from None
+    name = f"{shown} ({'table ' + table if table else 'query'})"
+    stmt = sa.select(sa.text("*")).select_from(sa.table(table)) if table else sa.text(query)
+    engine = sa.create_engine(url)
+    try:
+        with engine.connect() as conn:
+            frame = pd.read_sql(stmt, conn)
+    except sa.exc.SQLAlchemyError as exc:
+        first = str(exc.orig if getattr(exc, "orig", None) else exc).splitlines()[0]
+        raise InputError(f"{name}: {first}") from None
+    finally:
+        engine.dispose()
+    return tidy_frame(frame, name)

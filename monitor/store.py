@@ -1,0 +1,352 @@
+"""The store: SQLAlchemy Core over an embedded SQLite file or a PostgreSQL server.
+
+Every step's writes are one transaction; results are keyed by the settings that produced them,
+so changing a setting never mixes results, and re-running a step is idempotent. The schema is
+versioned in ``schema_info``; opening a store written by a newer comove is refused.
+
+Tables (schema version 1):
+
+- ``ingests``: every stored ingest (source, checksum, kind, rows, assets, dates, time, outcome).
+- ``prices``, ``returns``: per asset and date; ``returns.origin`` says whether a return was
+  given or derived from stored prices.
+- ``revisions``: the audit trail of values replaced by an ingest run with revisions accepted.
+- ``marginal_fits``, ``residuals``: per marginal settings key and asset (see
+  :mod:`monitor.marginals`).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+from collections.abc import Iterable, Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Self
+
+import numpy as np
+import pandas as pd
+import sqlalchemy as sa
+
+from .errors import InputError
+
+SCHEMA_VERSION = 1
+
+metadata = sa.MetaData()
+_DOUBLE = sa.Float(precision=53)
+
+schema_info = sa.Table(
+    "schema_info", metadata,
+    sa.Column("key", sa.String(64), primary_key=True),
+    sa.Column("value", sa.Text, nullable=False),
+)
+
+ingests = sa.Table(
+    "ingests", metadata,
+    sa.Column("id", sa.Integer, primary_key=True, autoincrement=True),
+    sa.Column("source", sa.Text, nullable=False),
+    sa.Column("checksum", sa.String(64), nullable=False),
+    sa.Column("kind", sa.String(16), nullable=False),
+    sa.Column("rows", sa.Integer, nullable=False),
+    sa.Column("assets", sa.Text, nullable=False),
+    sa.Column("first_date", sa.Date),
+    sa.Column("last_date", sa.Date),
+    sa.Column("new_values", sa.Integer, nullable=False),
+    sa.Column("revised_values", sa.Integer, nullable=False),
+    sa.Column("started_at", sa.DateTime, nullable=False),
+    sa.Column("finished_at", sa.DateTime, nullable=False),
+    sa.Column("outcome", sa.String(16), nullable=False),
+    sa.Column("summary", sa.Text, nullable=False),
+)
+
+prices = sa.Table(
+    "prices", metadata,
+    sa.Column("asset", sa.String(128), primary_key=True),
+    sa.Column("date", sa.Date, primary_key=True),
+    sa.Column("value", _DOUBLE, nullable=False),
+    sa.Column("ingest_id", sa.Integer, nullable=False),
+)
+
+returns = sa.Table(
+    "returns", metadata,
+    sa.Column("asset", sa.String(128), primary_key=True),
+    sa.Column("date", sa.Date, primary_key=True),
+    sa.Column("value", _DOUBLE, nullable=False),
+    sa.Column("origin", sa.String(16), nullable=False),
+    sa.Column("ingest_id", sa.Integer, nullable=False),
+)
+
+revisions = sa.Table(
+    "revisions", metadata,
+    sa.Column("id", sa.Integer, primary_key=True, autoincrement=True),
+    sa.Column("ingest_id", sa.Integer, nullable=False),
+    sa.Column("table_name", sa.String(16), nullable=False),
+    sa.Column("asset", sa.String(128), nullable=False),
+    sa.Column("date", sa.Date, nullable=False),
+    sa.Column("old_value", _DOUBLE, nullable=False),
+    sa.Column("new_value", _DOUBLE, nullable=False),
+    sa.Column("revised_at", sa.DateTime, nullable=False),
+)
+
+marginal_fits = sa.Table(
+    "marginal_fits", metadata,
+    sa.Column("settings", sa.String(128), primary_key=True),
+    sa.Column("asset", sa.String(128), primary_key=True),
+    sa.Column("seq", sa.Integer, primary_key=True),
+    sa.Column("fit_end", sa.Date, nullable=False),
+    sa.Column("spec", sa.String(64), nullable=False),
+    sa.Column("converged", sa.Boolean, nullable=False),
+    sa.Column("fallback", sa.Text, nullable=False),
+    sa.Column("payload", sa.Text, nullable=False),
+)
+
+residuals = sa.Table(
+    "residuals", metadata,
+    sa.Column("settings", sa.String(128), primary_key=True),
+    sa.Column("asset", sa.String(128), primary_key=True),
+    sa.Column("date", sa.Date, primary_key=True),
+    sa.Column("value", _DOUBLE, nullable=False),
+    sa.Column("sigma", _DOUBLE, nullable=False),
+    sa.Column("fit_seq", sa.Integer, nullable=False),
+)
+
+
+def _now() -> dt.datetime:
+    return dt.datetime.now(dt.UTC).replace(tzinfo=None, microsecond=0)
+
+
+def _dates(index: Iterable) -> list[dt.date]:
+    return [pd.Timestamp(d).date() for d in index]
+
+
+@dataclass(frozen=True, slots=True)
+class IngestRecord:
+    """One row of the ingest history."""
+
+    id: int
+    source: str
+    checksum: str
+    kind: str
+    rows: int
+    assets: tuple[str, ...]
+    first_date: dt.date | None
+    last_date: dt.date | None
+    new_values: int
+    revised_values: int
+    started_at: dt.datetime
+    outcome: str
+    summary: str
+
+
+class Store:
+    """A comove store at a SQLAlchemy URL.
+
+    Parameters
+    ----------
+    url : str
+        ``sqlite:///path`` (relative paths are under the working directory; the folder is
+        created) or ``postgresql+psycopg://user@host:port/db``.
+    create : bool
+        Create the schema if the store is new. With False a missing SQLite file is an error
+        and nothing is written (used by read-only commands and by refusals).
+    """
+
+    def __init__(self, url: str, *, create: bool = True) -> None:
+        try:
+            parsed = sa.engine.make_url(url)
+        except sa.exc.ArgumentError:
+            raise InputError(f"--store / store.url: {url!r} is not a database URL") from None
+        self.url = url
+        self.shown_url = parsed.render_as_string(hide_password=True)
+        if parsed.get_backend_name() == "sqlite" and parsed.database not in (None, "", ":memory:"):
+            path = Path(parsed.database)
+            if not path.exists():
+                if not create:
+                    raise InputError(f"store {self.shown_url}: no store there yet "
+                                     "(run 'comove ingest' first)")
+                path.parent.mkdir(parents=True, exist_ok=True)
+        try:
+            self.engine = sa.create_engine(url)
+            with self.engine.begin() as conn:
+                self._check_schema(conn, create)
+        except sa.exc.OperationalError as exc:
+            raise InputError(f"store {self.shown_url}: cannot open "
+                             f"({str(exc.orig).splitlines()[0]})") from None
+        except ModuleNotFoundError as exc:
+            raise InputError(f"store {self.shown_url}: database driver missing ({exc.name})"
+                             ) from None
+
+    def _check_schema(self, conn: sa.Connection, create: bool) -> None:
+        inspector = sa.inspect(conn)
+        if not inspector.has_table("schema_info"):
+            if not create:
+                raise InputError(f"store {self.shown_url}: not a comove store (no schema)")
+            metadata.create_all(conn)
+            conn.execute(schema_info.insert().values(key="version", value=str(SCHEMA_VERSION)))
+            return
+        row = conn.execute(sa.select(schema_info.c.value).where(
+            schema_info.c.key == "version")).scalar_one_or_none()
+        version = int(row) if row is not None else 0
+        if version > SCHEMA_VERSION:
+            raise InputError(f"store {self.shown_url}: schema version {version} is newer than "
+                             f"this comove understands ({SCHEMA_VERSION}); upgrade comove")
+        missing = [t for t in metadata.sorted_tables if not inspector.has_table(t.name)]
+        if missing and create:
+            metadata.create_all(conn, tables=missing)
+
+    def close(self) -> None:
+        self.engine.dispose()
+
+    def __enter__(self) -> Self:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    @contextmanager
+    def transaction(self) -> Iterator[sa.Connection]:
+        """One transaction: everything inside commits together or not at all."""
+        with self.engine.begin() as conn:
+            yield conn
+
+    # ------------------------------------------------------------------ reads
+    def assets(self) -> list[str]:
+        """Every asset with stored returns, sorted."""
+        with self.engine.connect() as conn:
+            return sorted(conn.execute(sa.select(returns.c.asset).distinct()).scalars())
+
+    def read_returns(self, assets: Iterable[str] | None = None,
+                     conn: sa.Connection | None = None) -> pd.DataFrame:
+        """Stored log returns as a wide frame (date index, one column per asset, NaN where an
+        asset has no value)."""
+        return self._read_wide(returns, assets, conn)
+
+    def read_prices(self, assets: Iterable[str] | None = None,
+                    conn: sa.Connection | None = None) -> pd.DataFrame:
+        return self._read_wide(prices, assets, conn)
+
+    def _read_wide(self, table: sa.Table, assets, conn) -> pd.DataFrame:
+        stmt = sa.select(table.c.asset, table.c.date, table.c.value)
+        if assets is not None:
+            assets = list(assets)
+            stmt = stmt.where(table.c.asset.in_(assets))
+        with self._conn(conn) as c:
+            rows = c.execute(stmt.order_by(table.c.date)).all()
+        if not rows:
+            frame = pd.DataFrame(columns=assets or [], dtype=float)
+            frame.index = pd.DatetimeIndex([], name="date")
+            return frame
+        tidy = pd.DataFrame(rows, columns=["asset", "date", "value"])
+        tidy["date"] = pd.to_datetime(tidy["date"])
+        wide = tidy.pivot(index="date", columns="asset", values="value").astype(float)
+        wide.columns = [str(c) for c in wide.columns]
+        wide.columns.name = None
+        if assets is not None:
+            wide = wide.reindex(columns=[a for a in assets if a in wide.columns])
+        return wide
+
+    @contextmanager
+    def _conn(self, conn: sa.Connection | None) -> Iterator[sa.Connection]:
+        if conn is not None:
+            yield conn
+        else:
+            with self.engine.connect() as c:
+                yield c
+
+    def ingest_history(self, limit: int | None = None) -> list[IngestRecord]:
+        """Stored ingests, newest first."""
+        stmt = sa.select(ingests).order_by(ingests.c.id.desc())
+        if limit:
+            stmt = stmt.limit(limit)
+        with self.engine.connect() as conn:
+            out = []
+            for r in conn.execute(stmt).mappings():
+                out.append(IngestRecord(
+                    id=r["id"], source=r["source"], checksum=r["checksum"], kind=r["kind"],
+                    rows=r["rows"], assets=tuple(json.loads(r["assets"])),
+                    first_date=r["first_date"], last_date=r["last_date"],
+                    new_values=r["new_values"], revised_values=r["revised_values"],
+                    started_at=r["started_at"], outcome=r["outcome"], summary=r["summary"]))
+            return out
+
+    def revision_history(self) -> pd.DataFrame:
+        with self.engine.connect() as conn:
+            rows = conn.execute(sa.select(revisions).order_by(revisions.c.id)).mappings().all()
+        return pd.DataFrame([dict(r) for r in rows])
+
+    # ------------------------------------------------------------------ writes (in a transaction)
+    @staticmethod
+    def insert_ingest(conn: sa.Connection, **values) -> int:
+        values.setdefault("finished_at", _now())
+        return int(conn.execute(ingests.insert().values(**values)).inserted_primary_key[0])
+
+    @staticmethod
+    def stored_values(conn: sa.Connection, table: sa.Table, assets: Iterable[str]
+                      ) -> pd.DataFrame:
+        """Stored (asset, date, value) rows of ``table`` for ``assets``."""
+        rows = conn.execute(sa.select(table.c.asset, table.c.date, table.c.value).where(
+            table.c.asset.in_(list(assets)))).all()
+        tidy = pd.DataFrame(rows, columns=["asset", "date", "value"])
+        tidy["date"] = pd.to_datetime(tidy["date"])
+        return tidy
+
+    @staticmethod
+    def upsert_values(conn: sa.Connection, table: sa.Table, rows: pd.DataFrame,
+                      extra: dict) -> None:
+        """Replace-or-insert (asset, date, value) rows, with ``extra`` columns added."""
+        if rows.empty:
+            return
+        keys = [{"a": a, "d": d} for a, d in zip(rows["asset"], _dates(rows["date"]),
+                                                strict=True)]
+        conn.execute(table.delete().where(sa.and_(table.c.asset == sa.bindparam("a"),
+                                                  table.c.date == sa.bindparam("d"))), keys)
+        payload = [{"asset": a, "date": d, "value": float(v), **extra}
+                   for a, d, v in zip(rows["asset"], _dates(rows["date"]), rows["value"],
+                                      strict=True)]
+        conn.execute(table.insert(), payload)
+
+    @staticmethod
+    def record_revisions(conn: sa.Connection, ingest_id: int, table_name: str,
+                         changed: pd.DataFrame) -> None:
+        if changed.empty:
+            return
+        now = _now()
+        conn.execute(revisions.insert(), [
+            {"ingest_id": ingest_id, "table_name": table_name, "asset": a, "date": d,
+             "old_value": float(o), "new_value": float(n), "revised_at": now}
+            for a, d, o, n in zip(changed["asset"], _dates(changed["date"]), changed["old"],
+                                  changed["new"], strict=True)])
+
+    @staticmethod
+    def invalidate_from(conn: sa.Connection, asset: str, first: dt.date) -> None:
+        """Drop derived results of ``asset`` that depend on returns dated ``first`` or later
+        (a revision): residuals on or after it and marginal fits whose sample reaches it."""
+        conn.execute(residuals.delete().where(sa.and_(residuals.c.asset == asset,
+                                                      residuals.c.date >= first)))
+        conn.execute(marginal_fits.delete().where(sa.and_(marginal_fits.c.asset == asset,
+                                                          marginal_fits.c.fit_end >= first)))
+
+
+def checksum_bytes(data: bytes) -> str:
+    import hashlib
+
+    return hashlib.sha256(data).hexdigest()
+
+
+def frame_checksum(frame: pd.DataFrame) -> str:
+    """A checksum of a wide frame's content (for SQL sources, which have no file bytes)."""
+    body = frame.to_csv(float_format="%.17g", date_format="%Y-%m-%d").encode()
+    return checksum_bytes(body)
+
+
+def as_tidy(wide: pd.DataFrame) -> pd.DataFrame:
+    """(asset, date, value) rows of a wide frame, NaN cells left out."""
+    stacked = wide.stack(future_stack=True).dropna()
+    tidy = stacked.reset_index()
+    tidy.columns = ["date", "asset", "value"]
+    return tidy[["asset", "date", "value"]].astype({"value": float})
+
+
+def values_differ(old: np.ndarray, new: np.ndarray) -> np.ndarray:
+    """Whether stored and incoming values differ beyond round-off of a CSV round trip."""
+    return ~np.isclose(old, new, rtol=1e-12, atol=0.0)
