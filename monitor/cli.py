@@ -55,7 +55,8 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("synth", help="write a synthetic scenario (prices.csv, truth.json)")
     _common(p)
-    p.add_argument("scenario", help="scenario name")
+    p.add_argument("scenario", help="scenario name: marrowmere-decade (the demo market), "
+                   "tail-shift, steady-pair, wide-grid")
     p.add_argument("--out", required=True, metavar="DIR", help="output directory")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
 
@@ -274,6 +275,15 @@ def _cmd_export(args: argparse.Namespace, cfg: Config) -> int:
     return 0
 
 
+def _cmd_synth(args: argparse.Namespace, cfg: Config) -> int:
+    from synthetic_feeds import SCENARIOS, write_scenario
+
+    prices_path, truth_path = write_scenario(args.scenario, args.out, seed=args.seed)
+    print(f"{args.scenario} (seed {args.seed}): {SCENARIOS[args.scenario]}")
+    print(f"  wrote {prices_path} and {truth_path} (invented data, for demos and tests)")
+    return 0
+
+
 def _not_yet(name: str):
     def run(args: argparse.Namespace, cfg: Config) -> int:
         # Name the whole command a user typed, e.g. 'comove export timeline'.
@@ -286,7 +296,7 @@ def _not_yet(name: str):
 _COMMANDS = {
     "fit": _cmd_fit,
     "demo": _not_yet("demo"),
-    "synth": _not_yet("synth"),
+    "synth": _cmd_synth,
     "ingest": _cmd_ingest,
     "update": _not_yet("update"),
     "export": _cmd_export,
