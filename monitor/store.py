@@ -167,8 +167,14 @@ class Store:
                 path.parent.mkdir(parents=True, exist_ok=True)
         try:
             self.engine = sa.create_engine(url)
-            with self.engine.begin() as conn:
-                self._check_schema(conn, create)
+            try:
+                with self.engine.begin() as conn:
+                    self._check_schema(conn, create)
+            except BaseException:
+                # A refused store keeps no pooled connection open (a server counts them, and
+                # a database with open connections cannot be dropped).
+                self.engine.dispose()
+                raise
         except sa.exc.OperationalError as exc:
             raise InputError(f"store {self.shown_url}: cannot open "
                              f"({str(exc.orig).splitlines()[0]})") from None

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import csv
 import io
+import re
 from pathlib import Path
 
 import numpy as np
@@ -289,6 +290,25 @@ def log_returns(prices: pd.DataFrame, source: str = "prices") -> pd.DataFrame:
     return result
 
 
+def _read_only(conn) -> None:
+    """Make the source connection refuse writes where the backend can: reading a source must
+    never change it, whatever the query says (the connection is never committed either, but
+    SQLite's Python driver runs DDL such as DROP TABLE outside any transaction)."""
+    if conn.dialect.name == "sqlite":
+        conn.exec_driver_sql("PRAGMA query_only = ON")
+    elif conn.dialect.name == "postgresql":
+        conn.exec_driver_sql("SET TRANSACTION READ ONLY")
+
+
+def _database_message(exc: BaseException) -> str:
+    """The first line of the database's own message (pandas wraps the driver's error)."""
+    while isinstance(exc, pd.errors.DatabaseError) and exc.__cause__ is not None:
+        exc = exc.__cause__
+    orig = getattr(exc, "orig", None)
+    text = str(orig if orig is not None else exc).strip()
+    return text.splitlines()[0] if text else type(exc).__name__
+
+
 def read_sql_source(url: str, *, query: str | None = None, table: str | None = None
                     ) -> pd.DataFrame:
     """Read series from a SQL source: a whole table or a query, wide or long.
@@ -316,15 +336,24 @@ def read_sql_source(url: str, *, query: str | None = None, table: str | None = N
         shown = sa.engine.make_url(url).render_as_string(hide_password=True)
     except sa.exc.ArgumentError:
         raise InputError(f"SQL source: {url!r} is not a database URL") from None
-    name = f"{shown} ({'table ' + table if table else 'query'})"
-    stmt = sa.select(sa.text("*")).select_from(sa.table(table)) if table else sa.text(query)
-    engine = sa.create_engine(url)
+    name = f"{shown} ({'table ' + repr(table) if table else 'query ' + _show(query, 80)})"
+    if table:
+        stmt = sa.select(sa.text("*")).select_from(sa.table(table))
+    else:
+        # The query runs as written: text() would read ':word' (say inside a string literal)
+        # as a bind parameter, so every such colon is escaped with its own pattern.
+        stmt = sa.text(re.sub(r"(?<![:\w\\]):(\w+)(?!:)", r"\\:\1", query))
+    engine = None
     try:
+        engine = sa.create_engine(url)
         with engine.connect() as conn:
+            _read_only(conn)
             frame = pd.read_sql(stmt, conn)
-    except sa.exc.SQLAlchemyError as exc:
-        first = str(exc.orig if getattr(exc, "orig", None) else exc).splitlines()[0]
-        raise InputError(f"{name}: {first}") from None
+    except (sa.exc.SQLAlchemyError, pd.errors.DatabaseError) as exc:
+        raise InputError(f"{name}: {_database_message(exc)}") from None
+    except ModuleNotFoundError as exc:
+        raise InputError(f"{name}: database driver missing ({exc.name})") from None
     finally:
-        engine.dispose()
+        if engine is not None:
+            engine.dispose()
     return tidy_frame(frame, name)

@@ -1,0 +1,258 @@
+"""Tests for monitor.store on both backends: SQLite files and a real PostgreSQL server.
+
+The contract is DESIGN.md ("Store: SQLAlchemy Core ... every write of a step is one
+transaction") and the module's own schema note: a new store is written at schema version 1, a
+store written by a newer comove is refused untouched, and ``create=False`` never creates one.
+Every test that takes ``store_url`` runs once per backend (tests/conftest.py). Stored floats are
+compared bit for bit: SQLite REAL and PostgreSQL DOUBLE PRECISION are both IEEE 754 binary64
+(SQLite documentation "Datatypes In SQLite" section 2; PostgreSQL 15 manual section 8.1.3).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import numpy as np
+import pandas as pd
+import pytest
+import sqlalchemy as sa
+from sqlalchemy.pool import NullPool
+
+from monitor.errors import InputError
+from monitor.store import (
+    SCHEMA_VERSION,
+    Store,
+    as_tidy,
+    marginal_fits,
+    metadata,
+    residuals,
+    returns,
+    values_differ,
+)
+
+D = [dt.date(2021, 3, day) for day in (1, 2, 3, 4, 5, 8, 9)]
+
+
+def execute(url: str, sql: str, **params) -> list[tuple]:
+    """Run one statement on its own connection, committed; rows if it returns any."""
+    engine = sa.create_engine(url, poolclass=NullPool)
+    try:
+        with engine.begin() as conn:
+            result = conn.execute(sa.text(sql), params)
+            return [tuple(r) for r in result] if result.returns_rows else []
+    finally:
+        engine.dispose()
+
+
+def table_names(url: str) -> set[str]:
+    engine = sa.create_engine(url, poolclass=NullPool)
+    try:
+        return set(sa.inspect(engine).get_table_names())
+    finally:
+        engine.dispose()
+
+
+def tidy(rows: list[tuple[str, dt.date, float]]) -> pd.DataFrame:
+    return pd.DataFrame(rows, columns=["asset", "date", "value"]).assign(
+        date=lambda f: pd.to_datetime(f["date"]))
+
+
+# ----------------------------------------------------------------------------- schema
+def test_new_store_has_schema_version_1_and_every_table(store_url):
+    with Store(store_url):
+        pass
+    assert SCHEMA_VERSION == 1
+    assert execute(store_url, "SELECT key, value FROM schema_info") == [("version", "1")]
+    assert {t.name for t in metadata.sorted_tables} <= table_names(store_url)
+
+
+def test_reopening_a_store_changes_nothing(store_url, store_snapshot):
+    with Store(store_url):
+        pass
+    before = store_snapshot(store_url)
+    with Store(store_url) as store:
+        assert store.assets() == []
+    with Store(store_url, create=False):
+        pass
+    assert store_snapshot(store_url) == before
+
+
+@pytest.mark.parametrize("create", [True, False])
+def test_store_from_a_newer_comove_is_refused_untouched(store_url, store_snapshot, create):
+    with Store(store_url):
+        pass
+    execute(store_url, "UPDATE schema_info SET value = '2' WHERE key = 'version'")
+    # A newer schema may have dropped a table; refusing must not recreate it either.
+    execute(store_url, "DROP TABLE residuals")
+    before = store_snapshot(store_url)
+    with pytest.raises(InputError, match=r"schema version 2 is newer than this comove "
+                                         r"understands \(1\); upgrade comove"):
+        Store(store_url, create=create)
+    assert store_snapshot(store_url) == before
+    assert "residuals" not in table_names(store_url)
+
+
+def test_older_store_gets_its_missing_tables(store_url):
+    with Store(store_url):
+        pass
+    execute(store_url, "DROP TABLE residuals")
+    with Store(store_url):
+        pass
+    assert "residuals" in table_names(store_url)
+
+
+def test_create_false_on_a_missing_sqlite_file_creates_nothing(tmp_path):
+    path = tmp_path / "sub" / "store.sqlite"
+    with pytest.raises(InputError, match=r"store sqlite:///.*store\.sqlite: no store there yet"):
+        Store(f"sqlite:///{path}", create=False)
+    assert not path.exists()
+    assert not path.parent.exists()
+
+
+def test_create_true_makes_the_folder_of_a_sqlite_file(tmp_path):
+    path = tmp_path / "comove-data" / "store.sqlite"
+    with Store(f"sqlite:///{path}"):
+        pass
+    assert path.is_file()
+
+
+def test_create_false_on_an_empty_database_is_refused_untouched(store_url, store_snapshot):
+    if store_url.startswith("sqlite"):
+        path = store_url.removeprefix("sqlite:///")
+        open(path, "wb").close()  # an existing, empty SQLite file is no store either
+    before = store_snapshot(store_url)
+    with pytest.raises(InputError, match=r"not a comove store \(no schema\)"):
+        Store(store_url, create=False)
+    assert store_snapshot(store_url) == before
+    assert table_names(store_url) == set()
+
+
+def test_not_a_url_is_refused():
+    with pytest.raises(InputError, match=r"^--store / store.url: 'no-such-scheme' is not a "
+                                         r"database URL$"):
+        Store("no-such-scheme")
+
+
+def test_unreachable_server_is_refused_in_one_line(unused_tcp_port):
+    url = f"postgresql+psycopg://test@127.0.0.1:{unused_tcp_port}/postgres"
+    with pytest.raises(InputError, match=r"^store postgresql\+psycopg://test@127\.0\.0\.1:\d+"
+                                         r"/postgres: cannot open \(") as info:
+        Store(url)
+    assert "\n" not in str(info.value)
+
+
+@pytest.fixture
+def unused_tcp_port() -> int:
+    import socket
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+# ----------------------------------------------------------------------------- reads and writes
+# Values chosen to expose any lossy path: many significant digits, subnormal-adjacent
+# magnitudes, negative zero's neighbour, large returns.
+EXACT = [1e-300, -0.012345678901234567, 0.1 + 0.2, 2.5e-17, -3.0, 123456.78901234567]
+
+
+def test_values_round_trip_bit_for_bit_and_read_wide(store_url):
+    rows = [("BIRCH", D[0], EXACT[0]), ("BIRCH", D[1], EXACT[1]), ("BIRCH", D[3], EXACT[2]),
+            ("ALDER", D[1], EXACT[3]), ("ALDER", D[2], EXACT[4]), ("ALDER", D[3], EXACT[5])]
+    with Store(store_url) as store:
+        with store.transaction() as conn:
+            store.upsert_values(conn, returns, tidy(rows), {"origin": "returns", "ingest_id": 1})
+        assert store.assets() == ["ALDER", "BIRCH"]
+        wide = store.read_returns()
+        subset = store.read_returns(["BIRCH", "NOPE", "ALDER"])
+        empty = store.read_returns(["NOPE"])
+    assert list(wide.columns) == ["ALDER", "BIRCH"]
+    assert wide.index.name == "date"
+    assert [d.date() for d in wide.index] == D[:4]
+    expected = np.array([[np.nan, EXACT[0]], [EXACT[3], EXACT[1]], [EXACT[4], np.nan],
+                         [EXACT[5], EXACT[2]]])
+    # Bit-for-bit: assert_array_equal treats NaN == NaN and compares floats exactly.
+    np.testing.assert_array_equal(wide.to_numpy(), expected)
+    assert list(subset.columns) == ["BIRCH", "ALDER"]  # requested order, unknown left out
+    np.testing.assert_array_equal(subset.to_numpy(), expected[:, ::-1])
+    assert empty.empty and empty.index.name == "date"
+
+
+def test_upsert_replaces_existing_keys(store_url):
+    with Store(store_url) as store:
+        with store.transaction() as conn:
+            store.upsert_values(conn, returns, tidy([("ALDER", D[0], 1.0), ("ALDER", D[1], 2.0)]),
+                                {"origin": "returns", "ingest_id": 1})
+        with store.transaction() as conn:
+            store.upsert_values(conn, returns, tidy([("ALDER", D[1], 5.0), ("ALDER", D[2], 6.0)]),
+                                {"origin": "returns", "ingest_id": 2})
+        wide = store.read_returns()
+    np.testing.assert_array_equal(wide["ALDER"].to_numpy(), [1.0, 5.0, 6.0])
+    assert sorted(execute(store_url, "SELECT date, ingest_id FROM returns")) in (
+        [(D[0], 1), (D[1], 2), (D[2], 2)],
+        [(str(D[0]), 1), (str(D[1]), 2), (str(D[2]), 2)])  # SQLite stores dates as text
+
+
+def test_a_failed_transaction_leaves_nothing(store_url, store_snapshot):
+    with Store(store_url) as store:
+        before = store_snapshot(store_url)
+        with pytest.raises(RuntimeError, match="boom"), store.transaction() as conn:
+            store.upsert_values(conn, returns, tidy([("ALDER", D[0], 1.0)]),
+                                {"origin": "returns", "ingest_id": 1})
+            raise RuntimeError("boom")
+        assert store.assets() == []
+    assert store_snapshot(store_url) == before
+
+
+def test_empty_history(store_url):
+    with Store(store_url) as store:
+        assert store.ingest_history() == []
+        assert store.revision_history().empty
+
+
+def test_invalidate_from_drops_only_dependent_results(store_url):
+    with Store(store_url) as store:
+        with store.transaction() as conn:
+            for asset in ("ALDER", "BIRCH"):
+                conn.execute(residuals.insert(), [
+                    {"settings": "s", "asset": asset, "date": d, "value": 0.5, "sigma": 1.0,
+                     "fit_seq": 0} for d in D[:5]])
+                conn.execute(marginal_fits.insert(), [
+                    {"settings": "s", "asset": asset, "seq": k, "fit_end": D[k], "spec": "x",
+                     "converged": True, "fallback": "", "payload": "{}"} for k in range(5)])
+        with store.transaction() as conn:
+            store.invalidate_from(conn, "ALDER", D[2])
+        with store.transaction() as conn:
+            res = conn.execute(sa.select(residuals.c.asset, residuals.c.date)).all()
+            fits = conn.execute(sa.select(marginal_fits.c.asset, marginal_fits.c.fit_end)).all()
+    # A residual on or after the revised date depends on it; one before it does not.
+    assert sorted(res) == sorted([("ALDER", d) for d in D[:2]] + [("BIRCH", d) for d in D[:5]])
+    assert sorted(fits) == sorted(res)
+
+
+# ----------------------------------------------------------------------------- helpers
+def test_as_tidy_leaves_out_missing_cells():
+    wide = pd.DataFrame({"ALDER": [1.0, np.nan], "BIRCH": [np.nan, 2.0]},
+                        index=pd.DatetimeIndex(["2021-03-01", "2021-03-02"], name="date"))
+    out = as_tidy(wide)
+    assert list(out.columns) == ["asset", "date", "value"]
+    assert sorted(zip(out["asset"], out["date"].dt.date, out["value"], strict=True)) == [
+        ("ALDER", D[0], 1.0), ("BIRCH", D[1], 2.0)]
+
+
+def test_values_differ_ignores_only_round_off():
+    old = np.array([0.1, 100.0, 1e-300, 5.0])
+    new = np.array([0.1 * (1 + 1e-15), 100.0 * (1 + 1e-9), 1e-300, -5.0])
+    np.testing.assert_array_equal(values_differ(old, new), [False, True, False, True])
+
+
+@pytest.mark.postgres
+def test_a_refused_store_keeps_no_connection_open(pg_database, postgres_url):
+    url = pg_database()
+    with pytest.raises(InputError, match="not a comove store") as info:
+        Store(url, create=False)
+    assert info.value is not None  # the traceback, and the half-built store, are still alive
+    name = sa.engine.make_url(url).database
+    rows = execute(postgres_url, "SELECT count(*) FROM pg_stat_activity WHERE datname = :n",
+                   n=name)
+    assert rows == [(0,)]
