@@ -32,10 +32,12 @@ Two modes, named in every result (``FilteredSeries.mode``):
 
 Numerics: returns are scaled to percent (``SCALE = 100``) before fitting, so parameters such as
 ``mu`` and ``omega`` are in percent units; residuals are scale-free and ``sigma`` is reported
-in the units of the input returns. Fallback: when no candidate converges to a plausible
-estimate (arch's convergence flag, finite results, persistence below 1), the refit uses an
-EWMA variance with decay 0.94 (RiskMetrics) and a constant mean equal to the sample mean; the
-fit records ``fallback="ewma-0.94"``, ``converged=False`` and every problem met.
+in the units of the input returns. A candidate is accepted when arch reports convergence
+(flag 0), its estimates and residuals are finite, its persistence is below ``1 - 1e-5`` (not
+on arch's stationarity boundary) and its implied unconditional variance is within a factor 10
+of the sample variance. Fallback: when no candidate is accepted, the refit uses an EWMA
+variance with decay 0.94 (RiskMetrics) and a constant mean equal to the sample mean; the fit
+records ``fallback="ewma-0.94"``, ``converged=False`` and every problem met.
 
 The variance filter for fixed parameters is our own vectorised recursion
 (:func:`scipy.signal.lfilter`), with the presample variance ``sigma^2_0`` set as arch does: an
@@ -631,6 +633,7 @@ class _Estimate:
     problem: str
     warm_start: bool
     std_errors: dict[str, float]
+    result: Any = None  # arch's result object (None for the fallback and for failures)
 
     @property
     def accepted(self) -> bool:
@@ -651,8 +654,8 @@ def _arch_model(spec: MarginalSpec, y: NDArray[np.float64]) -> Any:
                       hold_back=1, rescale=False, **extra)
 
 
-def _estimate(spec: MarginalSpec, y: NDArray[np.float64], start: Mapping[str, float] | None,
-              *, std_errors: bool = False) -> _Estimate:
+def _estimate(spec: MarginalSpec, y: NDArray[np.float64], start: Mapping[str, float] | None
+              ) -> _Estimate:
     """Fit ``spec`` on ``y`` (percent returns, position 0 held back) with arch; never raises."""
     from arch.utility.exceptions import StartingValueWarning
 
@@ -682,20 +685,26 @@ def _estimate(spec: MarginalSpec, y: NDArray[np.float64], start: Mapping[str, fl
               and np.isfinite(std_resid).all()):
         problem = f"{spec.key}: non-finite estimates or residuals"
     elif _persistence(params) >= _PERSISTENCE_LIMIT:
-        problem = (f"{spec.key}: persistence {_persistence(params):.6f} at the stationarity "
+        problem = (f"{spec.key}: persistence {_persistence(params):.6f} "
+                   f"(1 - persistence = {1.0 - _persistence(params):.1e}) at the stationarity "
                    "boundary (integrated or explosive variance)")
     else:
         ratio = params["omega"] / (1.0 - _persistence(params)) / float(np.var(y[1:]))
         if not 1.0 / _VARIANCE_RATIO_LIMIT <= ratio <= _VARIANCE_RATIO_LIMIT:
             problem = (f"{spec.key}: implied unconditional variance {ratio:.3g} times the "
                        "sample variance (a variance path that ignores the data)")
-    errors: dict[str, float] = {}
-    if std_errors and not problem:
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            se = np.asarray(res.std_err, dtype=float)
-        errors = dict(zip(names, (float(v) for v in se), strict=True))
-    return _Estimate(spec, params, loglik, bic, std_resid, sigma, problem, warm, errors)
+    return _Estimate(spec, params, loglik, bic, std_resid, sigma, problem, warm, {}, res)
+
+
+def _with_std_errors(est: _Estimate) -> _Estimate:
+    """Add arch's robust standard errors (a numerical Hessian: costs about one more fit)."""
+    if est.result is None:
+        return est
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        se = np.asarray(est.result.std_err, dtype=float)
+    return replace(est, std_errors=dict(zip(est.spec.param_names, (float(v) for v in se),
+                                            strict=True)))
 
 
 def _start_from(fit: MarginalFit, spec: MarginalSpec) -> dict[str, float]:
@@ -733,10 +742,10 @@ def _fallback_estimate(y: NDArray[np.float64]) -> _Estimate:
 
 
 def _select(y: NDArray[np.float64], candidates: Sequence[MarginalSpec],
-            starts: Mapping[MarginalSpec, Mapping[str, float]], *, std_errors: bool = False
+            starts: Mapping[MarginalSpec, Mapping[str, float]]
             ) -> tuple[_Estimate, tuple[CandidateFit, ...], list[str]]:
     """Fit every candidate; the accepted one with the lowest BIC, else the fallback."""
-    ests = [_estimate(s, y, starts.get(s), std_errors=std_errors) for s in candidates]
+    ests = [_estimate(s, y, starts.get(s)) for s in candidates]
     cands = tuple(CandidateFit(e.spec, e.params, e.loglik, e.bic, e.accepted, e.problem)
                   for e in ests)
     problems = [e.problem for e in ests if e.problem]
@@ -794,7 +803,8 @@ def select_marginal(returns: pd.Series, settings: MarginalSettings | None = None
     settings = settings or MarginalSettings()
     _, days, values = _validate(returns, settings)
     y = SCALE * values
-    est, cands, problems = _select(y, settings.candidates, {}, std_errors=True)
+    est, cands, problems = _select(y, settings.candidates, {})
+    est = _with_std_errors(est)
     return _make_fit(est, days, y.shape[0] - 1, refit=0, method="selection", candidates=cands,
                      problems=problems)
 
@@ -891,7 +901,8 @@ def _in_sample(asset: str, settings: MarginalSettings, days: NDArray[np.datetime
                values: NDArray[np.float64]) -> FilteredSeries:
     y = SCALE * values
     n = y.shape[0]
-    est, cands, problems = _select(y, settings.candidates, {}, std_errors=True)
+    est, cands, problems = _select(y, settings.candidates, {})
+    est = _with_std_errors(est)
     fit = _make_fit(est, days, n - 1, refit=0, method="selection", candidates=cands,
                     problems=problems)
     fit = replace(fit, applies_from=_date(days[1]), applies_to=_date(days[-1]), n_applied=n - 1)
