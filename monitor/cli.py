@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import os
 import sys
 import traceback
@@ -92,7 +91,12 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--start", metavar="D", help="first date of the window (YYYY-MM-DD)")
     p.add_argument("--end", metavar="D", help="last date of the window (YYYY-MM-DD)")
     p.add_argument("--kind", choices=("prices", "returns", "uniforms"), default="returns",
-                   help="what the columns hold (default returns: ranked into pseudo-observations)")
+                   help="what the columns hold (default returns); prices become log returns, "
+                        "uniforms are taken as pseudo-observations as given")
+    p.add_argument("--filter", choices=("real-time", "in-sample", "none"),
+                   help="GARCH-type marginal filter before ranking, using data up to --end only "
+                        "(default: marginals.mode of the config, real-time); none ranks raw "
+                        "returns")
     p.add_argument("--families", nargs="+", metavar="NAME",
                    help="candidate families (default: rolling.families of the config)")
     p.add_argument("--criterion", choices=("aic", "bic"),
@@ -134,35 +138,30 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 # ----------------------------------------------------------------------------- commands
-def _fmt(x: float, digits: int = 3) -> str:
-    if x is None or (isinstance(x, float) and not math.isfinite(x)):
-        return "-"
-    return f"{x:.{digits}f}"
-
-
 def _cmd_fit(args: argparse.Namespace, cfg: Config) -> int:
-    from .tables import read_series
-    from .window_study import study_window
-
-    if args.kind == "prices":
-        raise InputError("--kind prices needs the GARCH marginal filter, which this version "
-                         "does not have yet; pass log returns with --kind returns")
-    families = tuple(args.families) if args.families else cfg.rolling.families
     from .copulas import FAMILY_NAMES
+    from .marginals import MarginalSettings
+    from .tables import read_series
+    from .window_study import filtered_pair, study_window
 
+    families = tuple(args.families) if args.families else cfg.rolling.families
     for name in families:
         if name not in FAMILY_NAMES:
             raise InputError(f"--families: unknown family {name!r}; known: "
                              f"{', '.join(FAMILY_NAMES)}")
     if len(set(families)) != len(families):
-        twice = next(name for name in families if families.count(name) > 1)
-        raise InputError(f"--families: {twice!r} is listed twice")
+        raise InputError("--families: a family is named twice")
+    mode = args.filter or cfg.marginals.mode
+    settings = None if mode == "none" else MarginalSettings(
+        mode=mode, refit_every=cfg.marginals.refit_every)
     frame = read_series(args.file)
+    series, info = filtered_pair(frame, args.pair[0], args.pair[1], kind=args.kind,
+                                 end=args.end, settings=settings, source=args.file)
     study = study_window(
-        frame, args.pair[0], args.pair[1], kind=args.kind, start=args.start, end=args.end,
+        series, args.pair[0], args.pair[1], kind=args.kind, start=args.start, end=args.end,
         families=families, criterion=args.criterion or cfg.rolling.criterion,
         tail_q=args.tail_q if args.tail_q is not None else cfg.rolling.tail_q,
-        bootstrap=args.bootstrap, rng=args.seed, source=args.file,
+        bootstrap=args.bootstrap, rng=args.seed, source=args.file, filter_info=info,
     )
     if args.json:
         print(json.dumps(study.to_json(), allow_nan=False, default=float))
@@ -174,8 +173,16 @@ def _cmd_fit(args: argparse.Namespace, cfg: Config) -> int:
 def render_study(study) -> str:
     """The readable table ``comove fit`` prints."""
     a, b = study.pair
-    how = {"returns": "rank pseudo-observations of returns",
-           "uniforms": "pseudo-observations as given"}[study.kind]
+    info = study.filter_info
+    if study.kind == "uniforms":
+        how = "pseudo-observations as given"
+    elif info.get("mode", "none") == "none":
+        how = "rank pseudo-observations of raw returns, no marginal filter"
+    else:
+        models = ", ".join(f"{c}: {m['spec']}" + (" (EWMA fallback)" if m["fallback"] else "")
+                           for c, m in info["models"].items())
+        how = (f"rank pseudo-observations of {info['mode']} GARCH-filtered residuals; "
+               f"models at the window end {models}")
     kt = study.kendall_tau
     lines = [
         f"Pair {a} / {b}: {study.start.date()} to {study.end.date()}, n = {study.n} ({how})",
@@ -275,6 +282,14 @@ def _cmd_export(args: argparse.Namespace, cfg: Config) -> int:
     return 0
 
 
+def _cmd_update(args: argparse.Namespace, cfg: Config) -> int:
+    from .pipeline import run_update
+
+    summary = run_update(cfg, progress=True)
+    print("\n".join(summary.lines()))
+    return 0
+
+
 def _cmd_synth(args: argparse.Namespace, cfg: Config) -> int:
     from synthetic_feeds import SCENARIOS, write_scenario
 
@@ -298,7 +313,7 @@ _COMMANDS = {
     "demo": _not_yet("demo"),
     "synth": _cmd_synth,
     "ingest": _cmd_ingest,
-    "update": _not_yet("update"),
+    "update": _cmd_update,
     "export": _cmd_export,
     "alerts": _not_yet("alerts"),
     "serve": _not_yet("serve"),

@@ -10,8 +10,9 @@ Tables (schema version 1):
 - ``prices``, ``returns``: per asset and date; ``returns.origin`` says whether a return was
   given or derived from stored prices.
 - ``revisions``: the audit trail of values replaced by an ingest run with revisions accepted.
-- ``marginal_fits``, ``residuals``: per marginal settings key and asset (see
-  :mod:`monitor.marginals`).
+- ``marginal_fits``, ``marginal_state``, ``residuals``: per marginal settings key and asset
+  (see :mod:`monitor.marginals`): every fit with its diagnostics, the input the residuals
+  were computed from, and the standardised residuals with their conditional sigma.
 """
 
 from __future__ import annotations
@@ -98,6 +99,17 @@ marginal_fits = sa.Table(
     sa.Column("converged", sa.Boolean, nullable=False),
     sa.Column("fallback", sa.Text, nullable=False),
     sa.Column("payload", sa.Text, nullable=False),
+)
+
+marginal_state = sa.Table(
+    "marginal_state", metadata,
+    sa.Column("settings", sa.String(128), primary_key=True),
+    sa.Column("asset", sa.String(128), primary_key=True),
+    sa.Column("n_input", sa.Integer, nullable=False),
+    sa.Column("input_start", sa.Date, nullable=False),
+    sa.Column("input_end", sa.Date, nullable=False),
+    sa.Column("input_digest", sa.String(64), nullable=False),
+    sa.Column("updated_at", sa.DateTime, nullable=False),
 )
 
 residuals = sa.Table(
@@ -326,11 +338,103 @@ class Store:
     @staticmethod
     def invalidate_from(conn: sa.Connection, asset: str, first: dt.date) -> None:
         """Drop derived results of ``asset`` that depend on returns dated ``first`` or later
-        (a revision): residuals on or after it and marginal fits whose sample reaches it."""
+        (a revision): residuals on or after it, marginal fits whose sample reaches it, and the
+        record of the input (so the next update recomputes the asset's residuals)."""
         conn.execute(residuals.delete().where(sa.and_(residuals.c.asset == asset,
                                                       residuals.c.date >= first)))
         conn.execute(marginal_fits.delete().where(sa.and_(marginal_fits.c.asset == asset,
                                                           marginal_fits.c.fit_end >= first)))
+        conn.execute(marginal_state.delete().where(marginal_state.c.asset == asset))
+
+    # ------------------------------------------------------------------ marginal results
+    def load_filtered(self, settings_key: str, asset: str, conn: sa.Connection | None = None):
+        """The stored :class:`~monitor.marginals.FilteredSeries` of an asset, or None."""
+        from .marginals import FilteredSeries
+
+        with self._conn(conn) as c:
+            state = c.execute(sa.select(marginal_state).where(sa.and_(
+                marginal_state.c.settings == settings_key,
+                marginal_state.c.asset == asset))).mappings().one_or_none()
+            if state is None:
+                return None
+            fits = c.execute(sa.select(marginal_fits.c.payload).where(sa.and_(
+                marginal_fits.c.settings == settings_key, marginal_fits.c.asset == asset))
+                .order_by(marginal_fits.c.seq)).scalars().all()
+            rows = c.execute(sa.select(residuals.c.date, residuals.c.value, residuals.c.sigma,
+                                       residuals.c.fit_seq).where(sa.and_(
+                residuals.c.settings == settings_key, residuals.c.asset == asset))
+                .order_by(residuals.c.date)).all()
+        return FilteredSeries.from_dict({
+            "asset": asset, "settings": settings_key,
+            "dates": [r[0].isoformat() for r in rows], "residuals": [r[1] for r in rows],
+            "sigma": [r[2] for r in rows], "fit_index": [r[3] for r in rows],
+            "fits": [json.loads(f) for f in fits],
+            "input": {"n": state["n_input"], "start": state["input_start"].isoformat(),
+                      "end": state["input_end"].isoformat(), "digest": state["input_digest"]},
+        })
+
+    @staticmethod
+    def save_filtered(conn: sa.Connection, series, previous=None) -> int:
+        """Store a FilteredSeries, writing only what is new relative to ``previous`` (the
+        stored result it extends; None replaces whatever is stored). Returns the number of
+        residual rows written."""
+        key, asset = series.key, series.asset
+        where_r = sa.and_(residuals.c.settings == key, residuals.c.asset == asset)
+        where_f = sa.and_(marginal_fits.c.settings == key, marginal_fits.c.asset == asset)
+        if previous is None:
+            conn.execute(residuals.delete().where(where_r))
+            conn.execute(marginal_fits.delete().where(where_f))
+            old_rows, old_fits = 0, 0
+        else:
+            old_rows = len(previous.dates)
+            # The last stored fit may have grown (it applies to more days now): rewrite it.
+            old_fits = max(len(previous.fits) - 1, 0)
+            conn.execute(marginal_fits.delete().where(sa.and_(
+                where_f, marginal_fits.c.seq >= old_fits)))
+        fits = series.fits[old_fits:]
+        if fits:
+            conn.execute(marginal_fits.insert(), [
+                {"settings": key, "asset": asset, "seq": old_fits + i, "fit_end": f.sample_end,
+                 "spec": f.spec.key, "converged": bool(f.converged),
+                 "fallback": f.fallback or "", "payload": json.dumps(f.to_dict())}
+                for i, f in enumerate(fits)])
+        new = slice(old_rows, None)
+        dates = [pd.Timestamp(d).date() for d in series.dates[new]]
+        if dates:
+            conn.execute(residuals.insert(), [
+                {"settings": key, "asset": asset, "date": d, "value": float(z),
+                 "sigma": float(sg), "fit_seq": int(k)}
+                for d, z, sg, k in zip(dates, series.residuals[new], series.sigma[new],
+                                       series.fit_index[new], strict=True)])
+        conn.execute(marginal_state.delete().where(sa.and_(
+            marginal_state.c.settings == key, marginal_state.c.asset == asset)))
+        conn.execute(marginal_state.insert().values(
+            settings=key, asset=asset, n_input=series.n_input, input_start=series.input_start,
+            input_end=series.input_end, input_digest=series.input_digest, updated_at=_now()))
+        return len(dates)
+
+    def residual_count(self, settings_key: str, asset: str) -> int:
+        """Stored residual rows of an asset under a settings key."""
+        with self.engine.connect() as conn:
+            return int(conn.execute(sa.select(sa.func.count()).select_from(residuals).where(
+                sa.and_(residuals.c.settings == settings_key,
+                        residuals.c.asset == asset))).scalar_one())
+
+    def read_residuals(self, settings_key: str, assets: Iterable[str] | None = None
+                       ) -> pd.DataFrame:
+        """Stored standardised residuals as a wide frame (date x asset)."""
+        stmt = sa.select(residuals.c.asset, residuals.c.date, residuals.c.value).where(
+            residuals.c.settings == settings_key)
+        if assets is not None:
+            stmt = stmt.where(residuals.c.asset.in_(list(assets)))
+        with self.engine.connect() as conn:
+            rows = conn.execute(stmt.order_by(residuals.c.date)).all()
+        frame = pd.DataFrame(rows, columns=["asset", "date", "value"])
+        frame["date"] = pd.to_datetime(frame["date"])
+        wide = frame.pivot(index="date", columns="asset", values="value")
+        wide.columns = [str(c) for c in wide.columns]
+        wide.columns.name = None
+        return wide
 
 
 def checksum_bytes(data: bytes) -> str:

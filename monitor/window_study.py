@@ -8,7 +8,7 @@ goodness-of-fit p-values and intervals.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -25,10 +25,13 @@ from .inference import (
     goodness_of_fit,
     kendall_tau_interval,
 )
+from .marginals import MarginalSettings, filter_series
+from .tables import log_returns
 
 #: Fewest usable rows a window study accepts.
 MIN_ROWS = 30
 KINDS = ("prices", "returns", "uniforms")
+FILTERS = ("real-time", "in-sample", "none")
 
 
 @dataclass(frozen=True, slots=True)
@@ -56,6 +59,7 @@ class WindowStudy:
     selection: Selection
     gof: dict[str, GoodnessOfFit]
     uncertainty: FitUncertainty | None
+    filter_info: dict = field(default_factory=lambda: {"mode": "none"})
 
     def to_json(self) -> dict:
         """The ``comove fit --json`` object (DESIGN.md contract, with extra keys)."""
@@ -83,6 +87,7 @@ class WindowStudy:
             "fits": out_fits,
             "selected": {"family": sel.family, "rotation": sel.rotation},
             "pair": list(self.pair), "kind": self.kind, "criterion": self.selection.criterion,
+            "marginals": self.filter_info,
             "dropped_dates": self.dropped,
             "kendall_tau_interval": {"lower": self.kendall_tau.lower,
                                      "upper": self.kendall_tau.upper,
@@ -138,15 +143,15 @@ def study_window(frame: pd.DataFrame, a: str, b: str, *, kind: str = "returns",
                  families: tuple[str, ...] = FAMILY_NAMES, criterion: str = "aic",
                  tail_q: float = 0.10, bootstrap: int = 0,
                  rng: np.random.Generator | int | None = None,
-                 source: str = "input") -> WindowStudy:
+                 source: str = "input", filter_info: dict | None = None) -> WindowStudy:
     """Study one pair on one window.
 
     Parameters
     ----------
     frame : DataFrame
-        Wide frame indexed by date (as :func:`monitor.tables.read_series` returns). For
-        ``kind="returns"`` the columns are returns; for ``"uniforms"`` pseudo-observations in
-        (0, 1) taken as given.
+        Wide frame indexed by date. For ``kind="uniforms"`` the columns are
+        pseudo-observations in (0, 1) taken as given; otherwise they are ranked within the
+        window (returns, or the filtered residuals of :func:`filtered_pair`).
     a, b : str
         The two columns.
     start, end : str, optional
@@ -159,6 +164,8 @@ def study_window(frame: pd.DataFrame, a: str, b: str, *, kind: str = "returns",
     bootstrap : int
         Parametric-bootstrap replicates for goodness-of-fit p-values (every candidate) and
         intervals (the selected family); 0 skips them.
+    filter_info : dict, optional
+        Provenance of the columns (from :func:`filtered_pair`), carried into the result.
 
     Raises
     ------
@@ -166,8 +173,8 @@ def study_window(frame: pd.DataFrame, a: str, b: str, *, kind: str = "returns",
         Unknown column, fewer than :data:`MIN_ROWS` usable rows, a constant column, uniforms
         outside (0, 1).
     """
-    if kind not in ("returns", "uniforms"):
-        raise InputError(f"--kind must be returns or uniforms here, got {kind!r}")
+    if kind not in KINDS:
+        raise InputError(f"--kind must be one of {', '.join(KINDS)}, got {kind!r}")
     if not 0 < tail_q < 0.5:
         raise InputError(f"--tail-q must lie in (0, 0.5), got {tail_q}")
     if bootstrap < 0 or 0 < bootstrap < 20:
@@ -208,4 +215,45 @@ def study_window(frame: pd.DataFrame, a: str, b: str, *, kind: str = "returns",
         spearman_rho=float(spearman_rho(u, v)), tail_q=float(tail_q),
         tail_lower_emp=float(tail.lower), tail_upper_emp=float(tail.upper),
         selection=selection, gof=gof, uncertainty=uncertainty,
+        filter_info=filter_info or {"mode": "none"},
     )
+
+
+def filtered_pair(frame: pd.DataFrame, a: str, b: str, *, kind: str, end: str | None,
+                  settings: MarginalSettings | None, source: str = "input"
+                  ) -> tuple[pd.DataFrame, dict]:
+    """The two columns as the window study should rank them, with their provenance.
+
+    Prices become log returns; returns are filtered with the GARCH-type marginal model of
+    :mod:`monitor.marginals` using data up to ``end`` only (``settings`` None: returns ranked
+    as they are). Uniforms pass through.
+    """
+    for col in (a, b):
+        if col not in frame.columns:
+            raise InputError(f"{source}: no column {col!r} (columns: "
+                             f"{', '.join(map(str, frame.columns))})")
+    if kind == "uniforms":
+        return frame[[a, b]], {"mode": "none", "note": "uniforms as given"}
+    data = log_returns(frame[[a, b]], source) if kind == "prices" else frame[[a, b]]
+    hi = _date(end, "--end")
+    if hi is not None:
+        data = data[data.index <= hi]
+    if settings is None:
+        return data, {"mode": "none", "note": "raw returns ranked, no marginal filter"}
+    out, models = {}, {}
+    for col in (a, b):
+        series = data[col].dropna()
+        series.name = col
+        if len(series) < settings.min_returns:
+            raise InputError(
+                f"{source}: column {col!r} has {len(series)} returns up to the window end; "
+                f"the {settings.mode} filter needs {settings.min_returns} "
+                "(use --filter none to rank raw returns)")
+        filtered = filter_series(series, settings)
+        out[col] = pd.Series(filtered.residuals, index=pd.DatetimeIndex(filtered.dates))
+        last = filtered.fits[-1]
+        models[col] = {"spec": last.spec.key, "fallback": last.fallback or None,
+                       "fits": len(filtered.fits), "n_fallback": filtered.n_fallback}
+    resid = pd.DataFrame(out)
+    resid.index.name = "date"
+    return resid, {"mode": settings.mode, "settings": settings.key, "models": models}

@@ -1,0 +1,166 @@
+"""The daily job behind ``comove update``: pull configured sources, filter every asset's
+returns, store what is new.
+
+Each step is one transaction: an interrupted update leaves the store as it was before that
+step, and running it again continues from there (work already stored is not redone).
+"""
+
+from __future__ import annotations
+
+import os
+import time
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from dataclasses import dataclass, field
+
+import pandas as pd
+from tqdm import tqdm
+
+from .config import Config, SourceConfig
+from .errors import InputError
+from .ingest import (
+    IngestReport,
+    Source,
+    expand_paths,
+    ingest_sources,
+    read_file_source,
+    read_sql_table_source,
+)
+from .marginals import FilteredSeries, MarginalSettings, extend_series, filter_series
+from .store import Store
+
+
+def marginal_settings(cfg: Config) -> MarginalSettings:
+    """The marginal settings the configuration asks for."""
+    return MarginalSettings(mode=cfg.marginals.mode, refit_every=cfg.marginals.refit_every)
+
+
+def read_configured_sources(cfg: Config) -> list[Source]:
+    """Read and validate every ``[[sources]]`` entry (nothing is stored yet)."""
+    out = []
+    for i, src in enumerate(cfg.sources, start=1):
+        out.extend(_read_source(src, i))
+    return out
+
+
+def _read_source(src: SourceConfig, i: int) -> list[Source]:
+    if src.path:
+        return [read_file_source(p, src.kind) for p in expand_paths(src.path)]
+    url = src.url or os.environ.get(src.url_env, "")
+    if not url:
+        raise InputError(f"sources[{i}]: environment variable {src.url_env} is not set")
+    return [read_sql_table_source(url, src.kind, query=src.query or None,
+                                  table=src.table or None)]
+
+
+@dataclass(frozen=True, slots=True)
+class MarginalSummary:
+    """What the marginal step did."""
+
+    settings_key: str
+    filtered: int
+    new_residuals: int
+    recomputed: tuple[str, ...]
+    fallbacks: dict[str, int]
+    skipped: dict[str, str] = field(default_factory=dict)
+
+    def lines(self) -> list[str]:
+        out = [(f"marginals ({self.settings_key}): {self.filtered} asset(s) filtered, "
+               f"{self.new_residuals} new residual(s)")]
+        if self.recomputed:
+            out.append(f"  recomputed from the start: {', '.join(self.recomputed)}")
+        if self.fallbacks:
+            out.append("  fits on the EWMA fallback (GARCH refused; see the data page): "
+                       + ", ".join(f"{a} {n}" for a, n in sorted(self.fallbacks.items())))
+        for asset, why in sorted(self.skipped.items()):
+            out.append(f"  skipped {asset}: {why}")
+        return out
+
+
+def _filter_one(asset: str, returns: pd.Series, previous: FilteredSeries | None,
+                settings: MarginalSettings) -> tuple[str, FilteredSeries, bool]:
+    """Worker: extend the stored result when it is a prefix of the data, else recompute."""
+    if previous is not None and previous.is_prefix_of(returns):
+        return asset, extend_series(previous, returns), False
+    return asset, filter_series(returns, settings), previous is not None
+
+
+def update_marginals(store: Store, cfg: Config, *, progress: bool = True) -> MarginalSummary:
+    """Filter every stored asset (incrementally where possible) and store the new residuals.
+
+    Assets run in a process pool (``compute.workers``; 0 means one per core): the GARCH fits
+    are independent, and the ``arch`` package is not thread-safe in its warning handling.
+    """
+    settings = marginal_settings(cfg)
+    key = settings.key
+    returns = store.read_returns()
+    todo, skipped = [], {}
+    for asset in returns.columns:
+        series = returns[asset].dropna()
+        series.name = asset
+        if len(series) < settings.min_returns:
+            skipped[asset] = (f"{len(series)} returns, the filter needs {settings.min_returns}")
+            continue
+        previous = store.load_filtered(key, asset)
+        if previous is not None and previous.n_input == len(series) and previous.is_prefix_of(
+                series):
+            continue  # nothing new for this asset
+        # A stored result whose input record was dropped (a revision) is recomputed too.
+        stale = previous is None and store.residual_count(key, asset) > 0
+        todo.append((asset, series, previous, stale))
+    results: list[tuple[str, FilteredSeries, bool, FilteredSeries | None]] = []
+    workers = cfg.compute.workers or os.cpu_count() or 1
+    bar = tqdm(total=len(todo), desc="marginals", unit="asset", disable=not progress or None,
+               leave=False)
+    try:
+        if workers > 1 and len(todo) > 1:
+            with ProcessPoolExecutor(min(workers, len(todo))) as pool:
+                futures = {pool.submit(_filter_one, a, s, p, settings): (p, st)
+                           for a, s, p, st in todo}
+                for fut in as_completed(futures):
+                    asset, fs, redone = fut.result()
+                    previous, stale = futures[fut]
+                    results.append((asset, fs, redone or stale, previous))
+                    bar.update()
+        else:
+            for a, s, p, st in todo:
+                asset, fs, redone = _filter_one(a, s, p, settings)
+                results.append((asset, fs, redone or st, p))
+                bar.update()
+    finally:
+        bar.close()
+    written = 0
+    with store.transaction() as conn:
+        for _asset, fs, redone, previous in results:
+            written += store.save_filtered(conn, fs, None if redone or previous is None
+                                           else previous)
+    return MarginalSummary(
+        settings_key=key, filtered=len(results), new_residuals=written,
+        recomputed=tuple(sorted(a for a, _, redone, _ in results if redone)),
+        fallbacks={a: fs.n_fallback for a, fs, _, _ in results if fs.n_fallback},
+        skipped=skipped)
+
+
+@dataclass(frozen=True, slots=True)
+class UpdateSummary:
+    ingested: tuple[IngestReport, ...]
+    marginals: MarginalSummary
+    seconds: float
+
+    def lines(self) -> list[str]:
+        out = []
+        for rep in self.ingested:
+            out.extend(rep.lines())
+        out.extend(self.marginals.lines())
+        out.append(f"update finished in {self.seconds:.1f} s")
+        return out
+
+
+def run_update(cfg: Config, *, progress: bool = True) -> UpdateSummary:
+    """The whole daily job: configured sources, then marginals (then, as they arrive, the
+    rolling engine, signals and the alert queue)."""
+    t0 = time.perf_counter()
+    sources = read_configured_sources(cfg)
+    with Store(cfg.store.url) as store:
+        ingested = tuple(ingest_sources(store, sources)) if sources else ()
+        marg = update_marginals(store, cfg, progress=progress)
+    return UpdateSummary(ingested, marg, time.perf_counter() - t0)
