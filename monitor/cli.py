@@ -149,8 +149,9 @@ def _cmd_fit(args: argparse.Namespace, cfg: Config) -> int:
         if name not in FAMILY_NAMES:
             raise InputError(f"--families: unknown family {name!r}; known: "
                              f"{', '.join(FAMILY_NAMES)}")
-    if len(set(families)) != len(families):
-        raise InputError("--families: a family is named twice")
+    for name in families:
+        if families.count(name) > 1:
+            raise InputError(f"--families: {name!r} is listed twice")
     mode = args.filter or cfg.marginals.mode
     settings = None if mode == "none" else MarginalSettings(
         mode=mode, refit_every=cfg.marginals.refit_every)

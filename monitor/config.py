@@ -32,6 +32,8 @@ class RollingConfig:
     families: tuple[str, ...] = FAMILY_NAMES
     criterion: str = "aic"
     tail_q: float = 0.10
+    #: Pairs to monitor as "A/B" strings; empty means every pair of stored assets.
+    pairs: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True, slots=True)
@@ -181,6 +183,11 @@ def _validate(cfg: Config, path: str) -> None:
         raise InputError(f"{path}: rolling.families lists a family twice")
     if r.criterion not in ("aic", "bic"):
         raise InputError(f"{path}: rolling.criterion must be \"aic\" or \"bic\", got {r.criterion!r}")
+    for pair in r.pairs:
+        parts = pair.split("/")
+        if len(parts) != 2 or not all(p.strip() for p in parts) or parts[0] == parts[1]:
+            raise InputError(f"{path}: rolling.pairs: {pair!r} is not of the form \"A/B\" "
+                             "with two different assets")
     if not 0 < r.tail_q < 0.5:
         raise InputError(f"{path}: rolling.tail_q must lie in (0, 0.5), got {r.tail_q}")
     m = cfg.marginals

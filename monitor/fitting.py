@@ -558,10 +558,12 @@ class BatchSelection:
 
 def select_batched(u: ArrayLike, v: ArrayLike, families: tuple[str, ...] | list[str] | None = None,
                    criterion: str = "aic", tau: ArrayLike | None = None,
-                   start: dict[tuple[str, int], NDArray] | None = None) -> BatchSelection:
+                   start: dict[tuple[str, int], NDArray] | None = None,
+                   chain: int = 0) -> BatchSelection:
     """:func:`select_copula` on every window of a batch at once.
 
-    ``start`` optionally maps (family, slot rotation) to warm starts of shape (windows, k).
+    ``start`` optionally maps (family, slot rotation) to warm starts of shape (windows, k);
+    ``chain`` is passed to :func:`fit_batched` (rows are consecutive rolling windows).
     ``best[w]`` indexes ``fits`` for window ``w``.
     """
     from .copulas import FAMILY_NAMES
@@ -573,7 +575,7 @@ def select_batched(u: ArrayLike, v: ArrayLike, families: tuple[str, ...] | list[
     start = start or {}
     fits = tuple(
         fit_batched(fam, u2, v2, tau=tau, rotation_by_sign=True,
-                    start=start.get((fam.name, fam.rotation)))
+                    start=start.get((fam.name, fam.rotation)), chain=chain)
         for fam in candidate_slots(names)
     )
     scores = np.stack([getattr(f, criterion) for f in fits])

@@ -11,7 +11,9 @@ import os
 import time
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field
+from itertools import combinations
 
+import numpy as np
 import pandas as pd
 from tqdm import tqdm
 
@@ -26,6 +28,7 @@ from .ingest import (
     read_sql_table_source,
 )
 from .marginals import FilteredSeries, MarginalSettings, extend_series, filter_series
+from .rolling import RollingSettings, pair_metrics, window_end_positions
 from .store import Store
 
 
@@ -140,10 +143,138 @@ def update_marginals(store: Store, cfg: Config, *, progress: bool = True) -> Mar
         skipped=skipped)
 
 
+
+
+# ----------------------------------------------------------------------------- rolling engine
+def rolling_settings(cfg: Config) -> RollingSettings:
+    r = cfg.rolling
+    return RollingSettings(window=r.window, step=r.step, families=tuple(r.families),
+                           criterion=r.criterion, tail_q=r.tail_q)
+
+
+def _universe_pairs(assets: list[str], cfg: Config) -> list[tuple[str, str]]:
+    if cfg.rolling.pairs:
+        out = []
+        for text in cfg.rolling.pairs:
+            a, b = (x.strip() for x in text.split("/"))
+            for asset in (a, b):
+                if asset not in assets:
+                    raise InputError(f"rolling.pairs: {text!r}: no filtered residuals for "
+                                     f"{asset!r} (assets: {', '.join(assets) or 'none'})")
+            out.append((a, b))
+        return out
+    return list(combinations(sorted(assets), 2))
+
+
+@dataclass(frozen=True, slots=True)
+class _PairTask:
+    a: str
+    b: str
+    dates: pd.DatetimeIndex
+    za: np.ndarray
+    zb: np.ndarray
+    positions: np.ndarray
+    warm: dict | None
+    last_tau: float | None
+    replace_all: bool
+
+
+def _pair_task(task: _PairTask, settings: RollingSettings):
+    """Worker: one pair's new window ends."""
+    out = pair_metrics(task.dates, task.za, task.zb, settings, task.positions,
+                       start=task.warm, previous_tau=task.last_tau)
+    return task, out
+
+
+@dataclass(frozen=True, slots=True)
+class RollingSummary:
+    settings_key: str
+    pairs: int
+    updated_pairs: int
+    new_windows: int
+    backend: str
+
+    def lines(self) -> list[str]:
+        return [(f"rolling ({self.settings_key}, {self.backend}): {self.updated_pairs} of "
+                f"{self.pairs} pair(s) updated, {self.new_windows} new window end(s)")]
+
+
+def _pair_tasks(store: Store, key: str, settings: RollingSettings, z: pd.DataFrame,
+                pairs: list[tuple[str, str]]) -> list[_PairTask]:
+    tasks = []
+    for a, b in pairs:
+        common = z[[a, b]].dropna()
+        dates = pd.DatetimeIndex(common.index)
+        state = store.load_pair_state(key, a, b)
+        after, warm, last_tau, replace_all = -1, None, None, False
+        if state is not None:
+            hit = dates.get_indexer([pd.Timestamp(state["last_date"])])[0]
+            if hit >= 0:
+                after, warm, last_tau = int(hit), state["warm"], state["last_tau"]
+            else:
+                replace_all = True  # the stored end is no longer a common date: start over
+        positions = window_end_positions(len(dates), settings, after)
+        if positions.size:
+            tasks.append(_PairTask(a, b, dates, common[a].to_numpy(), common[b].to_numpy(),
+                                   positions, warm, last_tau, replace_all))
+    return tasks
+
+
+def _run_tasks(tasks: list[_PairTask], settings: RollingSettings, cfg: Config,
+               progress: bool):
+    """Yield (task, PairMetrics) as pairs finish, on the configured backend."""
+    bar = tqdm(total=len(tasks), desc="rolling", unit="pair", disable=not progress or None,
+               leave=False)
+    try:
+        if cfg.compute.backend == "dask":
+            from distributed import Client
+            from distributed import as_completed as dask_completed
+
+            with Client(cfg.compute.scheduler, timeout="20s") as client:
+                futures = client.map(_pair_task, tasks, settings=settings, pure=False)
+                for fut in dask_completed(futures):
+                    yield fut.result()
+                    bar.update()
+            return
+        workers = cfg.compute.workers or os.cpu_count() or 1
+        if workers > 1 and len(tasks) > 1:
+            with ProcessPoolExecutor(min(workers, len(tasks))) as pool:
+                futures = [pool.submit(_pair_task, t, settings) for t in tasks]
+                for fut in as_completed(futures):
+                    yield fut.result()
+                    bar.update()
+        else:
+            for t in tasks:
+                yield _pair_task(t, settings)
+                bar.update()
+    finally:
+        bar.close()
+
+
+def update_rolling(store: Store, cfg: Config, *, progress: bool = True) -> RollingSummary:
+    """Compute every window end not yet stored, for every monitored pair, and store each pair
+    in its own transaction as it finishes (an interrupted update keeps the finished pairs;
+    a rerun computes exactly the missing ones, from the same stored state)."""
+    m_key = marginal_settings(cfg).key
+    settings = rolling_settings(cfg)
+    key = settings.key(m_key)
+    z = store.read_residuals(m_key)
+    pairs = _universe_pairs([str(c) for c in z.columns], cfg)
+    tasks = _pair_tasks(store, key, settings, z, pairs)
+    new = 0
+    for task, out in _run_tasks(tasks, settings, cfg, progress):
+        with store.transaction() as conn:
+            store.save_pair_metrics(conn, key, task.a, task.b, out.frame, out.last_params,
+                                    out.last_tau, replace_all=task.replace_all)
+        new += len(out.frame)
+    return RollingSummary(key, len(pairs), len(tasks), new, cfg.compute.backend)
+
+
 @dataclass(frozen=True, slots=True)
 class UpdateSummary:
     ingested: tuple[IngestReport, ...]
     marginals: MarginalSummary
+    rolling: RollingSummary
     seconds: float
 
     def lines(self) -> list[str]:
@@ -151,16 +282,18 @@ class UpdateSummary:
         for rep in self.ingested:
             out.extend(rep.lines())
         out.extend(self.marginals.lines())
+        out.extend(self.rolling.lines())
         out.append(f"update finished in {self.seconds:.1f} s")
         return out
 
 
 def run_update(cfg: Config, *, progress: bool = True) -> UpdateSummary:
-    """The whole daily job: configured sources, then marginals (then, as they arrive, the
-    rolling engine, signals and the alert queue)."""
+    """The whole daily job: configured sources, marginals, the rolling engine (then, as they
+    arrive, signals and the alert queue)."""
     t0 = time.perf_counter()
     sources = read_configured_sources(cfg)
     with Store(cfg.store.url) as store:
         ingested = tuple(ingest_sources(store, sources)) if sources else ()
         marg = update_marginals(store, cfg, progress=progress)
-    return UpdateSummary(ingested, marg, time.perf_counter() - t0)
+        roll = update_rolling(store, cfg, progress=progress)
+    return UpdateSummary(ingested, marg, roll, time.perf_counter() - t0)

@@ -10,6 +10,8 @@ Tables (schema version 1):
 - ``prices``, ``returns``: per asset and date; ``returns.origin`` says whether a return was
   given or derived from stored prices.
 - ``revisions``: the audit trail of values replaced by an ingest run with revisions accepted.
+- ``metrics``, ``pair_state``: the rolling engine's timeline per settings key and pair (one
+  row per window end) and what the next incremental batch of a pair starts from.
 - ``marginal_fits``, ``marginal_state``, ``residuals``: per marginal settings key and asset
   (see :mod:`monitor.marginals`): every fit with its diagnostics, the input the residuals
   were computed from, and the standardised residuals with their conditional sigma.
@@ -120,6 +122,44 @@ residuals = sa.Table(
     sa.Column("value", _DOUBLE, nullable=False),
     sa.Column("sigma", _DOUBLE, nullable=False),
     sa.Column("fit_seq", sa.Integer, nullable=False),
+)
+
+
+_PAIR_KEY = (
+    sa.Column("settings", sa.String(255), primary_key=True),
+    sa.Column("asset_a", sa.String(128), primary_key=True),
+    sa.Column("asset_b", sa.String(128), primary_key=True),
+)
+
+
+def _pair_key():
+    return [c.copy() for c in _PAIR_KEY]
+
+
+metrics = sa.Table(
+    "metrics", metadata, *_pair_key(),
+    sa.Column("date", sa.Date, primary_key=True),
+    sa.Column("start", sa.Date, nullable=False),
+    sa.Column("n", sa.Integer, nullable=False),
+    *[sa.Column(name, _DOUBLE) for name in (
+        "kendall_tau", "kendall_tau_se", "spearman_rho")],
+    sa.Column("family", sa.String(32), nullable=False),
+    sa.Column("rotation", sa.Integer, nullable=False),
+    sa.Column("param1", _DOUBLE),
+    sa.Column("param2", _DOUBLE),
+    sa.Column("converged", sa.Boolean, nullable=False),
+    *[sa.Column(name, _DOUBLE) for name in (
+        "loglik", "aic", "loglik_gauss", "aic_gauss", "tail_lower", "tail_upper",
+        "tail_lower_emp", "tail_upper_emp", "tail_lower_emp_se", "tail_upper_emp_se",
+        "gauss_tail_q", "loglik_best_lower", "loglik_best_upper", "llr_lower", "llr_upper")],
+)
+
+pair_state = sa.Table(
+    "pair_state", metadata, *_pair_key(),
+    sa.Column("last_date", sa.Date, nullable=False),
+    sa.Column("last_tau", _DOUBLE, nullable=False),
+    sa.Column("warm_starts", sa.Text, nullable=False),
+    sa.Column("updated_at", sa.DateTime, nullable=False),
 )
 
 
@@ -345,6 +385,11 @@ class Store:
         conn.execute(marginal_fits.delete().where(sa.and_(marginal_fits.c.asset == asset,
                                                           marginal_fits.c.fit_end >= first)))
         conn.execute(marginal_state.delete().where(marginal_state.c.asset == asset))
+        involves = sa.or_(metrics.c.asset_a == asset, metrics.c.asset_b == asset)
+        # A window ending on or after the revised date contains it.
+        conn.execute(metrics.delete().where(sa.and_(involves, metrics.c.date >= first)))
+        conn.execute(pair_state.delete().where(sa.or_(pair_state.c.asset_a == asset,
+                                                      pair_state.c.asset_b == asset)))
 
     # ------------------------------------------------------------------ marginal results
     def load_filtered(self, settings_key: str, asset: str, conn: sa.Connection | None = None):
@@ -419,6 +464,71 @@ class Store:
             return int(conn.execute(sa.select(sa.func.count()).select_from(residuals).where(
                 sa.and_(residuals.c.settings == settings_key,
                         residuals.c.asset == asset))).scalar_one())
+
+    # ------------------------------------------------------------------ rolling metrics
+    def load_pair_state(self, settings_key: str, a: str, b: str) -> dict | None:
+        """Last stored window end of a pair, its tau and the warm starts, or None."""
+        with self.engine.connect() as conn:
+            row = conn.execute(sa.select(pair_state).where(sa.and_(
+                pair_state.c.settings == settings_key, pair_state.c.asset_a == a,
+                pair_state.c.asset_b == b))).mappings().one_or_none()
+        if row is None:
+            return None
+        warm = {(k.split("|")[0], int(k.split("|")[1])): np.array(v, dtype=float)
+                for k, v in json.loads(row["warm_starts"]).items()}
+        return {"last_date": row["last_date"], "last_tau": row["last_tau"], "warm": warm}
+
+    @staticmethod
+    def save_pair_metrics(conn: sa.Connection, settings_key: str, a: str, b: str,
+                          frame: pd.DataFrame, warm: dict, last_tau: float,
+                          replace_all: bool = False) -> None:
+        """Append a pair's new metric rows and its state, in the caller's transaction
+        (``replace_all`` first drops whatever the pair had under the key)."""
+        where = sa.and_(metrics.c.settings == settings_key, metrics.c.asset_a == a,
+                        metrics.c.asset_b == b)
+        if replace_all:
+            conn.execute(metrics.delete().where(where))
+        if not frame.empty:
+            rows = frame.to_dict("records")
+            for r in rows:
+                r["date"] = pd.Timestamp(r["date"]).date()
+                r["start"] = pd.Timestamp(r["start"]).date()
+                for k, val in r.items():
+                    if isinstance(val, float) and not np.isfinite(val):
+                        r[k] = None
+                    elif isinstance(val, np.generic):
+                        r[k] = val.item()
+                r.update(settings=settings_key, asset_a=a, asset_b=b)
+            conn.execute(metrics.insert(), rows)
+        conn.execute(pair_state.delete().where(sa.and_(
+            pair_state.c.settings == settings_key, pair_state.c.asset_a == a,
+            pair_state.c.asset_b == b)))
+        if not frame.empty:
+            conn.execute(pair_state.insert().values(
+                settings=settings_key, asset_a=a, asset_b=b,
+                last_date=pd.Timestamp(frame["date"].iloc[-1]).date(), last_tau=float(last_tau),
+                warm_starts=json.dumps({f"{k[0]}|{k[1]}": [float(x) for x in v]
+                                        for k, v in warm.items()}),
+                updated_at=_now()))
+
+    def read_timeline(self, settings_key: str, a: str, b: str) -> pd.DataFrame:
+        """A pair's stored metric rows, oldest first (columns of the rolling engine)."""
+        from .rolling import METRIC_COLUMNS
+
+        with self.engine.connect() as conn:
+            rows = conn.execute(sa.select(*[metrics.c[c] for c in METRIC_COLUMNS]).where(
+                sa.and_(metrics.c.settings == settings_key, metrics.c.asset_a == a,
+                        metrics.c.asset_b == b)).order_by(metrics.c.date)).all()
+        frame = pd.DataFrame(rows, columns=list(METRIC_COLUMNS))
+        for col in ("date", "start"):
+            frame[col] = pd.to_datetime(frame[col])
+        return frame
+
+    def stored_pairs(self, settings_key: str) -> list[tuple[str, str]]:
+        with self.engine.connect() as conn:
+            return [tuple(r) for r in conn.execute(
+                sa.select(metrics.c.asset_a, metrics.c.asset_b).where(
+                    metrics.c.settings == settings_key).distinct())]
 
     def read_residuals(self, settings_key: str, assets: Iterable[str] | None = None
                        ) -> pd.DataFrame:

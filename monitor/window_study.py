@@ -232,6 +232,8 @@ def filtered_pair(frame: pd.DataFrame, a: str, b: str, *, kind: str, end: str | 
         if col not in frame.columns:
             raise InputError(f"{source}: no column {col!r} (columns: "
                              f"{', '.join(map(str, frame.columns))})")
+    if a == b:
+        raise InputError("--pair: the two columns must differ")
     if kind == "uniforms":
         return frame[[a, b]], {"mode": "none", "note": "uniforms as given"}
     data = log_returns(frame[[a, b]], source) if kind == "prices" else frame[[a, b]]
