@@ -125,15 +125,11 @@ residuals = sa.Table(
 )
 
 
-_PAIR_KEY = (
-    sa.Column("settings", sa.String(255), primary_key=True),
-    sa.Column("asset_a", sa.String(128), primary_key=True),
-    sa.Column("asset_b", sa.String(128), primary_key=True),
-)
-
-
-def _pair_key():
-    return [c.copy() for c in _PAIR_KEY]
+def _pair_key() -> list[sa.Column]:
+    """Key columns of per-pair tables (fresh objects: a Column belongs to one table)."""
+    return [sa.Column("settings", sa.String(255), primary_key=True),
+            sa.Column("asset_a", sa.String(128), primary_key=True),
+            sa.Column("asset_b", sa.String(128), primary_key=True)]
 
 
 metrics = sa.Table(
