@@ -26,8 +26,7 @@ from .copulas.base import UNIT_EPS
 from .empirical import kendall_tau
 
 #: Finite-difference steps in transformed coordinates: central differences for gradient and
-#: Hessian, forward differences for a gradient alone (its bias, half the step times the
-#: curvature, moves the optimum by about 5e-7).
+#: Hessian, forward differences for a gradient alone under a borrowed Hessian.
 _FD_STEP = 1e-4
 _FD_GRADIENT_STEP = 1e-6
 #: Numbers per block when evaluating log-likelihoods over many windows.
@@ -214,9 +213,11 @@ def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
         tau >= 0 and the rotation 90 degrees further (90 or 270) on windows with tau < 0, so
         that one call covers the sign of every window.
     chain : int
-        When the rows are consecutive rolling windows, fit every ``chain``-th row first and
-        start every other row from its nearest fitted neighbour (overlapping windows have
-        nearby optima, so Newton needs fewer steps). 0 or 1 fits all rows from ``start``.
+        When the rows are consecutive rolling windows: fit a coarse lattice of rows first
+        (every ``chain``-th, or every ``chain**2``-th, ... row when there are many), then each
+        ``chain`` times finer lattice and finally every row from its nearest fitted neighbour
+        (overlapping windows have nearby optima and curvature, so Newton needs few steps).
+        0 or 1 fits all rows from ``start``.
     max_iter : int
         Newton iterations at most per window.
 
@@ -269,22 +270,37 @@ def _solve(fam, data, start, chain, max_iter, n):
     windows, k = start.shape
     if not (chain > 1 and windows > chain):
         return _newton(fam, data, start, max_iter, n)[:4]
-    # Stage 1 on a lattice of rows; stage 2 on the rest, started from the nearest lattice
-    # row's estimate *and* its Hessian (overlapping windows have nearly the same curvature),
-    # so a stage-2 window usually needs only two gradient evaluations and one trial point.
-    lattice = np.arange(0, windows, chain)
-    p1, ll1, c1, i1, h1 = _newton(fam, fam.take(data, lattice), start[lattice], max_iter, n)
-    rest = np.setdiff1d(np.arange(windows), lattice)
-    nearest = np.clip(np.rint(rest / chain).astype(int), 0, lattice.size - 1)
-    p2, ll2, c2, i2, _ = _newton(fam, fam.take(data, rest), p1[nearest], max_iter, n,
-                                 hess0=h1[nearest])
+    # Coarse to fine: the coarsest lattice of rows from the given starts, then each finer
+    # lattice (and finally every row) from the nearest row already fitted -- its estimate
+    # *and* its Hessian (overlapping windows have nearly the same curvature), so most rows
+    # need only gradient evaluations and one trial point.
+    step = chain
+    while step * chain * 4 <= windows:
+        step *= chain
     params = np.empty((windows, k))
     ll = np.empty(windows)
     conv = np.empty(windows, dtype=bool)
     iters = np.empty(windows, dtype=np.int64)
-    for rows, vals in ((lattice, (p1, ll1, c1, i1)), (rest, (p2, ll2, c2, i2))):
-        params[rows], ll[rows], conv[rows], iters[rows] = vals
-    return params, ll, conv, iters
+    hess = np.empty((windows, k, k))
+    done = np.zeros(windows, dtype=bool)
+    while True:
+        rows = np.arange(0, windows, step)
+        rows = rows[~done[rows]]
+        if not done.any():
+            out = _newton(fam, fam.take(data, rows), start[rows], max_iter, n)
+        else:
+            fitted = np.flatnonzero(done)
+            at = np.searchsorted(fitted, rows)
+            left = fitted[np.clip(at - 1, 0, fitted.size - 1)]
+            right = fitted[np.clip(at, 0, fitted.size - 1)]
+            nearest = np.where(np.abs(rows - left) <= np.abs(right - rows), left, right)
+            out = _newton(fam, fam.take(data, rows), params[nearest], max_iter, n,
+                          hess0=hess[nearest])
+        params[rows], ll[rows], conv[rows], iters[rows], hess[rows] = out
+        done[rows] = True
+        if step == 1:
+            return params, ll, conv, iters
+        step = max(step // chain, 1)
 
 
 def _newton(fam: CopulaFamily, data: tuple, start: NDArray, max_iter: int, n: int,
@@ -293,8 +309,9 @@ def _newton(fam: CopulaFamily, data: tuple, start: NDArray, max_iter: int, n: in
     the last finite-difference Hessians (in the optimiser's coordinates).
 
     Without ``hess0`` the Hessian is recomputed (central differences) at every new point;
-    with it, the given Hessian is kept while steps succeed and only the gradient is taken
-    (forward differences), the Hessian being recomputed after a rejected step.
+    with it, the given Hessian is kept for two iterations while steps succeed and only the
+    gradient is taken (forward differences), the Hessian being recomputed after a rejected
+    step or after those two iterations.
     """
     xlo, xhi, to_x, to_p = _coordinates(fam)
     windows, k = start.shape
@@ -332,7 +349,9 @@ def _newton(fam: CopulaFamily, data: tuple, start: NDArray, max_iter: int, n: in
             hs[:, 0, 1] = hs[:, 1, 0] = cross
         return np.where(np.isfinite(g), g, 0.0), np.where(np.isfinite(hs), hs, -1.0)
 
-    def forward_gradient(rows):
+    def gradient(rows):
+        """Forward-difference gradient alone (the Hessian is kept), inside the box: its
+        bias, half the step times the curvature, moves the optimum by about 5e-7."""
         d = fam.take(data, rows)
         xr = x[rows]
         g = np.empty((rows.size, k))
@@ -365,7 +384,7 @@ def _newton(fam: CopulaFamily, data: tuple, start: NDArray, max_iter: int, n: in
             has_hess[full] = True
         quick = need[has_hess[need] & ~np.isin(need, full)]
         if quick.size:
-            grad[quick] = forward_gradient(quick)
+            grad[quick] = gradient(quick)
         fresh[need] = True
 
         xa, fa, g, hs = x[idx], f[idx], grad[idx].copy(), hess[idx].copy()
@@ -397,8 +416,10 @@ def _newton(fam: CopulaFamily, data: tuple, start: NDArray, max_iter: int, n: in
         ia = idx[accept]
         x[ia], f[ia] = xn[accept], fn[accept]
         fresh[ia] = False
-        if not reuse:
-            has_hess[ia] = False
+        # A borrowed Hessian serves two iterations (usually a step and its confirmation);
+        # afterwards Newton uses its own (a stale one converges only linearly where the
+        # likelihood is flat, e.g. large nu).
+        has_hess[ia] = False if not reuse else has_hess[ia] & (iterations[ia] < 2)
         radius[ia] = np.minimum(np.maximum(radius[ia], 2.0 * sn[accept]), 4.0)
         rej = idx[~accept & ~done]
         radius[rej] = 0.25 * sn[~accept & ~done]

@@ -1,0 +1,701 @@
+"""Regime signals: from a pair's metrics timeline to tail states, alert episodes and a
+universe summary.
+
+Every function here is a pure function of stored timelines (the frames of
+:func:`monitor.rolling.pair_metrics`), so the daily update can recompute the signals of every
+pair from its whole timeline after each run. The work is vectorised over the rows of a
+timeline; Python loops run only over alert episodes.
+
+Method
+------
+For each tail (lower and upper) separately, four statistics are computed on every window end.
+Each has an entry and a lower exit threshold; in :class:`SignalSettings` they sit under the
+names given here.
+
+``sequential`` (cause ``divergence``)
+    A one-sided CUSUM (Page 1954) of the newest day's log-likelihood ratio of a
+    tail-dependent copula against the Gaussian with the same Kendall's tau (columns
+    ``llr_lower`` / ``llr_upper``: Clayton / survival Clayton):
+    ``S_t = min(cap, max(0, S_{t-1} + llr_t - k))``, ``S_0 = 0``. Under a Gaussian copula the
+    increments have negative mean (minus a Kullback-Leibler divergence), so ``S`` hovers near
+    0. After a change to a tail-dependent copula with the same tau they have positive mean
+    and ``S`` climbs linearly. The ceiling ``cap`` keeps the time to recover after the tail
+    regime ends bounded; it does not change when the entry level is first reached.
+``window`` (cause ``divergence``)
+    The window's likelihood evidence that the best tail-dependent candidate beats the
+    Gaussian, ``loglik_best_tail - loglik_gauss``. It counts only while the finite-level
+    excess ``(lambda_emp(q) - C_Gauss(q, q)/q) / se`` is at least ``excess_gate``. Here
+    ``lambda_emp(q)`` is the window's C_n(q, q)/q (or the upper analogue) and ``C_Gauss`` is
+    the Gaussian copula with the window's tau, i.e. what the centre alone implies at level q.
+    The gate tells the tails apart: the best "upper" candidates include families with both
+    tails, which also fit a lower-tail regime.
+``spike`` (cause ``spike``)
+    A robust z-score of the window's empirical tail coefficient against the pair's own
+    history: ``(lambda_t - median_ref) / sqrt((IQR_ref / 1.349)^2 + se_t^2)``. The reference
+    is the ``reference_windows`` window ends just before the current window's first day, so
+    they share no observation with it. The s.e. term keeps the score finite when the history
+    is flat.
+``switch`` (cause ``switch``)
+    A persisting change of the selected family's tail class. A window counts as
+    tail-dependent in a tail when the selected family's model coefficient there is at least
+    ``switch_min_tail`` and its AIC beats the Gaussian's by at least ``switch_aic_margin``. The
+    statistic is the share of such windows among the last ``switch_windows`` minus their
+    share in the reference windows.
+
+State machine, per tail, with hysteresis: a statistic is *active* on a day when it is at or
+above its entry threshold and *quiet* when it is below its exit threshold (missing values
+are quiet). The states are ``calm``, ``watch`` and ``alert``:
+
+- ``watch``: some statistic is active, but not yet for ``entry_days`` days in a row;
+- ``alert``: an episode opens on the ``entry_days``-th consecutive day with an active
+  statistic. It closes on the ``exit_days``-th consecutive day on which every statistic is
+  quiet; that day is calm again.
+
+The ``alert`` column is 1 while either tail is in an episode. An :class:`Episode` records the
+tail and its cause: the cause active on most days of the opening run, ties going to
+divergence, then spike, then switch. It also records the first day of that run (``onset``),
+``start`` (the first alert day), ``end`` (the last alert day, ``None`` while open), and the
+peak of the evidence, i.e. the largest statistic-to-entry-threshold ratio during the episode.
+
+Calibration
+-----------
+The defaults were tuned by ``tests/benchmarks/bench_detection.py`` on calibration seeds of two
+scenarios in :mod:`synthetic_feeds`, run through the real chain: real-time GARCH filtering,
+then the rolling engine with window 250, then these signals. One scenario, ``tail-shift``, is
+Gaussian with tau 0.35 that changes to Clayton with the same tau. The other,
+``steady-pair``, is Gaussian with tau 0.35 for 20 years. The targets were a median delay of
+at most 100 trading days from the change to the first lower-tail alert, and, on the steady
+pair, at most 2 % of windows in alert and at most one false episode per four years, both
+with margin. The tuned thresholds were then checked on separate evaluation seeds; that
+benchmark prints the measured figures.
+
+The CUSUM carries the speed. With exact likelihood ratios and reference value ``k = 0``, a
+false alarm comes on average no sooner than ``exp(h)`` days (Lorden 1971). A tail regime is
+detected after about ``h / KL`` days, where ``KL`` (about 0.055 nats a day at tau 0.35) is the
+Clayton-to-Gaussian divergence. Window statistics need the window to fill with the new
+regime (about 150 days at window 250).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from numpy.typing import ArrayLike, NDArray
+
+from .arrays import read_only
+from .errors import InputError
+
+__all__ = [
+    "CAUSES",
+    "SIGNAL_COLUMNS",
+    "STATES",
+    "STATISTICS",
+    "TAILS",
+    "Episode",
+    "PairSignals",
+    "SignalSettings",
+    "cusum",
+    "hysteresis",
+    "pair_signals",
+    "robust_z_against_history",
+    "universe_summary",
+]
+
+TAILS = ("lower", "upper")
+#: Pair states, in order of severity.
+STATES = ("calm", "watch", "alert")
+CAUSES = ("divergence", "spike", "switch")
+#: Signal statistics and the cause each one reports; their order breaks ties between causes.
+STATISTICS: Mapping[str, str] = {"sequential": "divergence", "window": "divergence",
+                                 "spike": "spike", "switch": "switch"}
+
+#: Timeline columns the signals read.
+REQUIRED_COLUMNS = (
+    "date", "start", "kendall_tau", "aic", "aic_gauss", "loglik_gauss", "tail_lower",
+    "tail_upper", "tail_lower_emp", "tail_upper_emp", "tail_lower_emp_se", "tail_upper_emp_se",
+    "gauss_tail_q", "loglik_best_lower", "loglik_best_upper", "llr_lower", "llr_upper",
+)
+
+#: Columns :func:`pair_signals` adds to a timeline (``{t}`` is ``lower`` or ``upper``).
+SIGNAL_COLUMNS = tuple(
+    f"{name}_{t}" for t in TAILS
+    for name in ("excess", "window", "sequential", "spike", "switch", "evidence", "state",
+                 "alert")
+) + ("alert",)
+
+#: Normal-consistency constant of the interquartile range: IQR of N(0, 1) = 2 * 0.6745.
+IQR_TO_SIGMA = 1.3489795003921634
+
+
+@dataclass(frozen=True, slots=True)
+class SignalSettings:
+    """Every threshold of the regime signals; the defaults are calibrated (module docstring).
+
+    Parameters
+    ----------
+    cusum_reference : float
+        Reference value ``k`` subtracted from each day's log-likelihood ratio (nats); a
+        margin against model error of the plug-in ratio. 0 is Page's likelihood-ratio CUSUM.
+    cusum_entry, cusum_exit : float
+        Entry level ``h`` and exit level of the CUSUM (nats), ``0 <= exit <= entry``.
+    cusum_cap : float
+        Ceiling of the CUSUM, at least ``cusum_entry``; bounds the time to recover.
+    window_entry, window_exit : float
+        Thresholds of the window log-likelihood ratio, best tail family against Gaussian.
+    excess_gate : float
+        Least standardised finite-level tail excess for the window statistic to count.
+    spike_entry, spike_exit : float
+        Thresholds of the robust z-score of the empirical tail coefficient.
+    reference_windows : int
+        Window ends in the trailing, non-overlapping reference (a year at step 1).
+    switch_min_tail : float
+        Least model tail coefficient for a window to count as tail-dependent.
+    switch_aic_margin : float
+        Least AIC advantage over the Gaussian for that window to count.
+    switch_windows : int
+        Recent window ends whose share is compared with the reference share.
+    switch_entry, switch_exit : float
+        Thresholds of that difference of shares, at most 1.
+
+    An entry threshold of ``inf`` switches its statistic off.
+    entry_days, exit_days : int
+        Consecutive days a statistic must be active to open an episode, and consecutive days
+        every statistic must be quiet to close it.
+    """
+
+    cusum_reference: float = 0.0
+    cusum_entry: float = 5.0
+    cusum_exit: float = 3.0
+    cusum_cap: float = 7.5
+    window_entry: float = 8.0
+    window_exit: float = 4.0
+    excess_gate: float = 0.5
+    spike_entry: float = 3.0
+    spike_exit: float = 1.5
+    reference_windows: int = 250
+    switch_min_tail: float = 0.1
+    switch_aic_margin: float = 2.0
+    switch_windows: int = 60
+    switch_entry: float = 0.9
+    switch_exit: float = 0.5
+    entry_days: int = 5
+    exit_days: int = 10
+
+    def __post_init__(self) -> None:
+        for name in ("reference_windows", "switch_windows", "entry_days", "exit_days"):
+            value = getattr(self, name)
+            if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < 1:
+                raise ValueError(f"{name} must be an integer >= 1, got {value!r}")
+        for name in ("cusum_reference", "cusum_entry", "cusum_exit", "cusum_cap",
+                     "window_entry", "window_exit", "excess_gate", "spike_entry", "spike_exit",
+                     "switch_min_tail", "switch_aic_margin", "switch_entry", "switch_exit"):
+            value = getattr(self, name)
+            if isinstance(value, bool) or not isinstance(value, int | float | np.floating):
+                raise TypeError(f"{name} must be a number, got {type(value).__name__}")
+            # An infinite entry threshold switches that statistic off.
+            if not (np.isfinite(value) or (name.endswith("_entry") and value == np.inf)):
+                raise ValueError(f"{name} must be finite, got {value!r}")
+        for stat in ("cusum", "window", "spike", "switch"):
+            entry, exit_ = getattr(self, f"{stat}_entry"), getattr(self, f"{stat}_exit")
+            if exit_ > entry:
+                raise ValueError(f"{stat}_exit ({exit_}) must not exceed {stat}_entry ({entry})")
+        if self.cusum_exit < 0 or self.cusum_entry <= 0:
+            raise ValueError("cusum_entry must be > 0 and cusum_exit >= 0")
+        if np.isfinite(self.cusum_entry) and self.cusum_cap < self.cusum_entry:
+            raise ValueError(f"cusum_cap ({self.cusum_cap}) must be at least cusum_entry "
+                             f"({self.cusum_entry})")
+        if not (0 < self.switch_entry <= 1 or self.switch_entry == np.inf):
+            raise ValueError(f"switch_entry must be in (0, 1] or inf, got {self.switch_entry}")
+        for name in ("window_entry", "spike_entry"):
+            if getattr(self, name) <= 0:
+                raise ValueError(f"{name} must be > 0, got {getattr(self, name)}")
+
+    @property
+    def key(self) -> str:
+        """Stable key naming these settings, e.g. for stored states and episodes."""
+        return (f"cusum{self.cusum_reference:g}:{self.cusum_entry:g}-{self.cusum_exit:g}"
+                f":cap{self.cusum_cap:g}/window{self.window_entry:g}-{self.window_exit:g}"
+                f":gate{self.excess_gate:g}/spike{self.spike_entry:g}-{self.spike_exit:g}"
+                f":ref{self.reference_windows}/switch{self.switch_entry:g}-"
+                f"{self.switch_exit:g}:tail{self.switch_min_tail:g}:aic"
+                f"{self.switch_aic_margin:g}:last{self.switch_windows}/days"
+                f"{self.entry_days}-{self.exit_days}/v1")
+
+    def thresholds(self, statistic: str) -> tuple[float, float]:
+        """(entry, exit) thresholds of a statistic named in :data:`STATISTICS`."""
+        prefix = "cusum" if statistic == "sequential" else statistic
+        if statistic not in STATISTICS:
+            raise ValueError(f"unknown statistic {statistic!r}; known: {', '.join(STATISTICS)}")
+        return getattr(self, f"{prefix}_entry"), getattr(self, f"{prefix}_exit")
+
+
+@dataclass(frozen=True, slots=True)
+class Episode:
+    """One alert episode of one tail of a pair.
+
+    Attributes
+    ----------
+    tail : {"lower", "upper"}
+    cause : {"divergence", "spike", "switch"}
+    statistic : str
+        The statistic behind the cause (a key of :data:`STATISTICS`).
+    onset : Timestamp
+        First day of the run of active evidence that opened the episode.
+    start : Timestamp
+        First day in alert (the ``entry_days``-th day of that run).
+    end : Timestamp or None
+        Last day in alert; ``None`` while the episode is open.
+    peak_date : Timestamp
+        Day of the largest evidence during the episode.
+    peak_value : float
+        That evidence: the largest ratio of a statistic to its entry threshold (>= 1).
+    peak_tail_emp, peak_tail_model, peak_gauss_tail, peak_kendall_tau : float
+        On the peak day: the empirical tail coefficient C_n(q,q)/q (or its upper analogue),
+        the selected family's tail coefficient, the Gaussian C(q,q)/q at the window's tau, and
+        Kendall's tau.
+    """
+
+    tail: str
+    cause: str
+    statistic: str
+    onset: pd.Timestamp
+    start: pd.Timestamp
+    end: pd.Timestamp | None
+    peak_date: pd.Timestamp
+    peak_value: float
+    peak_tail_emp: float
+    peak_tail_model: float
+    peak_gauss_tail: float
+    peak_kendall_tau: float
+
+    @property
+    def is_open(self) -> bool:
+        """Whether the episode is still running at the end of the timeline."""
+        return self.end is None
+
+    def to_dict(self) -> dict[str, object]:
+        """JSON-ready form: dates as ``YYYY-MM-DD`` (``end`` ``None`` while open)."""
+        def iso(d: pd.Timestamp | None) -> str | None:
+            return None if d is None else d.strftime("%Y-%m-%d")
+
+        return {"tail": self.tail, "cause": self.cause, "statistic": self.statistic,
+                "onset": iso(self.onset), "start": iso(self.start), "end": iso(self.end),
+                "peak_date": iso(self.peak_date), "peak_value": self.peak_value,
+                "peak_tail_emp": self.peak_tail_emp, "peak_tail_model": self.peak_tail_model,
+                "peak_gauss_tail": self.peak_gauss_tail,
+                "peak_kendall_tau": self.peak_kendall_tau}
+
+
+@dataclass(frozen=True, slots=True)
+class PairSignals:
+    """Signals of one pair: the timeline with the :data:`SIGNAL_COLUMNS` added, its episodes
+    (in start order, both tails) and the settings that produced them."""
+
+    frame: pd.DataFrame
+    episodes: tuple[Episode, ...]
+    settings: SignalSettings = field(default_factory=SignalSettings)
+
+    def episodes_frame(self) -> pd.DataFrame:
+        """The episodes as a table, one row each (columns are :class:`Episode`'s fields)."""
+        cols = list(Episode.__slots__)
+        return pd.DataFrame([[getattr(e, c) for c in cols] for e in self.episodes],
+                            columns=cols)
+
+
+# ----------------------------------------------------------------------- building blocks
+def cusum(increments: ArrayLike, reference: float = 0.0, cap: float = np.inf
+          ) -> NDArray[np.float64]:
+    """One-sided CUSUM ``S_t = min(cap, max(0, S_{t-1} + x_t - k))`` with ``S_0 = 0``.
+
+    Parameters
+    ----------
+    increments : array_like
+        The per-day scores ``x_t`` along the last axis (a batch of series may lead); NaN
+        counts as "no observation" and leaves ``S`` unchanged that day.
+    reference : float
+        Reference value (drift allowance) ``k``.
+    cap : float
+        Ceiling (``inf`` for none); must be >= 0.
+
+    Returns
+    -------
+    ndarray
+        ``S_t`` for every t, same shape as ``increments`` (read-only).
+
+    Notes
+    -----
+    Page (1954), "Continuous inspection schemes", *Biometrika* 41, 100-115. The recursion is
+    evaluated without a loop over days. The lower reflection alone is the Lindley recursion:
+    from a level ``L``, with partial sums ``W_t`` of ``x - k``,
+    ``S_t = L + W_t - min(0, L + min_{r<=t} W_r)``. The upper reflection is the mirror image,
+    ``S_t = L + W_t - max(0, L + max_{r<=t} W_r - cap)``. The two alternate, each running
+    until the path first hits the other barrier, so the loop runs once per crossing between
+    0 and the cap.
+
+    Examples
+    --------
+    >>> cusum([1.0, -0.5, 2.0, -4.0, 1.0], reference=0.5).tolist()
+    [0.5, 0.0, 1.5, 0.0, 0.5]
+    """
+    x = np.asarray(increments, dtype=float)
+    if x.ndim == 0:
+        raise ValueError("increments must have at least one axis (days)")
+    if not np.isfinite(reference) or not cap >= 0:
+        raise ValueError(f"reference must be finite and cap >= 0, got {reference}, {cap}")
+    steps = np.where(np.isnan(x), 0.0, x - reference)
+    flat = steps.reshape(-1, steps.shape[-1])
+    out = np.empty_like(flat)
+    for row in range(flat.shape[0]):
+        out[row] = _reflected_path(flat[row], float(cap))
+    return read_only(out.reshape(x.shape))
+
+
+def _reflected_path(steps: NDArray[np.float64], cap: float) -> NDArray[np.float64]:
+    n = steps.size
+    out = np.empty(n)
+    pos, level, lower = 0, 0.0, True
+    while pos < n:
+        w = np.cumsum(steps[pos:])
+        if lower:
+            path = level + w - np.minimum(0.0, level + np.minimum.accumulate(w))
+            hit = np.flatnonzero(path > cap)
+        else:
+            path = level + w - np.maximum(0.0, level + np.maximum.accumulate(w) - cap)
+            hit = np.flatnonzero(path < 0.0)
+        stop = hit[0] if hit.size else path.size
+        out[pos:pos + stop] = path[:stop]
+        if not hit.size:
+            break
+        # The crossing day sits on the barrier just hit; the other reflection starts there.
+        level = cap if lower else 0.0
+        out[pos + stop] = level
+        pos += stop + 1
+        lower = not lower
+    return out
+
+
+def _run_lengths(flags: NDArray[np.bool_]) -> NDArray[np.int64]:
+    """Length of the run of True ending at each position (0 where False)."""
+    idx = np.arange(flags.size)
+    last_false = np.maximum.accumulate(np.where(flags, -1, idx))
+    return np.where(flags, idx - last_false, 0)
+
+
+def hysteresis(active: ArrayLike, quiet: ArrayLike, entry_days: int, exit_days: int
+               ) -> list[tuple[int, int | None]]:
+    """Alert spells from daily flags: open after ``entry_days`` active days in a row, close
+    after ``exit_days`` quiet days in a row.
+
+    Parameters
+    ----------
+    active, quiet : array_like of bool
+        Per day: evidence at or above the entry level; evidence below the exit level. A day
+        may be neither (between the levels) but not both.
+    entry_days, exit_days : int
+        Persistence needed to open and to close (>= 1).
+
+    Returns
+    -------
+    list of (int, int or None)
+        ``(first_alert_day, closing_day)`` positions; the closing day is the first day back
+        out of alert (``None`` while still open at the end).
+
+    Notes
+    -----
+    A two-level (Schmitt-trigger) rule with persistence counts. The runs of active and of
+    quiet days are computed for the whole series at once. Since no day is both active and
+    quiet, a run that opens an episode cannot have started before the previous closing day.
+    So the loop runs once per episode.
+
+    Examples
+    --------
+    >>> a = [0, 1, 1, 1, 0, 0, 0, 0, 1, 0]
+    >>> q = [1, 0, 0, 0, 1, 1, 0, 1, 0, 1]
+    >>> hysteresis(a, q, 3, 2)
+    [(3, 5)]
+    """
+    a = np.asarray(active, dtype=bool)
+    q = np.asarray(quiet, dtype=bool)
+    if a.shape != q.shape or a.ndim != 1:
+        raise ValueError("active and quiet must be 1-D and of equal length")
+    if (a & q).any():
+        raise ValueError("a day cannot be both active and quiet")
+    if entry_days < 1 or exit_days < 1:
+        raise ValueError("entry_days and exit_days must be >= 1")
+    opens = np.flatnonzero(_run_lengths(a) >= entry_days)
+    closes = np.flatnonzero(_run_lengths(q) >= exit_days)
+    spells: list[tuple[int, int | None]] = []
+    after = 0
+    while True:
+        i = np.searchsorted(opens, after)
+        if i == opens.size:
+            return spells
+        first = int(opens[i])
+        j = np.searchsorted(closes, first, side="right")
+        if j == closes.size:
+            spells.append((first, None))
+            return spells
+        close = int(closes[j])
+        spells.append((first, close))
+        after = close + 1
+
+
+def robust_z_against_history(values: ArrayLike, se: ArrayLike, reference_end: ArrayLike,
+                             length: int) -> NDArray[np.float64]:
+    """Robust z-score of each value against a trailing block of the same series.
+
+    Parameters
+    ----------
+    values : array_like
+        The series ``x`` (one value per window end).
+    se : array_like
+        Standard error of each value.
+    reference_end : array_like of int
+        For each position, one past the last position of its reference block; the block is
+        the ``length`` positions before it.
+    length : int
+        Reference length; positions with a shorter history get NaN.
+
+    Returns
+    -------
+    ndarray
+        ``(x_t - median_ref) / sqrt((IQR_ref / 1.349)^2 + se_t^2)``, read-only.
+
+    Notes
+    -----
+    The median and the interquartile range scaled to a normal standard deviation
+    (IQR / 1.349) are the usual robust location and scale (common practice). The s.e. in the
+    denominator keeps the score finite when the history is flat, and it stands for the
+    current value's own sampling error, which the spread of a block of overlapping windows
+    understates.
+    """
+    x = pd.Series(np.asarray(values, dtype=float))
+    roll = x.rolling(length, min_periods=length)
+    med = roll.median().to_numpy()
+    iqr = (roll.quantile(0.75) - roll.quantile(0.25)).to_numpy()
+    end = np.asarray(reference_end, dtype=np.intp) - 1
+    ok = end >= length - 1
+    at = np.where(ok, end, 0)
+    scale = np.sqrt((iqr[at] / IQR_TO_SIGMA) ** 2 + np.asarray(se, dtype=float) ** 2)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        z = np.where(ok & (scale > 0), (x.to_numpy() - med[at]) / scale, np.nan)
+    return read_only(z)
+
+
+# ----------------------------------------------------------------------------- one pair
+def _check_timeline(timeline: pd.DataFrame) -> pd.DataFrame:
+    if not isinstance(timeline, pd.DataFrame):
+        raise TypeError(f"timeline must be a pandas DataFrame, got {type(timeline).__name__}")
+    missing = [c for c in REQUIRED_COLUMNS if c not in timeline.columns]
+    if missing:
+        raise InputError(f"timeline: missing column(s) {', '.join(missing)}")
+    frame = timeline.reset_index(drop=True)
+    dates = pd.to_datetime(frame["date"])
+    if len(frame) and not (dates.diff().dropna() > pd.Timedelta(0)).all():
+        bad = int(np.flatnonzero(~(dates.diff() > pd.Timedelta(0)).to_numpy()[1:])[0] + 1)
+        raise InputError(f"timeline: dates must be strictly increasing (row {bad}, "
+                         f"{dates.iloc[bad].date()})")
+    return frame
+
+
+def _tail_statistics(frame: pd.DataFrame, tail: str, s: SignalSettings,
+                     reference_end: NDArray[np.intp]) -> dict[str, NDArray[np.float64]]:
+    def num(name: str) -> NDArray[np.float64]:
+        return pd.to_numeric(frame[name], errors="coerce").to_numpy(dtype=float,
+                                                                   na_value=np.nan)
+
+    emp, se = num(f"tail_{tail}_emp"), num(f"tail_{tail}_emp_se")
+    with np.errstate(divide="ignore", invalid="ignore"):
+        diff = emp - num("gauss_tail_q")
+        # Where the binomial s.e. is 0 the estimate is 0 (no joint exceedance): no excess.
+        excess = np.where(se > 0, diff / se, np.where(diff > 0, np.inf, 0.0))
+    ratio = num(f"loglik_best_{tail}") - num("loglik_gauss")
+    window = np.where(excess >= s.excess_gate, ratio, np.minimum(ratio, 0.0))
+    sequential = np.asarray(cusum(num(f"llr_{tail}"), s.cusum_reference, s.cusum_cap))
+    spike = np.asarray(robust_z_against_history(emp, se, reference_end, s.reference_windows))
+    counts = ((num(f"tail_{tail}") >= s.switch_min_tail)
+              & (num("aic_gauss") - num("aic") >= s.switch_aic_margin)).astype(float)
+    recent = pd.Series(counts).rolling(s.switch_windows, min_periods=s.switch_windows).mean()
+    past = pd.Series(counts).rolling(s.reference_windows,
+                                     min_periods=s.reference_windows).mean().to_numpy()
+    end = reference_end - 1
+    ok = end >= s.reference_windows - 1
+    switch = np.where(ok, recent.to_numpy() - past[np.where(ok, end, 0)], np.nan)
+    return {"excess": excess, "window": window, "sequential": sequential, "spike": spike,
+            "switch": switch}
+
+
+def _tail_episodes(frame: pd.DataFrame, tail: str, stats: dict[str, NDArray[np.float64]],
+                   s: SignalSettings
+                   ) -> tuple[NDArray[np.float64], NDArray[np.bool_], NDArray, list[Episode]]:
+    names = list(STATISTICS)
+    values = np.stack([stats[n] for n in names])
+    entry = np.array([s.thresholds(n)[0] for n in names])[:, None]
+    exit_ = np.array([s.thresholds(n)[1] for n in names])[:, None]
+    # NaN (no history yet) and -inf (no tail candidate) are no evidence; +inf is.
+    finite = np.isfinite(values) | (values == np.inf)
+    active_each = finite & (values >= entry)
+    quiet = ~(finite & (values >= exit_)).any(axis=0)
+    active = active_each.any(axis=0)
+    with np.errstate(invalid="ignore"):
+        strength = np.where(finite, values / entry, 0.0)
+    evidence = np.clip(strength.max(axis=0), 0.0, None)
+    n = len(frame)
+    alert = np.zeros(n, dtype=bool)
+    dates = pd.to_datetime(frame["date"]).reset_index(drop=True)
+    episodes = []
+    for first, close in hysteresis(active, quiet, s.entry_days, s.exit_days):
+        stop = n if close is None else close
+        alert[first:stop] = True
+        run_start = first - s.entry_days + 1
+        days_active = active_each[:, run_start:first + 1].sum(axis=1)
+        best = int(np.argmax(days_active))  # first maximum: STATISTICS order breaks ties
+        peak = first + int(np.argmax(evidence[first:stop]))
+        row = frame.iloc[peak]
+        episodes.append(Episode(
+            tail=tail, cause=STATISTICS[names[best]], statistic=names[best],
+            onset=dates[run_start], start=dates[first],
+            end=None if close is None else dates[close - 1], peak_date=dates[peak],
+            peak_value=float(evidence[peak]), peak_tail_emp=float(row[f"tail_{tail}_emp"]),
+            peak_tail_model=float(row[f"tail_{tail}"]),
+            peak_gauss_tail=float(row["gauss_tail_q"]),
+            peak_kendall_tau=float(row["kendall_tau"])))
+    state = np.where(alert, "alert", np.where(active, "watch", "calm"))
+    return evidence, alert, state, episodes
+
+
+def pair_signals(timeline: pd.DataFrame, settings: SignalSettings | None = None
+                 ) -> PairSignals:
+    """Tail-divergence, spike and switch signals, states and alert episodes of one pair.
+
+    Parameters
+    ----------
+    timeline : pandas.DataFrame
+        The pair's metrics timeline, one row per window end in date order, with at least
+        the columns in ``REQUIRED_COLUMNS`` (as made by
+        :func:`monitor.rolling.pair_metrics`).
+    settings : SignalSettings, optional
+        Thresholds; the calibrated defaults if omitted.
+
+    Returns
+    -------
+    PairSignals
+        ``frame`` is the timeline (fresh index) with :data:`SIGNAL_COLUMNS` added per tail.
+        These are ``excess_*`` (standardised finite-level excess over the Gaussian at the
+        same tau), ``window_*``, ``sequential_*``, ``spike_*`` and ``switch_*`` (the four
+        statistics), ``evidence_*`` (largest statistic-to-entry ratio), ``state_*`` (one of
+        :data:`STATES`), ``alert_*`` (0/1) and ``alert`` (1 while either tail is in an
+        episode).
+
+    Raises
+    ------
+    InputError
+        If a required column is missing or the dates are not strictly increasing.
+
+    Notes
+    -----
+    The method and its sources are in the module docstring: Page (1954) for the CUSUM; the
+    Gaussian tail concordance C(q, q)/q at rho = sin(pi tau / 2) (Lindskog, McNeil & Schmock
+    2003, for the tau-rho relation); Clayton with theta = 2 tau / (1 - tau) (Joe 1997, family
+    B4) as the tail-dependent alternative.
+
+    Examples
+    --------
+    >>> from monitor.rolling import RollingSettings, pair_metrics, window_end_positions
+    >>> from monitor.copulas import family
+    >>> import numpy as np, pandas as pd
+    >>> from scipy import stats
+    >>> uv = family("gaussian").sample(400, (0.5,), np.random.default_rng(3))
+    >>> z = stats.norm.ppf(uv)
+    >>> dates = pd.bdate_range("2020-01-01", periods=400)
+    >>> rs = RollingSettings(window=250, families=("gaussian", "clayton"))
+    >>> m = pair_metrics(dates, z[:, 0], z[:, 1], rs, window_end_positions(400, rs))
+    >>> sig = pair_signals(m.frame)
+    >>> int(sig.frame["alert"].sum()), len(sig.episodes)
+    (0, 0)
+    """
+    s = settings if settings is not None else SignalSettings()
+    if not isinstance(s, SignalSettings):
+        raise TypeError(f"settings must be SignalSettings, got {type(s).__name__}")
+    frame = _check_timeline(timeline)
+    dates = pd.to_datetime(frame["date"]).to_numpy()
+    starts = pd.to_datetime(frame["start"]).to_numpy()
+    # Reference windows end before the current window's first day: no shared observation.
+    reference_end = np.searchsorted(dates, starts, side="left")
+    new: dict[str, object] = {}
+    episodes: list[Episode] = []
+    any_alert = np.zeros(len(frame), dtype=bool)
+    for tail in TAILS:
+        stats = _tail_statistics(frame, tail, s, reference_end)
+        evidence, alert, state, eps = _tail_episodes(frame, tail, stats, s)
+        for name in ("excess", "window", "sequential", "spike", "switch"):
+            new[f"{name}_{tail}"] = stats[name]
+        new[f"evidence_{tail}"] = evidence
+        new[f"state_{tail}"] = pd.array(state.astype(str), dtype="string")
+        new[f"alert_{tail}"] = alert.astype(np.int64)
+        any_alert |= alert
+        episodes.extend(eps)
+    new["alert"] = any_alert.astype(np.int64)
+    out = frame.drop(columns=[c for c in SIGNAL_COLUMNS if c in frame.columns])
+    out = pd.concat([out, pd.DataFrame(new, index=out.index)], axis=1)
+    episodes.sort(key=lambda e: (e.start, TAILS.index(e.tail)))
+    return PairSignals(out, tuple(episodes), s)
+
+
+# ------------------------------------------------------------------------------ universe
+def universe_summary(frames: Mapping[object, pd.DataFrame] | Iterable[pd.DataFrame]
+                     ) -> pd.DataFrame:
+    """Universe-level state over time from many pairs' signal frames.
+
+    Parameters
+    ----------
+    frames : mapping of pair -> DataFrame, or iterable of DataFrames
+        ``PairSignals.frame`` of each pair (at least ``date``, ``alert``, ``alert_lower``,
+        ``alert_upper``, ``kendall_tau``, ``tail_lower``, ``tail_upper``, ``tail_lower_emp``,
+        ``tail_upper_emp``).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Indexed by ``date`` (every date on which some pair has a window end), with columns
+        ``n_pairs`` (pairs with a window end that day), ``n_alert``, ``share_alert``
+        (``n_alert / n_pairs``), ``n_alert_lower``, ``n_alert_upper``, and the cross-pair means
+        ``kendall_tau``, ``tail_lower``, ``tail_upper``, ``tail_lower_emp``, ``tail_upper_emp``
+        (over the pairs with a value that day).
+
+    Notes
+    -----
+    Pairs trade on different calendars, so each date's figures are over the pairs with a
+    window end on that date; no value is carried forward.
+    """
+    items = list(frames.values()) if isinstance(frames, Mapping) else list(frames)
+    means = ["kendall_tau", "tail_lower", "tail_upper", "tail_lower_emp", "tail_upper_emp"]
+    counts = ["alert", "alert_lower", "alert_upper"]
+    cols = ["date", *counts, *means]
+    parts = []
+    for i, f in enumerate(items):
+        missing = [c for c in cols if c not in f.columns]
+        if missing:
+            raise InputError(f"signal frame {i}: missing column(s) {', '.join(missing)}")
+        part = f[cols].copy()
+        part["date"] = pd.to_datetime(part["date"])
+        parts.append(part)
+    out_cols = ["n_pairs", "n_alert", "share_alert", "n_alert_lower", "n_alert_upper", *means]
+    if not parts or all(len(p) == 0 for p in parts):
+        return pd.DataFrame(columns=out_cols, index=pd.DatetimeIndex([], name="date"))
+    long = pd.concat([p for p in parts if len(p)], ignore_index=True)
+    for c in [*counts, *means]:
+        long[c] = pd.to_numeric(long[c], errors="coerce").astype(float)
+    g = long.groupby("date", sort=True)
+    out = pd.DataFrame({"n_pairs": g.size().astype(np.int64)})
+    out["n_alert"] = g["alert"].sum().astype(np.int64)
+    out["share_alert"] = out["n_alert"] / out["n_pairs"]
+    out["n_alert_lower"] = g["alert_lower"].sum().astype(np.int64)
+    out["n_alert_upper"] = g["alert_upper"].sum().astype(np.int64)
+    for c in means:
+        out[c] = g[c].mean()
+    out.index.name = "date"
+    return out[out_cols]
