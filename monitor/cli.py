@@ -14,6 +14,8 @@ import sys
 import traceback
 from collections.abc import Sequence
 
+import pandas as pd
+
 from .config import Config, load_config
 from .errors import InputError
 
@@ -254,7 +256,7 @@ def _cmd_ingest(args: argparse.Namespace, cfg: Config) -> int:
 
 
 def _write_csv(frame, out: str | None) -> None:
-    text = frame.to_csv(float_format="%.17g", date_format="%Y-%m-%d")
+    text = frame.to_csv(date_format="%Y-%m-%d")  # floats as the shortest exact repr
     if out:
         try:
             with open(out, "w", encoding="utf-8", newline="") as fh:
@@ -268,8 +270,8 @@ def _write_csv(frame, out: str | None) -> None:
 def _cmd_export(args: argparse.Namespace, cfg: Config) -> int:
     from .store import Store
 
-    if args.what != "returns":
-        return _not_yet("export")(args, cfg)
+    if args.what == "timeline":
+        return _export_timeline(args, cfg)
     with Store(cfg.store.url, create=False) as store:
         known = store.assets()
         if args.assets:
@@ -297,6 +299,45 @@ def _cmd_synth(args: argparse.Namespace, cfg: Config) -> int:
     prices_path, truth_path = write_scenario(args.scenario, args.out, seed=args.seed)
     print(f"{args.scenario} (seed {args.seed}): {SCENARIOS[args.scenario]}")
     print(f"  wrote {prices_path} and {truth_path} (invented data, for demos and tests)")
+    return 0
+
+
+#: DESIGN.md's timeline columns, in contract order; the rest follow.
+TIMELINE_COLUMNS = ("date", "n", "kendall_tau", "spearman_rho", "family", "rotation",
+                    "tail_lower", "tail_upper", "tail_lower_emp", "tail_upper_emp", "alert")
+
+
+def _export_timeline(args: argparse.Namespace, cfg: Config) -> int:
+    from .pipeline import marginal_settings, read_pair_signals
+    from .store import Store
+
+    a, b = args.pair
+    if a == b:
+        raise InputError("--pair: the two assets must differ")
+    with Store(cfg.store.url, create=False) as store:
+        swapped = False
+        sig = read_pair_signals(store, cfg, a, b)
+        if sig is None:
+            sig = read_pair_signals(store, cfg, b, a)
+            swapped = sig is not None
+        if sig is None:
+            known = store.assets()
+            for asset in (a, b):
+                if asset not in known:
+                    raise InputError(f"--pair: no stored returns for {asset!r} "
+                                     f"(stored: {', '.join(known) or 'none'})")
+            raise InputError(f"--pair {a} {b}: no rolling metrics stored under the current "
+                             "settings (run 'comove update')")
+    frame = sig.frame.copy()
+    if swapped:
+        # Swapping the columns turns a 90-degree rotation into a 270-degree one.
+        frame["rotation"] = frame["rotation"].replace({90: 270, 270: 90})
+    frame["marginal_mode"] = marginal_settings(cfg).mode
+    rest = [c for c in frame.columns if c not in TIMELINE_COLUMNS]
+    frame = frame[[*TIMELINE_COLUMNS, *rest]]
+    frame["date"] = pd.to_datetime(frame["date"]).dt.strftime("%Y-%m-%d")
+    frame["start"] = pd.to_datetime(frame["start"]).dt.strftime("%Y-%m-%d")
+    _write_csv(frame.set_index("date"), args.out)
     return 0
 
 

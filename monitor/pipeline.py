@@ -29,6 +29,7 @@ from .ingest import (
 )
 from .marginals import FilteredSeries, MarginalSettings, extend_series, filter_series
 from .rolling import RollingSettings, pair_metrics, window_end_positions
+from .signals import PairSignals, SignalSettings, pair_signals, universe_summary
 from .store import Store
 
 
@@ -270,11 +271,92 @@ def update_rolling(store: Store, cfg: Config, *, progress: bool = True) -> Rolli
     return RollingSummary(key, len(pairs), len(tasks), new, cfg.compute.backend)
 
 
+# ----------------------------------------------------------------------------- signals
+def signals_key(cfg: Config, settings: SignalSettings | None = None) -> str:
+    """Settings key of stored episodes: rolling key plus the signal thresholds."""
+    settings = settings or SignalSettings()
+    return f"{rolling_settings(cfg).key(marginal_settings(cfg).key)}|{settings.key}"
+
+
+def read_pair_signals(store: Store, cfg: Config, a: str, b: str,
+                      settings: SignalSettings | None = None) -> PairSignals | None:
+    """A pair's signals from its stored timeline (None when nothing is stored)."""
+    key = rolling_settings(cfg).key(marginal_settings(cfg).key)
+    timeline = store.read_timeline(key, a, b)
+    if timeline.empty:
+        return None
+    return pair_signals(timeline, settings)
+
+
+def _episode_row(e) -> dict:
+    return {"tail": e.tail, "start": e.start.date(), "onset": e.onset.date(),
+            "end": None if e.end is None else e.end.date(), "cause": e.cause,
+            "statistic": e.statistic, "peak_date": e.peak_date.date(),
+            "peak_value": float(e.peak_value), "peak_tail_emp": float(e.peak_tail_emp),
+            "peak_tail_model": float(e.peak_tail_model),
+            "peak_gauss_tail": float(e.peak_gauss_tail),
+            "peak_kendall_tau": float(e.peak_kendall_tau)}
+
+
+@dataclass(frozen=True, slots=True)
+class SignalSummary:
+    settings_key: str
+    pairs: int
+    in_alert: tuple[tuple[str, str, str], ...]
+    new_episodes: int
+    ended_episodes: int
+
+    def lines(self) -> list[str]:
+        out = [(f"signals: {len(self.in_alert)} of {self.pairs} pair(s) in alert; "
+               f"{self.new_episodes} new episode(s), {self.ended_episodes} ended")]
+        for a, b, tails in self.in_alert[:20]:
+            out.append(f"  in alert: {a}/{b} ({tails} tail)")
+        if len(self.in_alert) > 20:
+            out.append(f"  ... and {len(self.in_alert) - 20} more")
+        return out
+
+
+def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | None = None
+                   ) -> SignalSummary:
+    """Recompute every pair's signals from its stored timeline and store its episodes,
+    each pair in its own transaction."""
+    settings = SignalSettings()
+    r_key = rolling_settings(cfg).key(marginal_settings(cfg).key)
+    key = signals_key(cfg, settings)
+    pairs = pairs if pairs is not None else store.stored_pairs(r_key)
+    in_alert, new_n, ended_n = [], 0, 0
+    for a, b in sorted(pairs):
+        timeline = store.read_timeline(r_key, a, b)
+        if timeline.empty:
+            continue
+        sig = pair_signals(timeline, settings)
+        last = sig.frame.iloc[-1]
+        tails = [t for t in ("lower", "upper") if last[f"alert_{t}"]]
+        if tails:
+            in_alert.append((a, b, " and ".join(tails)))
+        with store.transaction() as conn:
+            new, ended = store.sync_episodes(conn, key, a, b,
+                                             [_episode_row(e) for e in sig.episodes])
+        new_n += len(new)
+        ended_n += len(ended)
+    return SignalSummary(key, len(pairs), tuple(in_alert), new_n, ended_n)
+
+
+def read_universe_summary(store: Store, cfg: Config) -> pd.DataFrame:
+    """The universe-level summary over time (share of pairs in alert, mean tau and tails)."""
+    r_key = rolling_settings(cfg).key(marginal_settings(cfg).key)
+    frames = {}
+    for a, b in store.stored_pairs(r_key):
+        frames[(a, b)] = pair_signals(store.read_timeline(r_key, a, b)).frame
+    return universe_summary(frames)
+
+
 @dataclass(frozen=True, slots=True)
 class UpdateSummary:
     ingested: tuple[IngestReport, ...]
     marginals: MarginalSummary
     rolling: RollingSummary
+    signals: SignalSummary
     seconds: float
 
     def lines(self) -> list[str]:
@@ -283,17 +365,19 @@ class UpdateSummary:
             out.extend(rep.lines())
         out.extend(self.marginals.lines())
         out.extend(self.rolling.lines())
+        out.extend(self.signals.lines())
         out.append(f"update finished in {self.seconds:.1f} s")
         return out
 
 
 def run_update(cfg: Config, *, progress: bool = True) -> UpdateSummary:
-    """The whole daily job: configured sources, marginals, the rolling engine (then, as they
-    arrive, signals and the alert queue)."""
+    """The whole daily job: configured sources, marginals, the rolling engine, signals (then,
+    as it arrives, the alert queue)."""
     t0 = time.perf_counter()
     sources = read_configured_sources(cfg)
     with Store(cfg.store.url) as store:
         ingested = tuple(ingest_sources(store, sources)) if sources else ()
         marg = update_marginals(store, cfg, progress=progress)
         roll = update_rolling(store, cfg, progress=progress)
-    return UpdateSummary(ingested, marg, roll, time.perf_counter() - t0)
+        sig = update_signals(store, cfg)
+    return UpdateSummary(ingested, marg, roll, sig, time.perf_counter() - t0)

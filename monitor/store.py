@@ -12,6 +12,8 @@ Tables (schema version 1):
 - ``revisions``: the audit trail of values replaced by an ingest run with revisions accepted.
 - ``metrics``, ``pair_state``: the rolling engine's timeline per settings key and pair (one
   row per window end) and what the next incremental batch of a pair starts from.
+- ``episodes``: alert episodes per signal settings key, pair and tail (open ones have no
+  end), written when the signals change.
 - ``marginal_fits``, ``marginal_state``, ``residuals``: per marginal settings key and asset
   (see :mod:`monitor.marginals`): every fit with its diagnostics, the input the residuals
   were computed from, and the standardised residuals with their conditional sigma.
@@ -155,6 +157,22 @@ pair_state = sa.Table(
     sa.Column("last_date", sa.Date, nullable=False),
     sa.Column("last_tau", _DOUBLE, nullable=False),
     sa.Column("warm_starts", sa.Text, nullable=False),
+    sa.Column("updated_at", sa.DateTime, nullable=False),
+)
+
+
+episodes = sa.Table(
+    "episodes", metadata, *_pair_key(),
+    sa.Column("tail", sa.String(8), primary_key=True),
+    sa.Column("start", sa.Date, primary_key=True),
+    sa.Column("onset", sa.Date, nullable=False),
+    sa.Column("end", sa.Date),
+    sa.Column("cause", sa.String(16), nullable=False),
+    sa.Column("statistic", sa.String(16), nullable=False),
+    sa.Column("peak_date", sa.Date, nullable=False),
+    *[sa.Column(name, _DOUBLE) for name in (
+        "peak_value", "peak_tail_emp", "peak_tail_model", "peak_gauss_tail",
+        "peak_kendall_tau")],
     sa.Column("updated_at", sa.DateTime, nullable=False),
 )
 
@@ -519,6 +537,43 @@ class Store:
         for col in ("date", "start"):
             frame[col] = pd.to_datetime(frame[col])
         return frame
+
+    def read_episodes(self, settings_key: str, pair: tuple[str, str] | None = None
+                      ) -> pd.DataFrame:
+        """Stored episodes (all pairs, or one), in start order."""
+        stmt = sa.select(episodes).where(episodes.c.settings == settings_key)
+        if pair is not None:
+            stmt = stmt.where(sa.and_(episodes.c.asset_a == pair[0],
+                                      episodes.c.asset_b == pair[1]))
+        with self.engine.connect() as conn:
+            rows = conn.execute(stmt.order_by(episodes.c.start)).mappings().all()
+        return pd.DataFrame([dict(r) for r in rows])
+
+    @staticmethod
+    def sync_episodes(conn: sa.Connection, settings_key: str, a: str, b: str,
+                      current: list[dict]) -> tuple[list[dict], list[dict]]:
+        """Make the stored episodes of a pair equal ``current`` (dicts with the table's
+        columns but the key); returns (episodes that are new, episodes that just ended)."""
+        where = sa.and_(episodes.c.settings == settings_key, episodes.c.asset_a == a,
+                        episodes.c.asset_b == b)
+        stored = {(r["tail"], r["start"]): dict(r) for r in
+                  conn.execute(sa.select(episodes).where(where)).mappings()}
+        fresh = {(e["tail"], e["start"]): e for e in current}
+        new = [e for k, e in fresh.items() if k not in stored]
+        ended = [e for k, e in fresh.items()
+                 if k in stored and stored[k]["end"] is None and e["end"] is not None]
+        changed = [e for k, e in fresh.items() if k in stored and any(
+            stored[k][c] != e[c] for c in e)]
+        gone = [k for k in stored if k not in fresh]
+        now = _now()
+        for tail, start in gone + [(e["tail"], e["start"]) for e in changed]:
+            conn.execute(episodes.delete().where(sa.and_(where, episodes.c.tail == tail,
+                                                         episodes.c.start == start)))
+        rows = [{**e, "settings": settings_key, "asset_a": a, "asset_b": b, "updated_at": now}
+                for e in new + changed]
+        if rows:
+            conn.execute(episodes.insert(), rows)
+        return new, ended
 
     def stored_pairs(self, settings_key: str) -> list[tuple[str, str]]:
         with self.engine.connect() as conn:

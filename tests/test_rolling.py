@@ -3,6 +3,7 @@ the stored timeline: incremental, idempotent, resumable after kill -9, identical
 
 from __future__ import annotations
 
+import io
 import os
 import signal
 import subprocess
@@ -199,3 +200,36 @@ def test_dask_backend_gives_identical_results(tmp_path, dask_scheduler):
     summary = run_update(dask, progress=False)
     assert summary.rolling.backend == "dask" and summary.rolling.updated_pairs == 6
     assert _metric_rows(dask.store.url) == _metric_rows(local.store.url)
+
+
+def test_signals_are_stored_and_the_timeline_exports_per_contract(tmp_path, capsys):
+    from monitor import cli
+    from monitor.pipeline import read_pair_signals, signals_key
+
+    prices = _prices(3, 360, seed=6)
+    cfg = _setup(tmp_path, "sig", prices)
+    summary = run_update(cfg, progress=False)
+    assert summary.signals.pairs == 3
+    (tmp_path / "c.toml").write_text(
+        f'[store]\nurl = "{cfg.store.url}"\n[rolling]\nwindow = 60\n')
+    assert cli.main(["export", "timeline", "--pair", "TREE0", "TREE1", "--config",
+                     str(tmp_path / "c.toml")]) == 0
+    out = pd.read_csv(io.StringIO(capsys.readouterr().out))
+    contract = ["date", "n", "kendall_tau", "spearman_rho", "family", "rotation", "tail_lower",
+                "tail_upper", "tail_lower_emp", "tail_upper_emp", "alert"]
+    assert list(out.columns[:len(contract)]) == contract
+    with Store(cfg.store.url) as store:
+        sig = read_pair_signals(store, cfg, "TREE0", "TREE1")
+        stored = store.read_episodes(signals_key(cfg), ("TREE0", "TREE1"))
+    assert len(out) == len(sig.frame)
+    np.testing.assert_array_equal(out["alert"].to_numpy(), sig.frame["alert"].to_numpy())
+    assert set(out["alert"].unique()) <= {0, 1}
+    assert len(stored) == len(sig.episodes)
+    # The other order of the pair exports the same rows.
+    assert cli.main(["export", "timeline", "--pair", "TREE1", "TREE0", "--config",
+                     str(tmp_path / "c.toml")]) == 0
+    other = pd.read_csv(io.StringIO(capsys.readouterr().out))
+    np.testing.assert_allclose(other["kendall_tau"], out["kendall_tau"])
+    assert cli.main(["export", "timeline", "--pair", "TREE0", "OAK", "--config",
+                     str(tmp_path / "c.toml")]) == 2
+    assert "no stored returns for 'OAK'" in capsys.readouterr().err
