@@ -266,7 +266,7 @@ def test_usage_errors_exit_2_with_one_line(work, args, message):
 
 
 @pytest.mark.parametrize("args", [
-    ["demo", "--no-browser"], ["export", "timeline", "--pair", "ALDER", "BIRCH"],
+    ["demo", "--no-browser"],
     ["alerts", "send", "--dry-run"], ["serve"],
 ], ids=lambda a: " ".join(a[:2]))
 def test_commands_not_yet_available_exit_2_with_one_line(work, args):
