@@ -113,18 +113,22 @@ def _date(text: str | None, option: str) -> pd.Timestamp | None:
         raise InputError(f"{option}: cannot read date {text!r} (expected YYYY-MM-DD)") from None
 
 
-def pair_window(frame: pd.DataFrame, a: str, b: str, start: str | None = None,
-                end: str | None = None, source: str = "input") -> tuple[pd.DataFrame, int]:
-    """The two columns on the dates both have, inside [start, end].
-
-    Returns the aligned frame and how many dates in the range only one column had.
-    """
+def _check_pair(frame: pd.DataFrame, a: str, b: str, source: str) -> None:
     for col in (a, b):
         if col not in frame.columns:
             raise InputError(f"{source}: no column {col!r} (columns: "
                              f"{', '.join(map(str, frame.columns))})")
     if a == b:
         raise InputError("--pair: the two columns must differ")
+
+
+def pair_window(frame: pd.DataFrame, a: str, b: str, start: str | None = None,
+                end: str | None = None, source: str = "input") -> tuple[pd.DataFrame, int]:
+    """The two columns on the dates both have, inside [start, end].
+
+    Returns the aligned frame and how many dates in the range only one column had.
+    """
+    _check_pair(frame, a, b, source)
     lo, hi = _date(start, "--start"), _date(end, "--end")
     if lo is not None and hi is not None and lo > hi:
         raise InputError(f"--start {start} is after --end {end}")
@@ -228,12 +232,7 @@ def filtered_pair(frame: pd.DataFrame, a: str, b: str, *, kind: str, end: str | 
     :mod:`monitor.marginals` using data up to ``end`` only (``settings`` None: returns ranked
     as they are). Uniforms pass through.
     """
-    for col in (a, b):
-        if col not in frame.columns:
-            raise InputError(f"{source}: no column {col!r} (columns: "
-                             f"{', '.join(map(str, frame.columns))})")
-    if a == b:
-        raise InputError("--pair: the two columns must differ")
+    _check_pair(frame, a, b, source)
     if kind == "uniforms":
         return frame[[a, b]], {"mode": "none", "note": "uniforms as given"}
     data = log_returns(frame[[a, b]], source) if kind == "prices" else frame[[a, b]]
