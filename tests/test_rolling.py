@@ -233,3 +233,24 @@ def test_signals_are_stored_and_the_timeline_exports_per_contract(tmp_path, caps
     assert cli.main(["export", "timeline", "--pair", "TREE0", "OAK", "--config",
                      str(tmp_path / "c.toml")]) == 2
     assert "no stored returns for 'OAK'" in capsys.readouterr().err
+
+
+def test_universe_summary_over_time(tmp_path):
+    from monitor.pipeline import read_pair_signals, read_universe_summary
+
+    prices = _prices(3, 340, seed=8)
+    cfg = _setup(tmp_path, "uni", prices)
+    run_update(cfg, progress=False)
+    with Store(cfg.store.url) as store:
+        summary = read_universe_summary(store, cfg)
+        frames = [read_pair_signals(store, cfg, a, b).frame
+                  for a, b in (("TREE0", "TREE1"), ("TREE0", "TREE2"), ("TREE1", "TREE2"))]
+    assert (summary["n_pairs"] == 3).all()
+    day = summary.index[len(summary) // 2]
+    rows = [f[f["date"] == day].iloc[0] for f in frames]
+    assert summary.loc[day, "n_alert"] == sum(int(r["alert"]) for r in rows)
+    assert summary.loc[day, "share_alert"] == pytest.approx(summary.loc[day, "n_alert"] / 3)
+    assert summary.loc[day, "kendall_tau"] == pytest.approx(np.mean([r["kendall_tau"]
+                                                                     for r in rows]))
+    assert summary.loc[day, "tail_lower_emp"] == pytest.approx(np.mean([r["tail_lower_emp"]
+                                                                        for r in rows]))
