@@ -23,12 +23,14 @@ names given here.
     regime ends bounded; it does not change when the entry level is first reached.
 ``window`` (cause ``divergence``)
     The window's likelihood evidence that the best tail-dependent candidate beats the
-    Gaussian, ``loglik_best_tail - loglik_gauss``. It counts only while the finite-level
-    excess ``(lambda_emp(q) - C_Gauss(q, q)/q) / se`` is at least ``excess_gate``. Here
-    ``lambda_emp(q)`` is the window's C_n(q, q)/q (or the upper analogue) and ``C_Gauss`` is
-    the Gaussian copula with the window's tau, i.e. what the centre alone implies at level q.
-    The gate tells the tails apart: the best "upper" candidates include families with both
-    tails, which also fit a lower-tail regime.
+    Gaussian, ``loglik_best_tail - loglik_gauss`` (column ``window_*``), read together with
+    the finite-level excess ``excess_* = (lambda_emp(q) - C_Gauss(q, q)/q) / se``. Here
+    ``lambda_emp(q)`` is the window's C_n(q, q)/q (or the upper analogue) and
+    ``C_Gauss(q, q)/q`` is the Gaussian copula's value at the window's tau, i.e. what the
+    centre alone implies at level q. The statistic opens an episode only while the excess is
+    at least ``excess_gate``, and keeps one open while it is at least ``excess_hold``. The
+    gate tells the tails apart: the best "upper" candidates include families with both tails,
+    which also fit a lower-tail regime.
 ``spike`` (cause ``spike``)
     A robust z-score of the window's empirical tail coefficient against the pair's own
     history: ``(lambda_t - median_ref) / sqrt((IQR_ref / 1.349)^2 + se_t^2)``. The reference
@@ -38,7 +40,9 @@ names given here.
 ``switch`` (cause ``switch``)
     A persisting change of the selected family's tail class. A window counts as
     tail-dependent in a tail when the selected family's model coefficient there is at least
-    ``switch_min_tail`` and its AIC beats the Gaussian's by at least ``switch_aic_margin``. The
+    ``switch_min_tail`` and no smaller than in the other tail (a family with both tails counts
+    for its heavier one, for both when they are equal), and its AIC beats the Gaussian's by at
+    least ``switch_aic_margin``. The
     statistic is the share of such windows among the last ``switch_windows`` minus their
     share in the reference windows.
 
@@ -80,6 +84,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
+from types import MappingProxyType
 
 import numpy as np
 import pandas as pd
@@ -109,8 +114,8 @@ TAILS = ("lower", "upper")
 STATES = ("calm", "watch", "alert")
 CAUSES = ("divergence", "spike", "switch")
 #: Signal statistics and the cause each one reports; their order breaks ties between causes.
-STATISTICS: Mapping[str, str] = {"sequential": "divergence", "window": "divergence",
-                                 "spike": "spike", "switch": "switch"}
+STATISTICS: Mapping[str, str] = MappingProxyType({
+    "sequential": "divergence", "window": "divergence", "spike": "spike", "switch": "switch"})
 
 #: Timeline columns the signals read.
 REQUIRED_COLUMNS = (
@@ -145,8 +150,9 @@ class SignalSettings:
         Ceiling of the CUSUM, at least ``cusum_entry``; bounds the time to recover.
     window_entry, window_exit : float
         Thresholds of the window log-likelihood ratio, best tail family against Gaussian.
-    excess_gate : float
-        Least standardised finite-level tail excess for the window statistic to count.
+    excess_gate, excess_hold : float
+        Least standardised finite-level tail excess for the window statistic to open an
+        episode, and to keep one open (``excess_hold <= excess_gate``).
     spike_entry, spike_exit : float
         Thresholds of the robust z-score of the empirical tail coefficient.
     reference_windows : int
@@ -166,23 +172,24 @@ class SignalSettings:
         every statistic must be quiet to close it.
     """
 
-    cusum_reference: float = 0.0
+    cusum_reference: float = 0.01
     cusum_entry: float = 5.0
     cusum_exit: float = 3.0
     cusum_cap: float = 7.5
     window_entry: float = 8.0
     window_exit: float = 4.0
-    excess_gate: float = 0.5
+    excess_gate: float = 1.0
+    excess_hold: float = 0.0
     spike_entry: float = 3.0
     spike_exit: float = 1.5
     reference_windows: int = 250
     switch_min_tail: float = 0.1
-    switch_aic_margin: float = 2.0
+    switch_aic_margin: float = 10.0
     switch_windows: int = 60
     switch_entry: float = 0.9
     switch_exit: float = 0.5
-    entry_days: int = 5
-    exit_days: int = 10
+    entry_days: int = 3
+    exit_days: int = 5
 
     def __post_init__(self) -> None:
         for name in ("reference_windows", "switch_windows", "entry_days", "exit_days"):
@@ -190,7 +197,8 @@ class SignalSettings:
             if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < 1:
                 raise ValueError(f"{name} must be an integer >= 1, got {value!r}")
         for name in ("cusum_reference", "cusum_entry", "cusum_exit", "cusum_cap",
-                     "window_entry", "window_exit", "excess_gate", "spike_entry", "spike_exit",
+                     "window_entry", "window_exit", "excess_gate", "excess_hold", "spike_entry",
+                     "spike_exit",
                      "switch_min_tail", "switch_aic_margin", "switch_entry", "switch_exit"):
             value = getattr(self, name)
             if isinstance(value, bool) or not isinstance(value, int | float | np.floating):
@@ -202,6 +210,9 @@ class SignalSettings:
             entry, exit_ = getattr(self, f"{stat}_entry"), getattr(self, f"{stat}_exit")
             if exit_ > entry:
                 raise ValueError(f"{stat}_exit ({exit_}) must not exceed {stat}_entry ({entry})")
+        if self.excess_hold > self.excess_gate:
+            raise ValueError(f"excess_hold ({self.excess_hold}) must not exceed excess_gate "
+                             f"({self.excess_gate})")
         if self.cusum_exit < 0 or self.cusum_entry <= 0:
             raise ValueError("cusum_entry must be > 0 and cusum_exit >= 0")
         if np.isfinite(self.cusum_entry) and self.cusum_cap < self.cusum_entry:
@@ -218,7 +229,7 @@ class SignalSettings:
         """Stable key naming these settings, e.g. for stored states and episodes."""
         return (f"cusum{self.cusum_reference:g}:{self.cusum_entry:g}-{self.cusum_exit:g}"
                 f":cap{self.cusum_cap:g}/window{self.window_entry:g}-{self.window_exit:g}"
-                f":gate{self.excess_gate:g}/spike{self.spike_entry:g}-{self.spike_exit:g}"
+                f":gate{self.excess_gate:g}-{self.excess_hold:g}/spike{self.spike_entry:g}-{self.spike_exit:g}"
                 f":ref{self.reference_windows}/switch{self.switch_entry:g}-"
                 f"{self.switch_exit:g}:tail{self.switch_min_tail:g}:aic"
                 f"{self.switch_aic_margin:g}:last{self.switch_windows}/days"
@@ -226,9 +237,9 @@ class SignalSettings:
 
     def thresholds(self, statistic: str) -> tuple[float, float]:
         """(entry, exit) thresholds of a statistic named in :data:`STATISTICS`."""
-        prefix = "cusum" if statistic == "sequential" else statistic
         if statistic not in STATISTICS:
             raise ValueError(f"unknown statistic {statistic!r}; known: {', '.join(STATISTICS)}")
+        prefix = "cusum" if statistic == "sequential" else statistic
         return getattr(self, f"{prefix}_entry"), getattr(self, f"{prefix}_exit")
 
 
@@ -346,6 +357,8 @@ def cusum(increments: ArrayLike, reference: float = 0.0, cap: float = np.inf
     if not np.isfinite(reference) or not cap >= 0:
         raise ValueError(f"reference must be finite and cap >= 0, got {reference}, {cap}")
     steps = np.where(np.isnan(x), 0.0, x - reference)
+    if steps.size == 0:
+        return read_only(steps)
     flat = steps.reshape(-1, steps.shape[-1])
     out = np.empty_like(flat)
     for row in range(flat.shape[0]):
@@ -512,11 +525,13 @@ def _tail_statistics(frame: pd.DataFrame, tail: str, s: SignalSettings,
         diff = emp - num("gauss_tail_q")
         # Where the binomial s.e. is 0 the estimate is 0 (no joint exceedance): no excess.
         excess = np.where(se > 0, diff / se, np.where(diff > 0, np.inf, 0.0))
-    ratio = num(f"loglik_best_{tail}") - num("loglik_gauss")
-    window = np.where(excess >= s.excess_gate, ratio, np.minimum(ratio, 0.0))
+    window = num(f"loglik_best_{tail}") - num("loglik_gauss")
     sequential = np.asarray(cusum(num(f"llr_{tail}"), s.cusum_reference, s.cusum_cap))
     spike = np.asarray(robust_z_against_history(emp, se, reference_end, s.reference_windows))
-    counts = ((num(f"tail_{tail}") >= s.switch_min_tail)
+    other = "upper" if tail == "lower" else "lower"
+    model = num(f"tail_{tail}")
+    # A family with both tails counts for the heavier one only (both when equal, as for t).
+    counts = ((model >= s.switch_min_tail) & (model >= num(f"tail_{other}"))
               & (num("aic_gauss") - num("aic") >= s.switch_aic_margin)).astype(float)
     recent = pd.Series(counts).rolling(s.switch_windows, min_periods=s.switch_windows).mean()
     past = pd.Series(counts).rolling(s.reference_windows,
@@ -537,11 +552,19 @@ def _tail_episodes(frame: pd.DataFrame, tail: str, stats: dict[str, NDArray[np.f
     exit_ = np.array([s.thresholds(n)[1] for n in names])[:, None]
     # NaN (no history yet) and -inf (no tail candidate) are no evidence; +inf is.
     finite = np.isfinite(values) | (values == np.inf)
-    active_each = finite & (values >= entry)
-    quiet = ~(finite & (values >= exit_)).any(axis=0)
-    active = active_each.any(axis=0)
     with np.errstate(invalid="ignore"):
         strength = np.where(finite, values / entry, 0.0)
+        active_each = finite & (values >= entry)
+        holding = finite & (values >= exit_)
+    # The window statistic's gate has its own hysteresis: the finite-level excess must reach
+    # excess_gate to open, and keeps an episode open while it stays at excess_hold or more.
+    w = names.index("window")
+    excess = stats["excess"]
+    strength[w] = np.where(excess >= s.excess_gate, strength[w], 0.0)
+    active_each[w] &= excess >= s.excess_gate
+    holding[w] &= excess >= s.excess_hold
+    quiet = ~holding.any(axis=0)
+    active = active_each.any(axis=0)
     evidence = np.clip(strength.max(axis=0), 0.0, None)
     n = len(frame)
     alert = np.zeros(n, dtype=bool)

@@ -1,0 +1,451 @@
+"""Tests for monitor.signals: CUSUM, hysteresis, divergence, spikes, switches, episodes and the
+universe summary.
+
+External references: Page (1954, "Continuous inspection schemes", Biometrika 41, 100-115) for
+the CUSUM recursion; Siegmund (1985, *Sequential Analysis*) for the average run length of a
+CUSUM of normal increments (from memory); /work/shared/REFERENCES.md section 4 for the
+Gaussian tail concordance; scipy.stats for normal quantiles. Hand-made timelines check the
+state machine day by day. Simulation tolerances are stated beside each check.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+
+from monitor.copulas import family
+from monitor.errors import InputError
+from monitor.rolling import (
+    RollingSettings,
+    _gaussian_tail_concordance,
+    pair_metrics,
+    window_end_positions,
+)
+from monitor.signals import (
+    IQR_TO_SIGMA,
+    REQUIRED_COLUMNS,
+    SIGNAL_COLUMNS,
+    STATES,
+    SignalSettings,
+    cusum,
+    hysteresis,
+    pair_signals,
+    robust_z_against_history,
+    universe_summary,
+)
+
+WINDOW = 50  # window length of the hand-made timelines (only the ``start`` column uses it)
+
+
+def _timeline(n: int, **columns) -> pd.DataFrame:
+    """A neutral hand-made timeline: no statistic has any evidence unless a column says so.
+
+    Gaussian everywhere (tail model 0, equal log-likelihoods and AIC), empirical tails at the
+    Gaussian value, and per-day ratios of -1 (the CUSUM stays at 0).
+    """
+    days = pd.bdate_range("2019-01-01", periods=n + WINDOW - 1)
+    base = {
+        "date": days[WINDOW - 1:], "start": days[:n], "n": WINDOW, "kendall_tau": 0.35,
+        "family": "gaussian", "rotation": 0, "aic": -50.0, "aic_gauss": -50.0,
+        "loglik_gauss": 26.0, "tail_lower": 0.0, "tail_upper": 0.0, "tail_lower_emp": 0.3,
+        "tail_upper_emp": 0.3, "tail_lower_emp_se": 0.1, "tail_upper_emp_se": 0.1,
+        "gauss_tail_q": 0.3, "loglik_best_lower": 26.0, "loglik_best_upper": 26.0,
+        "llr_lower": -1.0, "llr_upper": -1.0,
+    }
+    base.update(columns)
+    return pd.DataFrame({k: (np.broadcast_to(v, n) if np.ndim(v) == 0 else np.asarray(v))
+                         for k, v in base.items()})
+
+
+def _ratios_for_path(path) -> np.ndarray:
+    """Per-day ratios whose CUSUM (k = 0, no cap) is exactly ``path`` (values >= 0)."""
+    p = np.concatenate([[0.0], np.asarray(path, float)])
+    steps = np.diff(p)
+    # A day at 0 gets a step well below what is needed to reach 0.
+    return np.where(p[1:] > 0, steps, -p[:-1] - 1.0)
+
+
+# Only the sequential statistic, with levels that make hand paths easy to read.
+SEQUENTIAL_ONLY = SignalSettings(cusum_reference=0.0, cusum_entry=1.0, cusum_exit=0.5,
+                                 cusum_cap=100.0, window_entry=np.inf, spike_entry=np.inf,
+                                 switch_entry=np.inf, entry_days=3, exit_days=2)
+
+
+# --------------------------------------------------------------------------------- CUSUM
+def test_cusum_matches_hand_recursion():
+    # Page (1954), S_t = max(0, S_{t-1} + x_t - k), S_0 = 0, worked by hand with k = 0.2:
+    # 0.6, 0.1, 1.1, 0, 0.3, 1.0; with a ceiling of 0.8 the third and sixth become 0.8.
+    x = [0.8, -0.3, 1.2, -2.0, 0.5, 0.9]
+    np.testing.assert_allclose(cusum(x, 0.2), [0.6, 0.1, 1.1, 0.0, 0.3, 1.0], atol=1e-12)
+    np.testing.assert_allclose(cusum(x, 0.2, cap=0.8), [0.6, 0.1, 0.8, 0.0, 0.3, 0.8],
+                               atol=1e-12)
+    # NaN is a day without an observation: S carries over (hand: 0.6, 0.6, 0.1).
+    np.testing.assert_allclose(cusum([0.8, np.nan, -0.3], 0.2), [0.6, 0.6, 0.1], atol=1e-12)
+
+
+def test_cusum_equals_plain_loop_on_random_paths():
+    # Page (1954) recursion written as a loop, with the ceiling, against the loop-free form.
+    rng = np.random.default_rng(11)
+    for _ in range(200):
+        n = int(rng.integers(1, 300))
+        x = rng.normal(rng.normal(0, 0.5), 1.0, n)
+        k, cap = rng.uniform(0, 0.5), rng.choice([np.inf, rng.uniform(0.1, 5.0)])
+        s, want = 0.0, []
+        for xi in x:
+            s = min(cap, max(0.0, s + xi - k))
+            want.append(s)
+        np.testing.assert_allclose(cusum(x, k, cap), want, atol=1e-9)
+    batch = rng.normal(size=(3, 50))
+    np.testing.assert_allclose(cusum(batch, 0.1), np.stack([cusum(r, 0.1) for r in batch]))
+
+
+def test_cusum_without_drift_stays_at_zero():
+    # Page (1954): increments never above the reference value k never leave S_t = 0.
+    assert np.all(cusum(np.full(100, 0.3), 0.3) == 0.0)
+    assert np.all(cusum(-np.abs(np.random.default_rng(2).normal(size=100)), 0.0) == 0.0)
+
+
+def _run_lengths(mean: float, k: float, h: float, reps: int, days: int, seed: int):
+    rng = np.random.default_rng(seed)
+    out = []
+    for _ in range(0, reps, 500):  # chunks keep the memory small
+        hit = np.asarray(cusum(rng.normal(mean, 1.0, (500, days)), k)) >= h
+        assert hit.any(axis=1).all()  # every path signals within the horizon
+        out.append(hit.argmax(axis=1) + 1)
+    return np.concatenate(out)
+
+
+def _siegmund_arl(delta: float, h: float) -> float:
+    # Siegmund (1985), Sequential Analysis, ARL of a one-sided CUSUM of N(mu, 1) increments
+    # with delta = mu - k and the corrected barrier b = h + 1.166 (from memory).
+    b = h + 1.166
+    return (np.exp(-2 * delta * b) + 2 * delta * b - 1) / (2 * delta ** 2)
+
+
+def test_cusum_average_run_length_on_iid_normal_noise():
+    # In control, N(0, 1) with k = 0.5, h = 4: Siegmund's approximation gives 338 days; the
+    # tabulated two-sided ARL of 168 (Montgomery, Introduction to Statistical Quality
+    # Control, tabular CUSUM with k = 1/2, h = 4; from memory) is half the one-sided one.
+    # Run lengths are near-exponential (sd ~ mean), so the mean of 2000 has s.e. ~ 2.2 %;
+    # 10 % is over four s.e.
+    arl0 = _run_lengths(0.0, 0.5, 4.0, reps=2000, days=6000, seed=5).mean()
+    assert _siegmund_arl(-0.5, 4.0) == pytest.approx(338.0, abs=1.0)
+    assert arl0 == pytest.approx(_siegmund_arl(-0.5, 4.0), rel=0.10)
+    # Out of control, a one-s.d. shift: Siegmund 8.34 (the same table: 8.38, from memory).
+    arl1 = _run_lengths(1.0, 0.5, 4.0, reps=2000, days=200, seed=6).mean()
+    assert arl1 == pytest.approx(_siegmund_arl(0.5, 4.0), rel=0.05)
+
+
+# ---------------------------------------------------------------------------- hysteresis
+def test_hysteresis_needs_persistence_to_open_and_to_close():
+    # Hand sequences, entry 3 days, exit 2 days.
+    a = np.array([0, 1, 0, 1, 1, 0, 0, 0, 0, 0], bool)  # blip, then two days: never opens
+    q = ~a
+    assert hysteresis(a, q, 3, 2) == []
+    a = np.array([0, 1, 1, 1, 1, 0, 0, 1, 0, 0, 0], bool)
+    q = np.array([1, 0, 0, 0, 0, 1, 0, 0, 1, 1, 1], bool)
+    # Opens on the third active day (3); a quiet day, an in-between day and an active day
+    # do not close it; the second of two quiet days in a row (9) does.
+    assert hysteresis(a, q, 3, 2) == [(3, 9)]
+    assert hysteresis(a[:9], q[:9], 3, 2) == [(3, None)]  # still open at the end
+    with pytest.raises(ValueError, match="both active and quiet"):
+        hysteresis([1], [1], 1, 1)
+
+
+def test_single_day_blip_never_opens_an_episode():
+    path = [0, 0, 3.0, 0, 0, 0, 2.0, 1.5, 0, 0]
+    sig = pair_signals(_timeline(len(path), llr_lower=_ratios_for_path(path)), SEQUENTIAL_ONLY)
+    np.testing.assert_allclose(sig.frame["sequential_lower"], path, atol=1e-12)
+    assert sig.episodes == ()
+    assert sig.frame["alert"].sum() == 0
+    assert sig.frame["state_lower"].tolist() == ["calm", "calm", "watch", "calm", "calm",
+                                                 "calm", "watch", "watch", "calm", "calm"]
+
+
+def test_episode_opens_after_m_days_closes_after_m_prime_and_records_the_peak():
+    # Entry level 1, exit level 0.5, entry 3 days, exit 2 days (SEQUENTIAL_ONLY).
+    path = [0, 0, 1.2, 1.5, 1.1, 1.8, 0.9, 0.4, 0.7, 0.4, 0.3, 0, 0]
+    sig = pair_signals(_timeline(len(path), llr_lower=_ratios_for_path(path)), SEQUENTIAL_ONLY)
+    f = sig.frame
+    (ep,) = sig.episodes
+    d = f["date"]
+    assert (ep.tail, ep.cause, ep.statistic) == ("lower", "divergence", "sequential")
+    assert ep.onset == d[2] and ep.start == d[4]   # third day of the active run
+    # Day 7 is quiet, day 8 (0.7) between the levels resets the quiet run; days 9, 10 close.
+    assert ep.end == d[9]
+    assert f["alert_lower"].tolist() == [0, 0, 0, 0, 1, 1, 1, 1, 1, 1, 0, 0, 0]
+    assert ep.peak_date == d[5] and ep.peak_value == pytest.approx(1.8)
+    assert ep.peak_tail_emp == 0.3 and ep.peak_kendall_tau == 0.35
+    assert f["state_lower"].iloc[4:10].eq("alert").all()
+    assert f["state_upper"].eq("calm").all() and f["alert_upper"].eq(0).all()
+
+
+def test_open_episode_and_its_dict():
+    path = [0, 1.2, 1.3, 1.4, 1.5]
+    sig = pair_signals(_timeline(len(path), llr_upper=_ratios_for_path(path)), SEQUENTIAL_ONLY)
+    (ep,) = sig.episodes
+    assert ep.tail == "upper" and ep.is_open and ep.end is None
+    doc = ep.to_dict()
+    assert doc["end"] is None and doc["start"] == sig.frame["date"][3].strftime("%Y-%m-%d")
+    table = sig.episodes_frame()
+    assert list(table.columns)[:3] == ["tail", "cause", "statistic"] and len(table) == 1
+
+
+def test_alert_column_matches_episodes():
+    # Two lower episodes and one upper, overlapping in time.
+    lower = [0, 2, 2, 2, 2, 0, 0, 0, 0, 2, 2, 2, 0, 0, 0, 0]
+    upper = [0, 0, 0, 0, 2, 2, 2, 2, 0, 0, 0, 0, 0, 0, 0, 0]
+    frame = _timeline(len(lower), llr_lower=_ratios_for_path(lower),
+                      llr_upper=_ratios_for_path(upper))
+    sig = pair_signals(frame, SEQUENTIAL_ONLY)
+    f = sig.frame
+    assert [e.tail for e in sig.episodes] == ["lower", "upper", "lower"]  # by start date
+    for tail in ("lower", "upper"):
+        inside = np.zeros(len(f), bool)
+        for e in sig.episodes:
+            if e.tail == tail:
+                inside |= ((f["date"] >= e.start)
+                           & (f["date"] <= (e.end if e.end is not None else f["date"].max())))
+        assert (f[f"alert_{tail}"].to_numpy() == inside).all()
+        assert ((f[f"state_{tail}"] == "alert").to_numpy() == inside).all()
+        # One 0 -> 1 step per episode.
+        steps = np.diff(np.concatenate([[0], f[f"alert_{tail}"].to_numpy()]))
+        assert (steps == 1).sum() == sum(e.tail == tail for e in sig.episodes)
+    assert (f["alert"] == np.maximum(f["alert_lower"], f["alert_upper"])).all()
+    assert set(f["state_lower"]) <= set(STATES)
+    assert all(c in f.columns for c in SIGNAL_COLUMNS)
+
+
+# ------------------------------------------------------------------- window statistics
+@pytest.fixture(scope="module")
+def gaussian_and_clayton_signals():
+    """600 days of a Gaussian and of a Clayton copula with the same Kendall's tau 0.5."""
+    tau, n = 0.5, 600
+    cases = {"gaussian": (np.sin(np.pi * tau / 2),), "clayton": (2 * tau / (1 - tau),)}
+    rs = RollingSettings()
+    dates = pd.bdate_range("2020-01-01", periods=n)
+    out = {}
+    for name, params in cases.items():
+        uv = family(name).sample(n, params, np.random.default_rng(1))
+        z = stats.norm.ppf(uv)
+        m = pair_metrics(dates, z[:, 0], z[:, 1], rs, window_end_positions(n, rs))
+        out[name] = pair_signals(m.frame)
+    return out
+
+
+def test_divergence_is_near_zero_on_gaussian_and_positive_on_clayton(
+        gaussian_and_clayton_signals):
+    # Same tau: Gaussian rho = sin(pi tau / 2), Clayton theta = 2 tau / (1 - tau)
+    # (REFERENCES.md section 1). The Gaussian has no tail dependence and Clayton has
+    # lambda_L = 2^(-1/theta), with C(q,q)/q = .7089 at q = .1, theta = 2 (REFERENCES.md
+    # section 4). So the finite-level excess over the same-tau Gaussian is about 0 for the
+    # first and positive in the lower tail only for the second.
+    gauss = gaussian_and_clayton_signals["gaussian"].frame
+    clay = gaussian_and_clayton_signals["clayton"].frame
+    # One window's excess has s.d. about 0.7 s.e. units and the 351 windows share most of
+    # their data, so the bounds allow about 1.5 s.d. of the median.
+    assert abs(gauss["excess_lower"].median()) < 1.0
+    assert abs(gauss["excess_upper"].median()) < 1.0
+    assert clay["excess_lower"].median() > 0.75
+    assert clay["excess_lower"].median() > clay["excess_upper"].median() + 2.0
+    # Likelihood evidence of the best lower-tail family against the Gaussian: near 0 under
+    # the Gaussian (one or two extra parameters buy a few nats at most), large under Clayton
+    # (about n * KL = 250 * 0.1 nats at tau 0.5).
+    ratio = {k: (f["loglik_best_lower"] - f["loglik_gauss"]).median()
+             for k, f in (("gaussian", gauss), ("clayton", clay))}
+    assert ratio["gaussian"] < 3.0 and ratio["clayton"] > 10.0
+    # The sequential statistic: near 0 under the Gaussian, at its ceiling under Clayton.
+    s = SignalSettings()
+    assert gauss["sequential_lower"].median() < s.cusum_exit
+    assert clay["sequential_lower"].iloc[-100:].median() > s.cusum_entry
+    assert gauss["alert"].sum() == 0
+    assert clay["alert_lower"].mean() > 0.8 and clay["alert_upper"].sum() == 0
+    ep = gaussian_and_clayton_signals["clayton"].episodes[0]
+    assert ep.tail == "lower" and ep.cause == "divergence" and ep.peak_tail_emp > 0.3
+
+
+def test_appending_rows_never_changes_past_signals(gaussian_and_clayton_signals):
+    # Every statistic and the state machine look only backwards (DESIGN.md: appending data
+    # never changes past results), so the signals of a prefix are the prefix of the signals.
+    full = gaussian_and_clayton_signals["clayton"]
+    for cut in (120, 260):
+        part = pair_signals(full.frame.iloc[:cut])
+        cols = [c for c in SIGNAL_COLUMNS if not c.startswith("state")]
+        np.testing.assert_array_equal(part.frame[cols].to_numpy(float),
+                                      full.frame[cols].iloc[:cut].to_numpy(float))
+        assert part.frame["state_lower"].tolist() == full.frame["state_lower"].iloc[:cut].tolist()
+        assert [(e.tail, e.start) for e in part.episodes] == [
+            (e.tail, e.start) for e in full.episodes if e.start <= part.frame["date"].iloc[-1]]
+
+
+def test_gaussian_tail_concordance_matches_reference_values():
+    # REFERENCES.md section 4: the Gaussian copula with rho = 0.5 (tau = 1/3) has
+    # C(q,q)/q = .3240 / .2438 / .1294 at q = .10 / .05 / .01.
+    for q, want in ((0.10, 0.3240), (0.05, 0.2438), (0.01, 0.1294)):
+        assert float(_gaussian_tail_concordance(np.array([1 / 3]), q)[0]) == pytest.approx(
+            want, abs=5e-5)
+
+
+WINDOW_ONLY = SignalSettings(window_entry=8.0, window_exit=3.0, excess_gate=1.0,
+                             excess_hold=0.5, cusum_entry=np.inf, spike_entry=np.inf,
+                             switch_entry=np.inf, entry_days=3, exit_days=4)
+
+
+def test_window_statistic_needs_finite_level_excess_in_its_tail():
+    # The gate (module docstring, "window"): a large likelihood ratio counts for a tail only
+    # where the empirical tail exceeds the same-tau Gaussian value, here only the lower one.
+    frame = _timeline(10, loglik_best_upper=46.0, loglik_best_lower=46.0,
+                      tail_lower_emp=0.6, tail_upper_emp=0.3)
+    sig = pair_signals(frame, WINDOW_ONLY)
+    f = sig.frame
+    np.testing.assert_allclose(f["excess_lower"], 3.0)  # (0.6 - 0.3) / 0.1
+    np.testing.assert_allclose(f["excess_upper"], 0.0)
+    np.testing.assert_allclose(f["window_lower"], 20.0)
+    np.testing.assert_allclose(f["window_upper"], 20.0)
+    np.testing.assert_allclose(f["evidence_lower"], 20.0 / 8.0)
+    np.testing.assert_allclose(f["evidence_upper"], 0.0)
+    assert [(e.tail, e.statistic, e.start) for e in sig.episodes] == [
+        ("lower", "window", f["date"][2])]
+
+
+def test_window_gate_has_its_own_hysteresis():
+    # Excess 3 s.e. (opens), then 0.7 (below the gate, above the hold: stays open), then 0.2
+    # (below the hold: quiet, closes on the fourth such day).
+    emp = np.repeat([0.6, 0.37, 0.32], 10)
+    sig = pair_signals(_timeline(30, loglik_best_lower=46.0, tail_lower_emp=emp), WINDOW_ONLY)
+    (ep,) = sig.episodes
+    d = sig.frame["date"]
+    assert ep.start == d[2] and ep.end == d[22]
+    assert sig.frame["alert_lower"].tolist() == [0] * 2 + [1] * 21 + [0] * 7
+
+
+# ------------------------------------------------------------------------- spikes, switch
+def test_robust_z_against_history_by_hand():
+    # Common practice: (x - median) / robust scale, with the IQR scaled by 2 * z_.75 = 1.349
+    # (scipy.stats.norm.ppf) and the value's own s.e. added in quadrature.
+    assert IQR_TO_SIGMA == pytest.approx(2 * stats.norm.ppf(0.75), rel=1e-12)
+    rng = np.random.default_rng(4)
+    x = rng.normal(size=40)
+    se = np.full(40, 0.3)
+    ends = np.clip(np.arange(40) - 5, 0, None)  # reference: 10 values ending 6 days back
+    z = robust_z_against_history(x, se, ends, 10)
+    for t in (15, 30, 39):
+        ref = x[ends[t] - 10:ends[t]]
+        iqr = np.percentile(ref, 75) - np.percentile(ref, 25)
+        want = (x[t] - np.median(ref)) / np.hypot(iqr / IQR_TO_SIGMA, 0.3)
+        assert z[t] == pytest.approx(want, rel=1e-12)
+    assert np.isnan(z[:15]).all()  # fewer than 10 reference values
+    assert not np.isnan(z[15:]).any()
+
+
+def test_tail_spike_against_own_history_opens_a_spike_episode():
+    n = 500
+    emp = np.full(n, 0.3) + 0.02 * np.sin(np.arange(n))
+    emp[320:] = 0.8  # the empirical lower tail jumps, the Gaussian benchmark does not move
+    frame = _timeline(n, tail_lower_emp=emp)
+    s = SignalSettings(reference_windows=100)
+    sig = pair_signals(frame, s)
+    f = sig.frame
+    # The reference of a row is the 100 rows before its window's first day: NaN until then.
+    assert f["spike_lower"].iloc[:WINDOW - 1 + 100].isna().all()
+    assert f["spike_lower"].iloc[320] > 3.0
+    (ep,) = [e for e in sig.episodes if e.cause == "spike"]
+    assert ep.tail == "lower" and ep.start == f["date"][320 + s.entry_days - 1]
+    # Once the reference itself holds the new level, the spike fades (from row 320 + 49 + 100).
+    assert abs(f["spike_lower"].iloc[-1]) < s.spike_exit
+    assert ep.end is not None
+
+
+def test_family_switch_into_lower_tail_class():
+    n, change = 500, 350
+    tail = np.where(np.arange(n) >= change, 0.5, 0.0)
+    aic = np.where(np.arange(n) >= change, -70.0, -50.0)  # AIC 20 better than the Gaussian
+    frame = _timeline(n, tail_lower=tail, tail_upper=0.4 * tail, aic=aic,
+                      family=np.where(tail > 0, "bb7", "gaussian"))
+    s = SignalSettings()
+    sig = pair_signals(frame, s)
+    f = sig.frame
+    # By hand: share of lower-tail windows among the last 60 minus their share among the
+    # 250 window ends before the current window's first day (row i - WINDOW + 1).
+    counts = tail > 0
+    want = np.full(n, np.nan)
+    for i in range(n):
+        ref_end = i - WINDOW + 1
+        if ref_end >= s.reference_windows and i >= s.switch_windows - 1:
+            want[i] = (counts[i - s.switch_windows + 1:i + 1].mean()
+                       - counts[ref_end - s.reference_windows:ref_end].mean())
+    np.testing.assert_allclose(f["switch_lower"], want, atol=1e-12)
+    # A family with both tails counts for its heavier tail only: no upper switch.
+    assert np.nanmax(f["switch_upper"]) == 0.0
+    eps = [e for e in sig.episodes if e.cause == "switch"]
+    assert [e.tail for e in eps] == ["lower"]
+    assert eps[0].onset == f["date"].iloc[int(np.argmax(want >= s.switch_entry))]
+    assert eps[0].peak_tail_model == 0.5
+
+
+# ------------------------------------------------------------------ settings and inputs
+def test_settings_are_frozen_validated_and_keyed():
+    s = SignalSettings()
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        s.cusum_entry = 1.0
+    assert s.key == SignalSettings().key
+    assert s.key != SignalSettings(cusum_entry=6.0).key and s.key.endswith("/v1")
+    with pytest.raises(ValueError, match="cusum_exit"):
+        SignalSettings(cusum_exit=6.0)
+    with pytest.raises(ValueError, match="cusum_cap"):
+        SignalSettings(cusum_cap=4.0)
+    with pytest.raises(ValueError, match="excess_hold"):
+        SignalSettings(excess_gate=0.5, excess_hold=1.0)
+    with pytest.raises(ValueError, match="entry_days"):
+        SignalSettings(entry_days=0)
+    with pytest.raises(TypeError, match="spike_entry"):
+        SignalSettings(spike_entry="3")
+    assert SignalSettings(window_entry=np.inf).thresholds("window") == (np.inf, 4.0)
+
+
+def test_bad_timelines_are_refused():
+    frame = _timeline(5)
+    with pytest.raises(InputError, match="missing column.*llr_lower"):
+        pair_signals(frame.drop(columns=["llr_lower"]))
+    with pytest.raises(InputError, match="strictly increasing"):
+        pair_signals(frame.iloc[[0, 2, 1, 3, 4]])
+    with pytest.raises(TypeError):
+        pair_signals(frame.to_numpy())
+    empty = pair_signals(frame.iloc[:0])
+    assert len(empty.frame) == 0 and empty.episodes == ()
+    assert set(REQUIRED_COLUMNS) <= set(frame.columns)
+
+
+# ---------------------------------------------------------------------------- universe
+def test_universe_summary_arithmetic():
+    d = pd.to_datetime(["2024-01-02", "2024-01-03", "2024-01-04"])
+
+    def frame(dates, alert_lower, alert_upper, tl, tu):
+        return pd.DataFrame({
+            "date": dates, "alert_lower": alert_lower, "alert_upper": alert_upper,
+            "alert": np.maximum(alert_lower, alert_upper), "kendall_tau": 0.3,
+            "tail_lower": tl, "tail_upper": tu, "tail_lower_emp": np.asarray(tl) + 0.1,
+            "tail_upper_emp": np.asarray(tu) + 0.1})
+
+    frames = {
+        ("A", "B"): frame(d, [0, 1, 1], [0, 0, 1], [0.0, 0.2, 0.4], [0.0, 0.0, 0.1]),
+        ("A", "C"): frame(d[1:], [0, 0], [1, 0], [0.6, 0.6], [0.3, 0.3]),  # starts later
+        ("B", "C"): frame(d[[0, 2]], [0, 0], [0, 0], [0.0, 0.0], [0.0, 0.0]),  # a holiday
+    }
+    out = universe_summary(frames)
+    assert out.index.tolist() == list(d)
+    assert out["n_pairs"].tolist() == [2, 2, 3]
+    assert out["n_alert"].tolist() == [0, 2, 1]
+    np.testing.assert_allclose(out["share_alert"], [0.0, 1.0, 1 / 3])
+    assert out["n_alert_lower"].tolist() == [0, 1, 1]
+    assert out["n_alert_upper"].tolist() == [0, 1, 1]
+    np.testing.assert_allclose(out["tail_lower"], [0.0, 0.4, (0.4 + 0.6 + 0.0) / 3])
+    np.testing.assert_allclose(out["tail_upper_emp"], [0.1, 0.25, (0.2 + 0.4 + 0.1) / 3])
+    assert universe_summary(list(frames.values())).equals(out)
+    assert len(universe_summary({})) == 0
+    with pytest.raises(InputError, match="missing column"):
+        universe_summary([frames[("A", "B")].drop(columns=["alert"])])
