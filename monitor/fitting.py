@@ -231,9 +231,12 @@ def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
     coordinates) for the gradient and diagonal Hessian and a forward cross difference;
     bounds by projection (a coordinate at a bound with the gradient pointing out is held);
     a non-concave local model is shifted by a multiple of the identity (Levenberg-Marquardt).
-    A window converges when an accepted step changes no coordinate by more than 1e-7 and the
-    log-likelihood by less than 1e-9, or when the projected gradient is below 1e-7. Windows that
-    hit ``max_iter`` are reported with ``converged`` False; their estimates are never replaced.
+    A window converges when the concave local model predicts a gain below 1e-7 from a step
+    below 1e-4, when an accepted step changes no coordinate by more than 1e-7 and the
+    log-likelihood by less than 1e-9, or when the projected gradient is below 1e-7. Windows
+    that hit ``max_iter`` are reported with ``converged`` False; their estimates are never
+    replaced. With ``chain`` the later rows borrow a neighbour's Hessian for two iterations
+    and use forward-difference gradients (step 1e-6) meanwhile.
     """
     fam = family(fam) if isinstance(fam, str) else fam
     u, v = _validate_batch(u, v)
