@@ -95,6 +95,8 @@ from .errors import InputError
 
 __all__ = [
     "CAUSES",
+    "IQR_TO_SIGMA",
+    "REQUIRED_COLUMNS",
     "SIGNAL_COLUMNS",
     "STATES",
     "STATISTICS",
@@ -173,13 +175,13 @@ class SignalSettings:
     """
 
     cusum_reference: float = 0.01
-    cusum_entry: float = 5.0
-    cusum_exit: float = 3.0
-    cusum_cap: float = 7.5
+    cusum_entry: float = 4.75
+    cusum_exit: float = 3.5
+    cusum_cap: float = 5.25
     window_entry: float = 8.0
-    window_exit: float = 4.0
+    window_exit: float = 6.0
     excess_gate: float = 1.0
-    excess_hold: float = 0.0
+    excess_hold: float = 1.0
     spike_entry: float = 3.0
     spike_exit: float = 1.5
     reference_windows: int = 250

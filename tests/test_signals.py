@@ -393,7 +393,7 @@ def test_settings_are_frozen_validated_and_keyed():
     with pytest.raises(dataclasses.FrozenInstanceError):
         s.cusum_entry = 1.0
     assert s.key == SignalSettings().key
-    assert s.key != SignalSettings(cusum_entry=6.0).key and s.key.endswith("/v1")
+    assert s.key != SignalSettings(cusum_entry=5.0).key and s.key.endswith("/v1")
     with pytest.raises(ValueError, match="cusum_exit"):
         SignalSettings(cusum_exit=6.0)
     with pytest.raises(ValueError, match="cusum_cap"):
@@ -404,7 +404,8 @@ def test_settings_are_frozen_validated_and_keyed():
         SignalSettings(entry_days=0)
     with pytest.raises(TypeError, match="spike_entry"):
         SignalSettings(spike_entry="3")
-    assert SignalSettings(window_entry=np.inf).thresholds("window") == (np.inf, 4.0)
+    assert SignalSettings(window_entry=np.inf, window_exit=2.0).thresholds("window") == (
+        np.inf, 2.0)
 
 
 def test_bad_timelines_are_refused():
