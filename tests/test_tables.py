@@ -56,7 +56,7 @@ def write(tmp_path: Path, name: str, content: str | bytes) -> Path:
     return path
 
 
-def same(actual: pd.DataFrame, expected: pd.DataFrame) -> None:
+def assert_same_frame(actual: pd.DataFrame, expected: pd.DataFrame) -> None:
     """Values, dates and column names equal; the datetime unit (ns/us) is not part of it."""
     assert list(actual.columns) == list(expected.columns)
     assert actual.index.name == "date"
@@ -72,45 +72,45 @@ def at(path: Path, rest: str) -> str:
 
 # --------------------------------------------------------------------------- accepted inputs
 def test_wide_csv(tmp_path):
-    same(read_series(write(tmp_path, "wide.csv", WIDE_CSV)), expected_frame())
+    assert_same_frame(read_series(write(tmp_path, "wide.csv", WIDE_CSV)), expected_frame())
 
 
 def test_long_csv_reads_to_the_same_frame(tmp_path):
-    same(read_series(write(tmp_path, "long.csv", LONG_CSV)), expected_frame())
+    assert_same_frame(read_series(write(tmp_path, "long.csv", LONG_CSV)), expected_frame())
 
 
 def test_wide_and_long_parquet_read_to_the_same_frame(tmp_path):
     wide = pd.read_csv(write(tmp_path, "w.csv", WIDE_CSV))        # date as text, NaN cell
     wide.to_parquet(tmp_path / "wide.parquet", index=False)
-    same(read_series(tmp_path / "wide.parquet"), expected_frame())
+    assert_same_frame(read_series(tmp_path / "wide.parquet"), expected_frame())
 
     long = pd.read_csv(write(tmp_path, "l.csv", LONG_CSV))
     long["date"] = pd.to_datetime(long["date"])                   # date as a timestamp column
     long.to_parquet(tmp_path / "long.parquet", index=False)
-    same(read_series(tmp_path / "long.parquet"), expected_frame())
+    assert_same_frame(read_series(tmp_path / "long.parquet"), expected_frame())
 
 
 def test_parquet_saved_with_its_date_index(tmp_path):
     # df.to_parquet() keeps a named DatetimeIndex as the index, not as a column.
     expected_frame().to_parquet(tmp_path / "indexed.parquet")
-    same(read_series(tmp_path / "indexed.parquet"), expected_frame())
+    assert_same_frame(read_series(tmp_path / "indexed.parquet"), expected_frame())
 
 
 def test_parquet_extension_does_not_matter(tmp_path):
     # The reader goes by the file's content (Parquet magic bytes), not its name.
     pd.read_csv(write(tmp_path, "w.csv", WIDE_CSV)).to_parquet(tmp_path / "prices.dat")
-    same(read_series(tmp_path / "prices.dat"), expected_frame())
+    assert_same_frame(read_series(tmp_path / "prices.dat"), expected_frame())
 
 
 @pytest.mark.parametrize("header", ["DATE", "Date", " date "])
 def test_date_column_name_is_case_insensitive(tmp_path, header):
     text = WIDE_CSV.replace("date", header, 1)
-    same(read_series(write(tmp_path, "wide.csv", text)), expected_frame())
+    assert_same_frame(read_series(write(tmp_path, "wide.csv", text)), expected_frame())
 
 
 def test_long_column_names_are_case_insensitive(tmp_path):
     text = LONG_CSV.replace("date,asset,value", "Date,ASSET,Value", 1)
-    same(read_series(write(tmp_path, "long.csv", text)), expected_frame())
+    assert_same_frame(read_series(write(tmp_path, "long.csv", text)), expected_frame())
 
 
 def test_blank_cell_is_missing_for_that_asset_only(tmp_path):
@@ -131,15 +131,15 @@ def test_dates_are_sorted_and_normalised(tmp_path):
 
 def test_exact_duplicated_rows_collapse(tmp_path):
     wide = WIDE_CSV + "2021-03-01,100.0,50.0\n"
-    same(read_series(write(tmp_path, "w.csv", wide)), expected_frame())
+    assert_same_frame(read_series(write(tmp_path, "w.csv", wide)), expected_frame())
     long = LONG_CSV + "2021-03-03,ALDER,101.5\n"
-    same(read_series(write(tmp_path, "l.csv", long)), expected_frame())
+    assert_same_frame(read_series(write(tmp_path, "l.csv", long)), expected_frame())
 
 
 def test_blank_lines_bom_crlf_and_spaces_are_tolerated(tmp_path):
     text = "\ufeff" + WIDE_CSV.replace("\n", "\r\n").replace(",", ", ") + "\r\n\r\n"
     text = text.replace("2021-03-02", "\r\n2021-03-02", 1)        # a blank line inside
-    same(read_series(write(tmp_path, "w.csv", text)), expected_frame())
+    assert_same_frame(read_series(write(tmp_path, "w.csv", text)), expected_frame())
 
 
 def test_random_frame_round_trips_through_csv_and_parquet(tmp_path):
@@ -150,10 +150,10 @@ def test_random_frame_round_trips_through_csv_and_parquet(tmp_path):
     index = pd.DatetimeIndex(pd.bdate_range("2015-01-01", periods=n), name="date")
     frame = pd.DataFrame(values, index=index, columns=["ALDER", "BIRCH", "CEDAR", "DOGWOOD"])
     frame.to_csv(tmp_path / "w.csv")          # pandas writes floats at round-trip precision
-    same(read_series(tmp_path / "w.csv"), frame)
+    assert_same_frame(read_series(tmp_path / "w.csv"), frame)
     long = frame.stack().rename("value").rename_axis(["date", "asset"]).reset_index()
     long.sample(frac=1.0, random_state=1).to_parquet(tmp_path / "l.parquet", index=False)
-    same(read_series(tmp_path / "l.parquet"), frame)
+    assert_same_frame(read_series(tmp_path / "l.parquet"), frame)
 
 
 # --------------------------------------------------------------------------------- refusals

@@ -20,6 +20,7 @@ Conventions (Nelsen 2006, *An Introduction to Copulas*, 2nd ed., section 2.6 for
 
 from __future__ import annotations
 
+from abc import ABC, abstractmethod
 from collections.abc import Mapping, Sequence
 from typing import ClassVar
 
@@ -37,7 +38,7 @@ QUAD_NODES = 0.5 * (_GL_NODES + 1.0)
 QUAD_WEIGHTS = 0.5 * _GL_WEIGHTS
 
 
-class CopulaFamily:
+class CopulaFamily(ABC):
     """A bivariate parametric copula family, optionally rotated.
 
     Subclasses set the class attributes and implement at least ``_cdf``, ``_logpdf``,
@@ -359,14 +360,17 @@ class CopulaFamily:
         return np.sum(self._logpdf(u, v, tuple(a[:, None] for a in p)), axis=-1)
 
     # ------------------------------------------------------------------ private defaults
+    @abstractmethod
     def _cdf(self, u, v, p):
-        raise NotImplementedError  # pragma: no cover - every family defines its cdf
+        """C(u, v) of the unrotated copula."""
 
+    @abstractmethod
     def _logpdf(self, u, v, p):
-        raise NotImplementedError  # pragma: no cover
+        """log c(u, v) of the unrotated copula."""
 
+    @abstractmethod
     def _h_u_given_v(self, u, v, p):
-        raise NotImplementedError  # pragma: no cover
+        """dC(u, v)/dv of the unrotated copula."""
 
     def _h_v_given_u(self, u, v, p):
         # Every family here is exchangeable: C(u, v) = C(v, u).
@@ -412,7 +416,7 @@ class CopulaFamily:
     def _params_from_tau(self, tau):
         """Numerical inversion of tau for a one-parameter family, by bisection in the fit box."""
         if self.n_params != 1:
-            raise NotImplementedError(f"{self.name}: tau does not determine its parameters")
+            raise ValueError(f"{self.name}: tau does not determine its parameters")
         lo, hi = self.fit_bounds[0]
         tau = np.asarray(tau, dtype=float)
         a = np.full(tau.shape, lo)

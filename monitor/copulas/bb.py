@@ -16,6 +16,8 @@ removable singularity at theta = 2 is harmless.
 
 from __future__ import annotations
 
+from abc import abstractmethod
+
 import numpy as np
 from scipy import special
 
@@ -70,8 +72,9 @@ class _Archimedean2(CopulaFamily):
 
     __slots__ = ()
 
+    @abstractmethod
     def _log_h_and_log_c(self, lu, lub, lv, lvb, p, want_h=True, want_c=True):
-        raise NotImplementedError  # pragma: no cover
+        """(log h_{1|2}, log c), each None where not wanted."""
 
     def _logpdf(self, u, v, p):
         lu, lub = _log_of_unit(u)
