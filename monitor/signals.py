@@ -87,13 +87,13 @@ quarter to a third of true changes are alerted twice: the sequential evidence di
 before the window statistics have filled.
 
 The CUSUM carries the speed. With exact likelihood ratios and ``k = 0``, false alarms come on
-average no sooner than ``exp(h)`` days apart (Lorden 1971). A change is detected after about
-``h / KL`` days, where ``KL`` is the Clayton-to-Gaussian divergence, about 0.055 nats a day at
-tau 0.35; the plug-in ratios of the engine drift by -0.04 a day under the Gaussian rather
-than the exact -0.063, which ``k = 0.01`` offsets. The window statistics alone need 190 to 200
-days, since the window must fill with the new regime. The spike statistic is for jumps
-against the pair's own history. It is not built for a change at constant tau and rarely
-fires on these scenarios.
+average no sooner than ``exp(h)`` days apart (Lorden 1971, Ann. Math. Statist. 42; from
+memory). A change is detected after about ``h / KL`` days, where ``KL`` is the
+Clayton-to-Gaussian divergence, about 0.055 nats a day at tau 0.35. Under the Gaussian the
+engine's plug-in ratios drift by -0.04 a day rather than the exact -0.063, and ``k = 0.01``
+offsets that. The window statistics alone need 190 to 200 days, since the window must fill
+with the new regime. The spike statistic is for jumps against the pair's own history. It is
+not built for a change at constant tau and rarely fires on these scenarios.
 """
 
 from __future__ import annotations
@@ -143,11 +143,12 @@ REQUIRED_COLUMNS = (
 )
 
 #: Columns :func:`pair_signals` adds to a timeline (``{t}`` is ``lower`` or ``upper``).
-SIGNAL_COLUMNS = tuple(
-    f"{name}_{t}" for t in TAILS
-    for name in ("excess", "window", "sequential", "spike", "switch", "evidence", "state",
-                 "alert")
-) + ("alert",)
+SIGNAL_COLUMNS = (
+    *(f"{name}_{t}" for t in TAILS
+      for name in ("excess", "window", "sequential", "spike", "switch", "evidence", "state",
+                   "alert")),
+    "alert",
+)
 
 #: Normal-consistency constant of the interquartile range: IQR of N(0, 1) = 2 * 0.6745.
 IQR_TO_SIGMA = 1.3489795003921634
@@ -183,11 +184,14 @@ class SignalSettings:
         Recent window ends whose share is compared with the reference share.
     switch_entry, switch_exit : float
         Thresholds of that difference of shares, at most 1.
-
-    An entry threshold of ``inf`` switches its statistic off.
     entry_days, exit_days : int
         Consecutive days a statistic must be active to open an episode, and consecutive days
         every statistic must be quiet to close it.
+
+    Notes
+    -----
+    An entry threshold of ``inf`` switches its statistic off. How the defaults were
+    calibrated is in the module docstring.
     """
 
     cusum_reference: float = 0.01
@@ -215,9 +219,9 @@ class SignalSettings:
             if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < 1:
                 raise ValueError(f"{name} must be an integer >= 1, got {value!r}")
         for name in ("cusum_reference", "cusum_entry", "cusum_exit", "cusum_cap",
-                     "window_entry", "window_exit", "excess_gate", "excess_hold", "spike_entry",
-                     "spike_exit",
-                     "switch_min_tail", "switch_aic_margin", "switch_entry", "switch_exit"):
+                     "window_entry", "window_exit", "excess_gate", "excess_hold",
+                     "spike_entry", "spike_exit", "switch_min_tail", "switch_aic_margin",
+                     "switch_entry", "switch_exit"):
             value = getattr(self, name)
             if isinstance(value, bool) or not isinstance(value, int | float | np.floating):
                 raise TypeError(f"{name} must be a number, got {type(value).__name__}")
@@ -247,8 +251,8 @@ class SignalSettings:
         """Stable key naming these settings, e.g. for stored states and episodes."""
         return (f"cusum{self.cusum_reference:g}:{self.cusum_entry:g}-{self.cusum_exit:g}"
                 f":cap{self.cusum_cap:g}/window{self.window_entry:g}-{self.window_exit:g}"
-                f":gate{self.excess_gate:g}-{self.excess_hold:g}/spike{self.spike_entry:g}-{self.spike_exit:g}"
-                f":ref{self.reference_windows}/switch{self.switch_entry:g}-"
+                f":gate{self.excess_gate:g}-{self.excess_hold:g}"
+                f"/spike{self.spike_entry:g}-{self.spike_exit:g}:ref{self.reference_windows}/switch{self.switch_entry:g}-"
                 f"{self.switch_exit:g}:tail{self.switch_min_tail:g}:aic"
                 f"{self.switch_aic_margin:g}:last{self.switch_windows}/days"
                 f"{self.entry_days}-{self.exit_days}/v1")
