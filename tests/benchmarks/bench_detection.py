@@ -182,9 +182,10 @@ def score(timelines: dict[str, list[Timeline]], settings: SignalSettings) -> Fig
         years += (dates.iloc[-1] - dates.iloc[0]).days / 365.25
         for e in sig.episodes:
             by[(e.tail, e.statistic)] = by.get((e.tail, e.statistic), 0) + 1
-    return Figures(np.array(delays, dtype=float), first, np.array(after), upper,
-                   float(np.mean(cover)) if cover else float("nan"), 4.0 * calm_eps / calm_years if calm_years else float("nan"),
-                   np.array(shares), eps, years, by)
+    coverage = float(np.mean(cover)) if cover else float("nan")
+    calm_rate = 4.0 * calm_eps / calm_years if calm_years else float("nan")
+    return Figures(np.array(delays, dtype=float), first, np.array(after), upper, coverage,
+                   calm_rate, np.array(shares), eps, years, by)
 
 
 def report(label: str, fig: Figures, timelines: dict[str, list[Timeline]]) -> None:
