@@ -153,6 +153,11 @@ def rolling_settings(cfg: Config) -> RollingSettings:
                            criterion=r.criterion, tail_q=r.tail_q)
 
 
+def rolling_key(cfg: Config) -> str:
+    """Settings key of the stored rolling metrics (marginal settings plus rolling ones)."""
+    return rolling_settings(cfg).key(marginal_settings(cfg).key)
+
+
 def _universe_pairs(assets: list[str], cfg: Config) -> list[tuple[str, str]]:
     if cfg.rolling.pairs:
         out = []
@@ -275,13 +280,13 @@ def update_rolling(store: Store, cfg: Config, *, progress: bool = True) -> Rolli
 def signals_key(cfg: Config, settings: SignalSettings | None = None) -> str:
     """Settings key of stored episodes: rolling key plus the signal thresholds."""
     settings = settings or SignalSettings()
-    return f"{rolling_settings(cfg).key(marginal_settings(cfg).key)}|{settings.key}"
+    return f"{rolling_key(cfg)}|{settings.key}"
 
 
 def read_pair_signals(store: Store, cfg: Config, a: str, b: str,
                       settings: SignalSettings | None = None) -> PairSignals | None:
     """A pair's signals from its stored timeline (None when nothing is stored)."""
-    key = rolling_settings(cfg).key(marginal_settings(cfg).key)
+    key = rolling_key(cfg)
     timeline = store.read_timeline(key, a, b)
     if timeline.empty:
         return None
@@ -321,7 +326,7 @@ def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | Non
     """Recompute every pair's signals from its stored timeline and store its episodes,
     each pair in its own transaction."""
     settings = SignalSettings()
-    r_key = rolling_settings(cfg).key(marginal_settings(cfg).key)
+    r_key = rolling_key(cfg)
     key = signals_key(cfg, settings)
     pairs = pairs if pairs is not None else store.stored_pairs(r_key)
     in_alert, new_n, ended_n = [], 0, 0
@@ -344,7 +349,7 @@ def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | Non
 
 def read_universe_summary(store: Store, cfg: Config) -> pd.DataFrame:
     """The universe-level summary over time (share of pairs in alert, mean tau and tails)."""
-    r_key = rolling_settings(cfg).key(marginal_settings(cfg).key)
+    r_key = rolling_key(cfg)
     frames = {}
     for a, b in store.stored_pairs(r_key):
         frames[(a, b)] = pair_signals(store.read_timeline(r_key, a, b)).frame

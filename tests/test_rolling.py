@@ -22,7 +22,7 @@ from monitor.copulas import family
 from monitor.empirical import pseudo_observations, spearman_rho, tail_dependence
 from monitor.fitting import select_copula
 from monitor.inference import kendall_tau_interval
-from monitor.pipeline import marginal_settings, rolling_settings, run_update
+from monitor.pipeline import rolling_key, run_update
 from monitor.rolling import (
     RollingSettings,
     _dominance_counts,
@@ -144,7 +144,7 @@ def test_update_is_incremental_and_idempotent(tmp_path):
     day = run_update(cfg, progress=False)
     # A new day costs one window per pair.
     assert day.rolling.new_windows == 3
-    key = rolling_settings(cfg).key(marginal_settings(cfg).key)
+    key = rolling_key(cfg)
     with Store(cfg.store.url) as store:
         tl = store.read_timeline(key, "TREE0", "TREE1")
     assert tl["date"].is_monotonic_increasing and tl["date"].iloc[-1] == prices.index[320]
