@@ -15,6 +15,7 @@ import numpy as np
 from scipy import special
 
 from .base import QUAD_NODES, QUAD_WEIGHTS, UNIT_EPS, CopulaFamily
+from .logmath import log1mexp, log_expm1, logaddexp
 
 _ROTATIONS = (0, 90, 180, 270)
 
@@ -60,7 +61,7 @@ class Clayton(CopulaFamily):
         # Solve v^(-theta-1) s^(-1/theta-1) = w for u: u^-theta = 1 + v^-theta (w^(-theta/(1+theta)) - 1).
         (theta,) = p
         log_term = -theta * np.log(v) + np.log(np.expm1(-theta / (1.0 + theta) * np.log(w)))
-        return np.exp(-np.logaddexp(0.0, log_term) / theta)
+        return np.exp(-logaddexp(0.0, log_term) / theta)
 
     def _kendall_tau(self, p):
         (theta,) = p
@@ -88,20 +89,6 @@ class Clayton(CopulaFamily):
 
 
 # ---------------------------------------------------------------------- shared numerics
-def _log1mexp(x):
-    """log(1 - exp(-x)) for x > 0 to full relative accuracy, switching between expm1 and
-    log1p at x = log 2 (Maechler 2012, "Accurately computing log(1 - exp(-|a|))"; from
-    memory)."""
-    # Both branches are evaluated; the unused one may hit log(0) at x = 0 or tiny x.
-    with np.errstate(divide="ignore"):
-        return np.where(x < np.log(2.0), np.log(-np.expm1(-x)), np.log1p(-np.exp(-x)))
-
-
-def _log_expm1(x):
-    """log(exp(x) - 1) for x > 0 without overflow: x + log(1 - exp(-x))."""
-    return x + _log1mexp(x)
-
-
 def _newton_increasing(fun, x0, lo, hi, *, rtol: float = 1e-13, atol: float = 0.0,
                        max_iter: int = 100):
     """Elementwise root of an increasing function by Newton's method safeguarded by a bracket.
@@ -166,7 +153,7 @@ class Gumbel(CopulaFamily):
     def _parts(u, v, theta):
         # x = -ln u, y = -ln v; A = x^theta + y^theta in logs; m = A^(1/theta).
         lx, ly = np.log(-np.log(u)), np.log(-np.log(v))
-        log_a = np.logaddexp(theta * lx, theta * ly)
+        log_a = logaddexp(theta * lx, theta * ly)
         return lx, ly, log_a, np.exp(log_a / theta)
 
     def _cdf(self, u, v, p):
@@ -177,7 +164,7 @@ class Gumbel(CopulaFamily):
     def _log_density_core(lx, ly, theta):
         # The theta-dependent part of log c that does not split over u and v:
         # (1/theta - 2) ln A - m + ln(m + theta - 1).
-        log_a = np.logaddexp(theta * lx, theta * ly)
+        log_a = logaddexp(theta * lx, theta * ly)
         m = np.exp(log_a / theta)
         return (1.0 / theta - 2.0) * log_a - m + np.log(m + (theta - 1.0))
 
@@ -231,7 +218,7 @@ class Gumbel(CopulaFamily):
         t = _newton_increasing(fun, hi, ly, hi, atol=1e-13)
         # x^theta = m^theta - y^theta, so ln x = t + ln(1 - (y/m)^theta)/theta.
         with np.errstate(divide="ignore"):
-            lx = t + _log1mexp(theta * np.maximum(t - ly, 0.0)) / theta
+            lx = t + log1mexp(theta * np.maximum(t - ly, 0.0)) / theta
         return _clip_unit(np.exp(-np.exp(lx)))
 
     def _sample(self, n, p, rng):
@@ -357,21 +344,21 @@ class Frank(CopulaFamily):
     def _log_n(u, v, vbar, t):
         # N = (1 - e^-t) - (1 - e^-tu)(1 - e^-tv) = e^-tu (1 - e^-tv) + e^-tv (1 - e^-t vbar),
         # a sum of positive terms, so ln N is free of cancellation even where N is tiny.
-        return np.logaddexp(-t * u + _log1mexp(t * v), -t * v + _log1mexp(t * vbar))
+        return logaddexp(-t * u + log1mexp(t * v), -t * v + log1mexp(t * vbar))
 
     def _cdf(self, u, v, p):
         (theta,) = p
         small, t = self._split(theta)
         # theta > 0: 1 + q = 1 - s with s = (1-e^-tu)(1-e^-tv)/(1-e^-t) in (0, 1); log1p(-s)
         # where s is small (C small), ln N - ln(1 - e^-t) where 1 - s is small.
-        log_s = _log1mexp(t * u) + _log1mexp(t * v) - _log1mexp(t)
+        log_s = log1mexp(t * u) + log1mexp(t * v) - log1mexp(t)
         with np.errstate(divide="ignore"):
             log_1ms = np.where(log_s < -np.log(2.0), np.log1p(-np.exp(np.minimum(log_s, 0.0))),
-                               self._log_n(u, v, 1.0 - v, t) - _log1mexp(t))
+                               self._log_n(u, v, 1.0 - v, t) - log1mexp(t))
         positive = -log_1ms / t
         # theta < 0: 1 + q with q = (e^tu - 1)(e^tv - 1)/(e^t - 1) > 0.
-        log_q = _log_expm1(t * u) + _log_expm1(t * v) - _log_expm1(t)
-        negative = np.logaddexp(0.0, log_q) / t
+        log_q = log_expm1(t * u) + log_expm1(t * v) - log_expm1(t)
+        negative = logaddexp(0.0, log_q) / t
         # First order about independence: C = uv [1 + (theta/2)(1-u)(1-v)].
         near = u * v * (1.0 + 0.5 * theta * (1.0 - u) * (1.0 - v))
         return np.where(small, near, np.where(theta > 0, positive, negative))
@@ -381,7 +368,7 @@ class Frank(CopulaFamily):
         (theta,) = p
         small, t = self._split(theta)
         vv, vb = np.where(theta > 0, v, 1.0 - v), np.where(theta > 0, 1.0 - v, v)
-        out = np.log(t) + _log1mexp(t) - t * (u + vv) - 2.0 * self._log_n(u, vv, vb, t)
+        out = np.log(t) + log1mexp(t) - t * (u + vv) - 2.0 * self._log_n(u, vv, vb, t)
         near = 0.5 * theta * (1.0 - 2.0 * u) * (1.0 - 2.0 * v)
         return np.where(small, near, out)
 
@@ -402,7 +389,7 @@ class Frank(CopulaFamily):
         n_term = (np.exp(-tc * u) * -np.expm1(-tc * vv)
                   + np.exp(-tc * vv) * -np.expm1(-tc * vb))
         n = u.shape[-1]
-        out = (n * (np.log(t) + _log1mexp(t)) - t * np.sum(u + vv, axis=-1)
+        out = (n * (np.log(t) + log1mexp(t)) - t * np.sum(u + vv, axis=-1)
                - 2.0 * np.sum(np.log(n_term), axis=-1))
         near = 0.5 * theta * np.sum((1.0 - 2.0 * u) * (1.0 - 2.0 * v), axis=-1)
         return np.where(small, near, out)
@@ -412,7 +399,7 @@ class Frank(CopulaFamily):
         (theta,) = p
         small, t = self._split(theta)
         vv, vb = np.where(theta > 0, v, 1.0 - v), np.where(theta > 0, 1.0 - v, v)
-        out = np.minimum(np.exp(-t * vv + _log1mexp(t * u) - self._log_n(u, vv, vb, t)), 1.0)
+        out = np.minimum(np.exp(-t * vv + log1mexp(t * u) - self._log_n(u, vv, vb, t)), 1.0)
         near = u + 0.5 * theta * u * (1.0 - u) * (1.0 - 2.0 * v)
         return np.where(small, near, out)
 
@@ -424,9 +411,9 @@ class Frank(CopulaFamily):
         small, t = self._split(theta)
         vv = np.where(theta > 0, v, 1.0 - v)
         lw = np.log(w)
-        log_den = np.logaddexp(-t * vv, lw + _log1mexp(t * vv))
-        log_1ma = lw + _log1mexp(t) - log_den
-        log_a = np.logaddexp(-t * vv + np.log1p(-w), lw - t) - log_den
+        log_den = logaddexp(-t * vv, lw + log1mexp(t * vv))
+        log_1ma = lw + log1mexp(t) - log_den
+        log_a = logaddexp(-t * vv + np.log1p(-w), lw - t) - log_den
         with np.errstate(divide="ignore"):
             u = np.where(log_1ma < -np.log(2.0), -np.log1p(-np.exp(np.minimum(log_1ma, 0.0))),
                          -log_a) / t
@@ -527,7 +514,7 @@ class Joe(CopulaFamily):
         oma, omb = -np.expm1(la), -np.expm1(lb)
         prod = oma * omb
         log_s = np.where(prod < 0.5, np.log1p(-np.minimum(prod, 0.5)),
-                         np.logaddexp(la, lb + np.log(oma)))
+                         logaddexp(la, lb + np.log(oma)))
         return lub, lvb, oma, omb, log_s
 
     def _cdf(self, u, v, p):
@@ -570,19 +557,19 @@ class Joe(CopulaFamily):
         # from the smaller of the two bounds converges monotonically.
         (theta,) = p
         lb = theta * np.log1p(-v)
-        log_k = _log1mexp(-lb) - lb
+        log_k = log1mexp(-lb) - lb
         c = -np.log(w)
         kappa = 1.0 - 1.0 / theta
         with np.errstate(divide="ignore", invalid="ignore"):
             y = np.where(kappa > 0, c / kappa, np.inf)
-            hi = np.minimum(np.log1p(-w), _log_expm1(y) - log_k)
+            hi = np.minimum(np.log1p(-w), log_expm1(y) - log_k)
         # f(z) <= e^z (k + 2) for z <= -ln 2, so this point lies left of the root.
-        lo = np.minimum(np.log(c) - np.logaddexp(log_k, np.log(2.0)), -np.log(2.0))
+        lo = np.minimum(np.log(c) - logaddexp(log_k, np.log(2.0)), -np.log(2.0))
         lo = np.minimum(lo, hi - 1.0)
 
         def fun(z):
             s = z + log_k
-            f = kappa * np.logaddexp(0.0, s) - _log1mexp(-z) - c
+            f = kappa * logaddexp(0.0, s) - log1mexp(-z) - c
             return f, kappa * special.expit(s) + 1.0 / np.expm1(-z)
 
         z = _newton_increasing(fun, hi, lo, hi)

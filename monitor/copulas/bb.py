@@ -21,7 +21,8 @@ from abc import abstractmethod
 import numpy as np
 from scipy import special
 
-from .base import UNIT_EPS, CopulaFamily
+from .base import UNIT_EPS, CopulaFamily, rank_grid
+from .logmath import log1mexp, log_expm1, logaddexp
 
 _ROTATIONS = (0, 90, 180, 270)
 _LN2 = float(np.log(2.0))
@@ -39,19 +40,6 @@ _NEWTON_MAX_ITER = 60
 
 
 # ---------------------------------------------------------------------- log-space helpers
-def _log1mexp(x):
-    """log(1 - exp(-x)) for x > 0, with Maechler's (2012) branches split at x = log 2."""
-    with np.errstate(divide="ignore"):
-        return np.where(x < _LN2, np.log(-np.expm1(-x)), np.log1p(-np.exp(-x)))
-
-
-def _log_expm1(y):
-    """log(exp(y) - 1) for y > 0, as y + log(1 - exp(-y)): no overflow for large y and no
-    cancellation for tiny y."""
-    with np.errstate(divide="ignore"):
-        return y + np.log(-np.expm1(-y))
-
-
 def _log_of_unit(x):
     """(log x, log(1 - x)) for x in (0, 1)."""
     return np.log(x), np.log1p(-x)
@@ -59,22 +47,52 @@ def _log_of_unit(x):
 
 def _logit_to_logs(z):
     """(log u, log(1 - u)) for u = 1 / (1 + exp(-z)), accurate at both ends."""
-    return -np.logaddexp(0.0, -z), -np.logaddexp(0.0, z)
+    return -logaddexp(0.0, -z), -logaddexp(0.0, z)
 
 
 class _Archimedean2(CopulaFamily):
     """Shared machinery of the two-parameter Archimedean families.
 
-    A subclass provides ``_log_h_and_log_c(lu, lub, lv, lvb, p, want_h, want_c)``: the logs of
-    h_{1|2}(u | v) and of the density (``None`` where not wanted) from log u, log(1 - u),
-    log v and log(1 - v); this class turns it into the private API of :class:`CopulaFamily`.
+    The logs of h_{1|2}(u | v) and of the density split into per-margin and joint parts. A
+    subclass provides
+
+    - ``_margin(lu, lub, p)``: the parameter-dependent transforms of one margin (a tuple of
+      arrays, the first the one the joint part needs) from log u and log(1 - u);
+    - ``_separable(lu, lub, m, p)``: the part of log c that belongs to that margin alone --
+      it is also the v-margin's part of log h_{1|2};
+    - ``_joint(mu, mv, p, want_h, want_c)``: the remaining parts (log h minus the v-margin's
+      part, log c minus both margins' parts) from the first margin transform of u and of v,
+      each None where not wanted;
+
+    and this class turns them into the private API of :class:`CopulaFamily`. On the rank
+    grid (pseudo-observations without ties) both margins of every window are permutations of
+    the same n points, so the estimator evaluates the margin transforms once per window on the
+    grid, sums the separable parts there and gathers only what the joint part needs.
     """
 
     __slots__ = ()
 
     @abstractmethod
+    def _margin(self, lu, lub, p):
+        """Per-margin transforms (a tuple) from log u and log(1 - u)."""
+
+    @abstractmethod
+    def _separable(self, lu, lub, m, p):
+        """The margin's own part of log c (and the v-margin's part of log h_{1|2})."""
+
+    @abstractmethod
+    def _joint(self, mu, mv, p, want_h=True, want_c=True):
+        """(joint part of log h_{1|2}, joint part of log c) from the margins' first transforms,
+        each None where not wanted."""
+
     def _log_h_and_log_c(self, lu, lub, lv, lvb, p, want_h=True, want_c=True):
         """(log h_{1|2}, log c), each None where not wanted."""
+        mu, mv = self._margin(lu, lub, p), self._margin(lv, lvb, p)
+        hj, cj = self._joint(mu[0], mv[0], p, want_h, want_c)
+        sep_v = self._separable(lv, lvb, mv, p)
+        log_h = None if hj is None else hj + sep_v
+        log_c = None if cj is None else cj + sep_v + self._separable(lu, lub, mu, p)
+        return log_h, log_c
 
     def _logpdf(self, u, v, p):
         lu, lub = _log_of_unit(u)
@@ -82,14 +100,34 @@ class _Archimedean2(CopulaFamily):
         return self._log_h_and_log_c(lu, lub, lv, lvb, p, want_h=False)[1]
 
     def prepare(self, u, v):
-        # The four logs do not depend on the parameters: compute them once per optimisation.
+        # The logs do not depend on the parameters: computed once per optimisation, on the
+        # grid when the data are ranks.
         ru, rv = self._rotate_uv(u, v)
-        return (*_log_of_unit(ru), *_log_of_unit(rv))
+        gu, gv = rank_grid(ru), rank_grid(rv)
+        if gu is None or gv is None:
+            return (*_log_of_unit(ru), *_log_of_unit(rv))
+        n = ru.shape[-1]
+        return gu, gv, _log_of_unit(np.arange(1, n + 1) / (n + 1.0))
+
+    def take(self, data, index):
+        if len(data) == 4:
+            return tuple(a[index] for a in data)
+        return data[0][index], data[1][index], data[2]
 
     def loglik_prepared(self, data, p):
-        lu, lub, lv, lvb = data
         pw = tuple(a[:, None] for a in p)
-        return np.sum(self._log_h_and_log_c(lu, lub, lv, lvb, pw, want_h=False)[1], axis=-1)
+        if len(data) == 4:
+            lu, lub, lv, lvb = data
+            return np.sum(self._log_h_and_log_c(lu, lub, lv, lvb, pw, want_h=False)[1],
+                          axis=-1)
+        gu, gv, (lg, lgb) = data
+        windows, n = gu.shape
+        m = self._margin(lg, lgb, pw)  # each (windows, n): the grid's transforms
+        # Gathered by flat index (several times faster than take_along_axis).
+        offset = np.arange(0, windows * n, n)[:, None]
+        first = m[0].ravel()
+        joint = self._joint(first[gu + offset], first[gv + offset], pw, want_h=False)[1]
+        return 2.0 * np.sum(self._separable(lg, lgb, m, pw), axis=-1) + np.sum(joint, axis=-1)
 
     def _h_u_given_v(self, u, v, p):
         lu, lub = _log_of_unit(u)
@@ -190,33 +228,37 @@ class BB1(_Archimedean2):
     @staticmethod
     def _log_x(lu, theta):
         """log(u^-theta - 1) from log u."""
-        return _log_expm1(-theta * lu)
+        return log_expm1(-theta * lu)
 
     def _cdf(self, u, v, p):
         theta, delta = p
-        ls = np.logaddexp(delta * self._log_x(np.log(u), theta),
+        ls = logaddexp(delta * self._log_x(np.log(u), theta),
                           delta * self._log_x(np.log(v), theta))
-        return np.exp(-np.logaddexp(0.0, ls / delta) / theta)
+        return np.exp(-logaddexp(0.0, ls / delta) / theta)
 
-    def _log_h_and_log_c(self, lu, lub, lv, lvb, p, want_h=True, want_c=True):
+    def _margin(self, lu, lub, p):
+        theta, _ = p
+        return (self._log_x(lu, theta),)
+
+    def _separable(self, lu, lub, m, p):
         theta, delta = p
-        lx = self._log_x(lu, theta)
-        ly = self._log_x(lv, theta)
-        ls = np.logaddexp(delta * lx, delta * ly)
+        return (delta - 1.0) * m[0] - (theta + 1.0) * lu
+
+    def _joint(self, mu, mv, p, want_h=True, want_c=True):
+        theta, delta = p
+        ls = logaddexp(delta * mu, delta * mv)
         lz = ls / delta
-        log1p_z = np.logaddexp(0.0, lz)
-        log_h = log_c = None
+        log1p_z = logaddexp(0.0, lz)
+        h = c = None
         if want_h:
-            log_h = (-(1.0 / theta + 1.0) * log1p_z + (1.0 / delta - 1.0) * ls
-                     + (delta - 1.0) * ly - (theta + 1.0) * lv)
+            h = -(1.0 / theta + 1.0) * log1p_z + (1.0 / delta - 1.0) * ls
         if want_c:
             with np.errstate(divide="ignore"):
                 # theta (delta - 1) vanishes at delta = 1 (Clayton); logaddexp takes -inf.
-                bracket = np.logaddexp(np.log(theta) + np.log(delta - 1.0),
+                bracket = logaddexp(np.log(theta) + np.log(delta - 1.0),
                                        np.log1p(theta * delta) + lz)
-            log_c = (-(1.0 / theta + 2.0) * log1p_z + (1.0 / delta - 2.0) * ls + bracket
-                     + (delta - 1.0) * (lx + ly) - (theta + 1.0) * (lu + lv))
-        return log_h, log_c
+            c = -(1.0 / theta + 2.0) * log1p_z + (1.0 / delta - 2.0) * ls + bracket
+        return h, c
 
     def _kendall_tau(self, p):
         theta, delta = p
@@ -320,42 +362,47 @@ class BB7(_Archimedean2):
     def _logs_a_phi(lub, theta, delta):
         """(log a, log phi) with a = 1 - (1 - u)^theta and phi = a^-delta - 1, from log(1 - u)."""
         g = theta * lub
-        la = _log1mexp(-g)
+        la = log1mexp(-g)
         # Where (1 - u)^theta underflows, log a = -(1 - u)^theta is lost but phi ~ delta e^g.
-        return la, np.where(g < -700.0, np.log(delta) + g, _log_expm1(-delta * la))
+        return la, np.where(g < -700.0, np.log(delta) + g, log_expm1(-delta * la))
 
     @staticmethod
     def _logs_b(ls, delta):
         """(log(1 + s), log b, log(1 - b)) with b = 1 - (1 + s)^(-1/delta), from log s."""
-        log1p_s = np.logaddexp(0.0, ls)
+        log1p_s = logaddexp(0.0, ls)
         # Where 1 + s rounds to 1, b ~ s / delta.
-        lb = np.where(ls < -700.0, ls - np.log(delta), _log1mexp(log1p_s / delta))
+        lb = np.where(ls < -700.0, ls - np.log(delta), log1mexp(log1p_s / delta))
         return log1p_s, lb, -log1p_s / delta
 
     def _cdf(self, u, v, p):
         theta, delta = p
         _, lphi_u = self._logs_a_phi(np.log1p(-u), theta, delta)
         _, lphi_v = self._logs_a_phi(np.log1p(-v), theta, delta)
-        _, lb, _ = self._logs_b(np.logaddexp(lphi_u, lphi_v), delta)
+        _, lb, _ = self._logs_b(logaddexp(lphi_u, lphi_v), delta)
         return -np.expm1(lb / theta)
 
-    def _log_h_and_log_c(self, lu, lub, lv, lvb, p, want_h=True, want_c=True):
+    def _margin(self, lu, lub, p):
         theta, delta = p
-        la_u, lphi_u = self._logs_a_phi(lub, theta, delta)
-        la_v, lphi_v = self._logs_a_phi(lvb, theta, delta)
-        log1p_s, lb, l1mb = self._logs_b(np.logaddexp(lphi_u, lphi_v), delta)
-        log_h = log_c = None
+        la, lphi = self._logs_a_phi(lub, theta, delta)
+        return lphi, la
+
+    def _separable(self, lu, lub, m, p):
+        theta, delta = p
+        return (theta - 1.0) * lub - (delta + 1.0) * m[1]
+
+    def _joint(self, mu, mv, p, want_h=True, want_c=True):
+        theta, delta = p
+        log1p_s, lb, l1mb = self._logs_b(logaddexp(mu, mv), delta)
+        h = c = None
         if want_h:
-            log_h = ((1.0 / theta - 1.0) * lb - (1.0 / delta + 1.0) * log1p_s
-                     - (delta + 1.0) * la_v + (theta - 1.0) * lvb)
+            h = (1.0 / theta - 1.0) * lb - (1.0 / delta + 1.0) * log1p_s
         if want_c:
             with np.errstate(divide="ignore"):
                 # theta - 1 vanishes at theta = 1 (Clayton); logaddexp takes -inf.
-                bracket = np.logaddexp(np.log(theta * (delta + 1.0)) + lb,
+                bracket = logaddexp(np.log(theta * (delta + 1.0)) + lb,
                                        np.log(theta - 1.0) + l1mb)
-            log_c = ((1.0 / theta - 2.0) * lb - (1.0 / delta + 2.0) * log1p_s + bracket
-                     - (delta + 1.0) * (la_u + la_v) + (theta - 1.0) * (lub + lvb))
-        return log_h, log_c
+            c = (1.0 / theta - 2.0) * lb - (1.0 / delta + 2.0) * log1p_s + bracket
+        return h, c
 
     def _kendall_tau(self, p):
         theta, delta = p
