@@ -3,7 +3,8 @@
 For a pair, the standardised residuals of both assets are aligned on the dates both have;
 windows are ``window`` consecutive common dates, with ends every ``step`` dates counted from
 the pair's first common date (so appending data only adds window ends). Within each window the
-residuals are ranked into pseudo-observations, and for every window end the engine computes:
+residuals are ranked into pseudo-observations (all windows at once, :mod:`monitor.sliding`), and
+for every window end the engine computes:
 
 - Kendall's tau (with an influence-function standard error) and Spearman's rho;
 - nonparametric tail dependence C_n(q,q)/q and its upper analogue (binomial standard errors);
@@ -24,11 +25,11 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from numpy.lib.stride_tricks import sliding_window_view
 
 from .copulas import FAMILY_NAMES, family
-from .empirical import kendall_tau, pseudo_observations, spearman_rho, tail_dependence
+from .empirical import spearman_rho, tail_dependence
 from .fitting import select_batched
+from .sliding import sliding_dominance, sliding_kendall_tau, sliding_ranks
 
 #: Stored columns of a pair's timeline, in order (DESIGN.md's export contract is a subset).
 METRIC_COLUMNS = (
@@ -70,47 +71,17 @@ def window_end_positions(n_common: int, settings: RollingSettings, after: int = 
     return ends[ends > after]
 
 
-def _dominance_counts(u: np.ndarray, v: np.ndarray) -> np.ndarray:
-    """#{j : U_j <= U_i, V_j <= V_i} for every point of every row (ties broken by position),
-    by a Fenwick tree over the v-ranks swept in u-order: O(n log n) per row, vectorised
-    across rows."""
-    windows, n = u.shape
-    rows = np.arange(windows)
-    order = np.argsort(u, axis=1, kind="stable")
-    vrank = np.empty((windows, n), dtype=np.intp)
-    np.put_along_axis(vrank, np.argsort(v, axis=1, kind="stable"),
-                      np.broadcast_to(np.arange(1, n + 1), (windows, n)), axis=1)
-    tree = np.zeros((windows, n + 1), dtype=np.int64)
-    counts = np.empty((windows, n), dtype=np.int64)
-    levels = int(np.ceil(np.log2(n + 1))) + 1
-    for k in range(n):
-        idx = order[:, k]
-        r = vrank[rows, idx]
-        total = np.zeros(windows, dtype=np.int64)
-        i = r.copy()
-        for _ in range(levels):
-            live = i > 0
-            total += np.where(live, tree[rows, i * live], 0)
-            i = np.where(live, i - (i & -i), 0)
-        counts[rows, idx] = total + 1
-        i = r.copy()
-        for _ in range(levels):
-            live = i <= n
-            tree[rows[live], i[live]] += 1
-            i = np.where(live, i + (i & -i), n + 1)
-    return counts
-
-
-def kendall_tau_se(u: np.ndarray, v: np.ndarray, tau: np.ndarray) -> np.ndarray:
+def kendall_tau_se(u: np.ndarray, v: np.ndarray, tau: np.ndarray,
+                   dominance: np.ndarray) -> np.ndarray:
     """Influence-function standard error of the sample Kendall's tau of each row.
 
     IF(u, v) = 8 C(u, v) - 4u - 4v + 2 - 2 tau, the first-order (Hoeffding 1948) projection
-    of the U-statistic, estimated with the empirical copula at the sample points; the same
-    estimator as :func:`monitor.inference.kendall_tau_interval`, batched.
+    of the U-statistic, estimated with the empirical copula at the sample points
+    (``dominance / n``, from :func:`monitor.sliding.sliding_dominance`); the same estimator
+    as :func:`monitor.inference.kendall_tau_interval`, batched.
     """
     n = u.shape[1]
-    emp = _dominance_counts(u, v) / n
-    infl = 8 * emp - 4 * u - 4 * v + 2 - 2 * tau[:, None]
+    infl = 8 * (dominance / n) - 4 * u - 4 * v + 2 - 2 * tau[:, None]
     return np.std(infl, axis=1, ddof=1) / np.sqrt(n)
 
 
@@ -150,10 +121,10 @@ def pair_metrics(dates: pd.DatetimeIndex, za: np.ndarray, zb: np.ndarray,
         return PairMetrics(pd.DataFrame(columns=METRIC_COLUMNS), start or {},
                            previous_tau if previous_tau is not None else np.nan)
     first = positions - (w - 1)
-    u = pseudo_observations(sliding_window_view(za, w)[first])
-    v = pseudo_observations(sliding_window_view(zb, w)[first])
-    tau = kendall_tau(u, v)
-    tau_se = kendall_tau_se(u, v, tau)
+    u = sliding_ranks(za, w, first) / (w + 1.0)
+    v = sliding_ranks(zb, w, first) / (w + 1.0)
+    tau = sliding_kendall_tau(za, zb, w, first)
+    tau_se = kendall_tau_se(u, v, tau, sliding_dominance(za, zb, w, first))
     rho_s = spearman_rho(u, v)
     q = settings.tail_q
     emp = tail_dependence(u, v, q)

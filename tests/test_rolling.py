@@ -25,7 +25,6 @@ from monitor.inference import kendall_tau_interval
 from monitor.pipeline import rolling_key, run_update
 from monitor.rolling import (
     RollingSettings,
-    _dominance_counts,
     pair_metrics,
     window_end_positions,
 )
@@ -39,13 +38,6 @@ def _pair(n: int, seed: int):
                     family("clayton").sample(n - half, (1.08,), rng)])
     dates = pd.bdate_range("2016-01-01", periods=n)
     return dates, stats.norm.ppf(uv[:, 0]), stats.norm.ppf(uv[:, 1])
-
-
-def test_dominance_counts_equal_brute_force():
-    rng = np.random.default_rng(1)
-    u, v = rng.uniform(size=(5, 60)), rng.uniform(size=(5, 60))
-    brute = np.sum((u[:, None, :] <= u[:, :, None]) & (v[:, None, :] <= v[:, :, None]), axis=2)
-    np.testing.assert_array_equal(_dominance_counts(u, v), brute)
 
 
 def test_window_metrics_equal_the_one_window_path_and_references():

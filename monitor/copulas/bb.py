@@ -367,12 +367,21 @@ class BB7(_Archimedean2):
         return la, np.where(g < -700.0, np.log(delta) + g, log_expm1(-delta * la))
 
     @staticmethod
-    def _logs_b(ls, delta):
-        """(log(1 + s), log b, log(1 - b)) with b = 1 - (1 + s)^(-1/delta), from log s."""
+    def _logs_b(ls, delta, relative=True):
+        """(log(1 + s), log b, log(1 - b)) with b = 1 - (1 + s)^(-1/delta), from log s.
+
+        With ``relative`` False, log b is only accurate in absolute terms (log(-expm1(-y))
+        throughout, one branch instead of two): enough for the density, where log b is only
+        added and exponentiated, but not for C = 1 - b^(1/theta) near 0."""
         log1p_s = logaddexp(0.0, ls)
+        y = log1p_s / delta
+        if relative:
+            lb = log1mexp(y)
+        else:
+            with np.errstate(divide="ignore"):
+                lb = np.log(-np.expm1(-y))
         # Where 1 + s rounds to 1, b ~ s / delta.
-        lb = np.where(ls < -700.0, ls - np.log(delta), log1mexp(log1p_s / delta))
-        return log1p_s, lb, -log1p_s / delta
+        return log1p_s, np.where(ls < -700.0, ls - np.log(delta), lb), -y
 
     def _cdf(self, u, v, p):
         theta, delta = p
@@ -392,7 +401,7 @@ class BB7(_Archimedean2):
 
     def _joint(self, mu, mv, p, want_h=True, want_c=True):
         theta, delta = p
-        log1p_s, lb, l1mb = self._logs_b(logaddexp(mu, mv), delta)
+        log1p_s, lb, l1mb = self._logs_b(logaddexp(mu, mv), delta, relative=want_h)
         h = c = None
         if want_h:
             h = (1.0 / theta - 1.0) * lb - (1.0 / delta + 1.0) * log1p_s
