@@ -341,24 +341,50 @@ def _export_timeline(args: argparse.Namespace, cfg: Config) -> int:
     return 0
 
 
-def _not_yet(name: str):
-    def run(args: argparse.Namespace, cfg: Config) -> int:
-        # Name the whole command a user typed, e.g. 'comove export timeline'.
-        full = " ".join([name, *(w for w in (getattr(args, "what", None),
-                                             getattr(args, "action", None)) if w)])
-        raise InputError(f"'comove {full}' is not available in this version yet")
-    return run
+def _cmd_serve(args: argparse.Namespace, cfg: Config) -> int:
+    # The dashboard lives outside the library (monitor/ does not depend on dash).
+    from callbacks.serve import serve
+
+    serve(cfg, args.host, args.port)
+    return 0
+
+
+def _cmd_demo(args: argparse.Namespace, cfg: Config) -> int:
+    from callbacks.serve import demo
+
+    demo(args.port, open_browser=not args.no_browser, store_url=args.store)
+    return 0
+
+
+def _cmd_alerts(args: argparse.Namespace, cfg: Config) -> int:
+    from .alert_charts import chart_maker
+    from .mailer import send_pending
+    from .pipeline import rolling_key
+    from .store import Store
+
+    with Store(cfg.store.url, create=False) as store:
+        if args.dry_run:
+            report = send_pending(store, cfg, dry_run=True)
+        else:
+            with chart_maker(store, rolling_key(cfg)) as chart:
+                report = send_pending(store, cfg, chart=chart)
+    print("\n".join(report.lines()))
+    if report.failed:
+        sys.stderr.write(f"error: {report.failed} message(s) not delivered: "
+                         f"{report.errors[0]}; they stay queued and are retried later\n")
+        return 1
+    return 0
 
 
 _COMMANDS = {
     "fit": _cmd_fit,
-    "demo": _not_yet("demo"),
+    "demo": _cmd_demo,
     "synth": _cmd_synth,
     "ingest": _cmd_ingest,
     "update": _cmd_update,
     "export": _cmd_export,
-    "alerts": _not_yet("alerts"),
-    "serve": _not_yet("serve"),
+    "alerts": _cmd_alerts,
+    "serve": _cmd_serve,
 }
 
 

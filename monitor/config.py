@@ -9,6 +9,7 @@ falls back to a default.
 from __future__ import annotations
 
 import os
+import re
 import tomllib
 from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
@@ -61,9 +62,52 @@ class EmailConfig:
     password_env: str = ""
 
 
+#: Kinds of alert rule (see :mod:`monitor.alerts`).
+RULE_KINDS = ("episode", "tail-level", "tail-rise", "universe")
+RULE_TAILS = ("lower", "upper", "both")
+RULE_MEASURES = ("nonparametric", "model")
+
+
+@dataclass(frozen=True, slots=True)
+class AlertRule:
+    """One ``[[alerts.rules]]`` table: when a pair (or the universe) is worth an e-mail.
+
+    - ``episode``: a tail/centre divergence episode starts (and, with ``on_end``, ends);
+    - ``tail-level``: the tail coefficient (``measure``) rises above ``above``;
+    - ``tail-rise``: it rose by at least ``rise`` over the last ``days`` window ends;
+    - ``universe``: the share of pairs in alert reaches ``share``.
+    """
+
+    name: str = ""
+    kind: str = "episode"
+    tail: str = "both"
+    measure: str = "nonparametric"
+    above: float = 0.0
+    rise: float = 0.0
+    days: int = 60
+    share: float = 0.0
+    on_end: bool = False
+
+
 @dataclass(frozen=True, slots=True)
 class AlertsConfig:
     email: EmailConfig = field(default_factory=EmailConfig)
+    #: Rules in force; empty means the default: one rule of kind "episode".
+    rules: tuple[AlertRule, ...] = ()
+    #: Pairs "A/B" that alert on every rule and also on entering the watch state.
+    watchlist: tuple[str, ...] = ()
+    #: Pairs "A/B" or single assets that never alert (the watchlist wins).
+    quiet: tuple[str, ...] = ()
+    #: Only events within this many days of the newest data are queued (a first backfill
+    #: does not mail a decade of history).
+    max_age_days: int = 5
+    #: A new episode of a pair's tail this many days or fewer after its previous one ended
+    #: is recorded but not mailed.
+    cooldown_days: int = 30
+    #: One daily digest instead of one message per event.
+    digest: bool = False
+    #: First retry after a failed delivery, doubling per attempt up to six hours.
+    retry_seconds: int = 300
 
 
 @dataclass(frozen=True, slots=True)
@@ -94,6 +138,9 @@ class Config:
     sources: tuple[SourceConfig, ...] = ()
     source: str = "defaults"
 
+
+#: Fields that hold arrays of tables, and the dataclass of each element.
+_TABLE_ARRAYS: dict[tuple[type, str], type] = {(AlertsConfig, "rules"): AlertRule}
 
 _SECTIONS: dict[str, type] = {
     "store": StoreConfig, "rolling": RollingConfig, "marginals": MarginalsConfig,
@@ -136,7 +183,14 @@ def _section(cls: type, table: Any, where: str, path: str):
         if key not in known:
             raise InputError(f"{path}: unknown key {where}.{key}; known: {', '.join(known)}")
         default = getattr(defaults, key)
-        if hasattr(default, "__dataclass_fields__"):
+        element = _TABLE_ARRAYS.get((cls, key))
+        if element is not None:
+            if not isinstance(value, list) or not all(isinstance(t, dict) for t in value):
+                raise InputError(f"{path}: {where}.{key} must be an array of tables "
+                                 f"([[{where}.{key}]])")
+            values[key] = tuple(_section(element, t, f"{where}.{key}[{i}]", path)
+                                for i, t in enumerate(value, start=1))
+        elif hasattr(default, "__dataclass_fields__"):
             values[key] = _section(type(default), value, f"{where}.{key}", path)
         else:
             values[key] = _coerce(f"{path}: {where}.{key}", value, default)
@@ -204,11 +258,85 @@ def _validate(cfg: Config, path: str) -> None:
                          "when compute.backend = \"dask\"")
     if c.workers < 0:
         raise InputError(f"{path}: compute.workers must be 0 (automatic) or more, got {c.workers}")
+    _validate_alerts(cfg.alerts, path)
     e = cfg.alerts.email
     if e.ssl and e.starttls:
         raise InputError(f"{path}: alerts.email.ssl and alerts.email.starttls exclude each other")
     if not 0 < e.port < 65536:
         raise InputError(f"{path}: alerts.email.port must be a TCP port, got {e.port}")
+
+
+_ADDRESS = re.compile(r"^[A-Za-z0-9.!#$%&'*+/=?^_`{|}~-]+@[A-Za-z0-9-]+(\.[A-Za-z0-9-]+)+$")
+_ENV_NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+
+
+def is_address(text: str) -> bool:
+    """A plain e-mail address (local@domain.tld, no display name or spaces)."""
+    return bool(_ADDRESS.match(text)) and ".." not in text
+
+
+def _pair_or_asset(text: str, allow_asset: bool) -> bool:
+    parts = text.split("/")
+    if len(parts) == 1:
+        return allow_asset and bool(text.strip())
+    return len(parts) == 2 and all(p.strip() for p in parts) and parts[0] != parts[1]
+
+
+def _validate_alerts(a: AlertsConfig, path: str) -> None:
+    e = a.email
+    where = f"{path}: alerts.email"
+    if e.sender and not is_address(e.sender):
+        raise InputError(f"{where}.sender: {e.sender!r} is not an e-mail address")
+    for i, r in enumerate(e.recipients, start=1):
+        if not is_address(r):
+            raise InputError(f"{where}.recipients[{i}]: {r!r} is not an e-mail address")
+    if len(set(e.recipients)) != len(e.recipients):
+        raise InputError(f"{where}.recipients lists an address twice")
+    if e.recipients and not (e.host and e.sender):
+        raise InputError(f"{where}: recipients need host and sender too")
+    for key in ("username_env", "password_env"):
+        name = getattr(e, key)
+        if name and not _ENV_NAME.match(name):
+            raise InputError(f"{where}.{key} must name an environment variable (letters, "
+                             f"digits, underscore), got {name!r}")
+    if bool(e.username_env) != bool(e.password_env):
+        raise InputError(f"{where}: give both username_env and password_env, or neither")
+    names = set()
+    for i, r in enumerate(a.rules, start=1):
+        at = f"{path}: alerts.rules[{i}]"
+        if r.kind not in RULE_KINDS:
+            raise InputError(f"{at}.kind must be one of {', '.join(RULE_KINDS)}; got {r.kind!r}")
+        if r.tail not in RULE_TAILS:
+            raise InputError(f"{at}.tail must be one of {', '.join(RULE_TAILS)}; got {r.tail!r}")
+        if r.measure not in RULE_MEASURES:
+            raise InputError(f"{at}.measure must be one of {', '.join(RULE_MEASURES)}; "
+                             f"got {r.measure!r}")
+        name = r.name or r.kind
+        if name in names:
+            raise InputError(f"{at}.name: {name!r} names two rules")
+        names.add(name)
+        if r.kind == "tail-level" and not 0 < r.above < 1:
+            raise InputError(f"{at}.above must lie in (0, 1) for a tail-level rule, "
+                             f"got {r.above}")
+        if r.kind == "tail-rise" and not (0 < r.rise < 1 and r.days >= 1):
+            raise InputError(f"{at}: a tail-rise rule needs rise in (0, 1) and days >= 1, "
+                             f"got rise {r.rise}, days {r.days}")
+        if r.kind == "universe" and not 0 < r.share <= 1:
+            raise InputError(f"{at}.share must lie in (0, 1] for a universe rule, "
+                             f"got {r.share}")
+    for key, allow in (("watchlist", False), ("quiet", True)):
+        for item in getattr(a, key):
+            if not _pair_or_asset(item, allow):
+                form = '"A/B" or an asset' if allow else '"A/B"'
+                raise InputError(f"{path}: alerts.{key}: {item!r} is not of the form {form}")
+    if a.max_age_days < 0:
+        raise InputError(f"{path}: alerts.max_age_days must be 0 or more, got {a.max_age_days}")
+    if a.cooldown_days < 0:
+        raise InputError(f"{path}: alerts.cooldown_days must be 0 or more, "
+                         f"got {a.cooldown_days}")
+    if a.retry_seconds < 0:
+        raise InputError(f"{path}: alerts.retry_seconds must be 0 or more, "
+                         f"got {a.retry_seconds}")
 
 
 def load_config(path: str | os.PathLike | None = None, store_url: str | None = None) -> Config:

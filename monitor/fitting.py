@@ -208,7 +208,8 @@ def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
     u, v : array_like, shape (windows, n) or (n,)
         Pseudo-observations in (0, 1), one window per row.
     start : array_like, shape (windows, k), optional
-        Warm starts (e.g. the previous window's estimates); default tau inversion.
+        Warm starts (e.g. the previous window's estimates); default (and on rows holding a
+        NaN) the family's start from tau.
     tau : array_like, shape (windows,), optional
         Sample Kendall's tau of each window, if already known (used for the start and, with
         ``rotation_by_sign``, the rotation).
@@ -263,10 +264,15 @@ def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
                         read_only(np.zeros((windows, 0))), read_only(ll),
                         read_only(np.ones(windows, bool)),
                         read_only(np.zeros(windows, np.int64)), n)
-    if start is None:
-        t = np.where(flip, -tau, tau)
-        start = np.column_stack(fam.start_params(t))
-    start = np.broadcast_to(np.asarray(start, dtype=float), (windows, k))
+    start = None if start is None else np.broadcast_to(np.asarray(start, dtype=float),
+                                                       (windows, k))
+    missing = np.ones(windows, bool) if start is None else np.isnan(start).any(axis=1)
+    if missing.any():
+        if tau is None:  # only without rotation_by_sign, so u is not flipped
+            tau = kendall_tau(u, v)
+        t = np.where(flip, -tau, tau)[missing]
+        start = np.array(start if start is not None else np.empty((windows, k)))
+        start[missing] = np.column_stack(fam.start_params(t))
     data = fam.prepare(u, v)
     params, ll, conv, iters = _solve(fam, data, start, chain, max_iter, n)
     return BatchFit(fam.name, fam.param_names, read_only(rotations), read_only(params),

@@ -21,6 +21,7 @@ Mathematics and Economics* 44, 199-213, test based on S_n).
 
 from __future__ import annotations
 
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -28,6 +29,7 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
 from .copulas import CopulaFamily
+from .copulas.base import rank_grid
 from .empirical import empirical_copula, kendall_tau, pseudo_observations
 from .fitting import CopulaFit, _validate_batch, fit_batched
 
@@ -137,16 +139,7 @@ def fit_uncertainty(fit: CopulaFit, u: ArrayLike | None = None, v: ArrayLike | N
             raise ValueError(f"replicates must be at least 20 for intervals; got {replicates}")
         gen = rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
         _, _, refit = _refit(fit, replicates, gen)
-        ok = refit.converged
-        reps = _implied(fam, refit.params[ok])
-        quantities = {
-            k: Interval(float(point[k][0]), float(np.std(reps[k], ddof=1)),
-                        float(np.quantile(reps[k], alpha / 2)),
-                        float(np.quantile(reps[k], 1 - alpha / 2)))
-            for k in point
-        }
-        return FitUncertainty(method, level, quantities, int(ok.sum()), int((~ok).sum()),
-                              "parametric bootstrap with re-ranking; conditional on the family")
+        return _bootstrap_uncertainty(fit, refit.params, refit.converged, level)
     if u is None or v is None:
         raise ValueError("method='hessian' needs the pseudo-observations u and v")
     cov = _inverse_information(fam, np.array(fit.param_tuple), *_validate_batch(u, v))
@@ -160,6 +153,29 @@ def fit_uncertainty(fit: CopulaFit, u: ArrayLike | None = None, v: ArrayLike | N
         quantities[key] = Interval(est, se, est - z * se, est + z * se)
     return FitUncertainty(method, level, quantities, 0, 0,
                           "inverse observed information: ignores rank uncertainty, too narrow")
+
+
+def _bootstrap_uncertainty(fit: CopulaFit, params: NDArray, converged: NDArray,
+                           level: float) -> FitUncertainty:
+    """Percentile intervals from bootstrap refits (rows of ``params``; non-converged left out)."""
+    fam = fit.copula
+    point = _implied(fam, np.array([fit.param_tuple], dtype=float).reshape(1, -1))
+    alpha = 1 - level
+    ok = np.asarray(converged, dtype=bool)
+    if ok.sum() < 2:
+        # Too few converged refits for an interval: say so (NaN), never guess.
+        quantities = {k: Interval(float(point[k][0]), np.nan, np.nan, np.nan) for k in point}
+        return FitUncertainty("bootstrap", level, quantities, int(ok.sum()), int((~ok).sum()),
+                              "parametric bootstrap with re-ranking; too few converged refits")
+    reps = _implied(fam, params[ok])
+    quantities = {
+        k: Interval(float(point[k][0]), float(np.std(reps[k], ddof=1)),
+                    float(np.quantile(reps[k], alpha / 2)),
+                    float(np.quantile(reps[k], 1 - alpha / 2)))
+        for k in point
+    }
+    return FitUncertainty("bootstrap", level, quantities, int(ok.sum()), int((~ok).sum()),
+                          "parametric bootstrap with re-ranking; conditional on the family")
 
 
 def _gradient(func, p: NDArray, fam: CopulaFamily) -> NDArray:
@@ -201,8 +217,38 @@ def cramer_von_mises(u: ArrayLike, v: ArrayLike, fit: CopulaFit) -> float:
     return float(_cvm(u2, v2, fit.copula, np.array([fit.param_tuple], dtype=float))[0])
 
 
+#: Largest number of booleans compared at once by :func:`_rank_dominance`.
+_DOMINANCE_BLOCK = 1 << 22
+
+
+def _rank_dominance(ru: NDArray, rv: NDArray) -> NDArray[np.int64]:
+    """#{j : R_j <= R_i, S_j <= S_i} for every point i of every row of tie-free ranks.
+
+    With pseudo-observations on the rank grid (no ties) this is n C_n(U_i, V_i) exactly. The
+    comparison runs on small integers in blocks of rows, a few times faster than the general
+    :func:`monitor.empirical.empirical_copula` on float data.
+    """
+    rows, n = ru.shape
+    dtype = np.int16 if n < np.iinfo(np.int16).max else np.int32
+    r = ru.astype(dtype)
+    s = rv.astype(dtype)
+    out = np.empty((rows, n), dtype=np.int64)
+    step = max(1, _DOMINANCE_BLOCK // (n * n))
+    for lo in range(0, rows, step):
+        rr, ss = r[lo:lo + step], s[lo:lo + step]
+        out[lo:lo + step] = np.count_nonzero(
+            (rr[:, None, :] <= rr[:, :, None]) & (ss[:, None, :] <= ss[:, :, None]), axis=-1)
+    return out
+
+
 def _cvm(u: NDArray, v: NDArray, fam: CopulaFamily, params: NDArray) -> NDArray:
-    emp = empirical_copula(u, v, u, v)
+    if u.shape[0] == 0:
+        return np.zeros(0)
+    ru, rv = rank_grid(u), rank_grid(v)
+    if ru is not None and rv is not None:
+        emp = _rank_dominance(ru, rv) / u.shape[-1]
+    else:
+        emp = empirical_copula(u, v, u, v)
     p = tuple(params[:, j:j + 1] for j in range(params.shape[1]))
     model = fam.cdf(u, v, p)
     return np.sum((emp - model) ** 2, axis=-1)
@@ -255,3 +301,88 @@ def kendall_tau_interval(u: ArrayLike, v: ArrayLike, level: float = 0.95) -> Int
     se = float(np.std(infl, ddof=1) / np.sqrt(n))
     z = stats.norm.ppf(0.5 + level / 2)
     return Interval(tau, se, max(tau - z * se, -1.0), min(tau + z * se, 1.0))
+
+
+@dataclass(frozen=True, slots=True)
+class CandidateBootstrap:
+    """Goodness of fit of every candidate and intervals of one of them, from one parametric
+    bootstrap per candidate.
+
+    ``gof`` maps each fit's label to its :class:`GoodnessOfFit`; ``uncertainty`` holds the
+    intervals of the fit given as ``selected`` (None if none was given).
+    """
+
+    gof: dict[str, GoodnessOfFit]
+    uncertainty: FitUncertainty | None
+    replicates: int
+
+
+def bootstrap_candidates(u: ArrayLike, v: ArrayLike, fits: Sequence[CopulaFit], *,
+                         replicates: int = 200, selected: CopulaFit | None = None,
+                         level: float = 0.95, rng: np.random.Generator | int | None = None,
+                         progress: Callable[[int, int, str], None] | None = None
+                         ) -> CandidateBootstrap:
+    """Goodness-of-fit p-values of every candidate and intervals of the selected one.
+
+    Parameters
+    ----------
+    u, v : array_like, shape (n,)
+        The pseudo-observations the candidates were fitted on.
+    fits : sequence of CopulaFit
+        The candidates (e.g. ``Selection.fits``).
+    replicates : int
+        Bootstrap replicates per candidate (at least 20 when ``selected`` is given).
+    selected : CopulaFit, optional
+        One of ``fits`` whose parameters, Kendall's tau and tail coefficients get percentile
+        intervals from the same refits.
+    level : float
+        Confidence level of the intervals.
+    rng : Generator or int, optional
+    progress : callable, optional
+        Called as ``progress(done, total, label)`` after each candidate.
+
+    Returns
+    -------
+    CandidateBootstrap
+
+    Notes
+    -----
+    For each candidate C_theta: draw ``replicates`` samples of size n from C_theta (one array
+    of shape (replicates, n)), re-rank them, refit all of them at once with
+    :func:`monitor.fitting.fit_batched` warm-started at theta, and compute the Cramer-von
+    Mises statistics S*_b; p = (#{S*_b >= S_n} + 1/2) / (B + 1) (Genest, Remillard & Beaudoin
+    2009, section 4, as :func:`goodness_of_fit`). The refits theta*_b of the selected family
+    are the parametric bootstrap with re-ranking of :func:`fit_uncertainty`; both procedures
+    draw from the same fitted copula and re-estimate the same way, so one set of refits
+    serves both (the two results then share their random draws). The empirical copula at the
+    sample points of a tie-free bootstrap sample is a dominance count, computed in
+    O(n log n) per replicate (see :func:`_rank_dominance`).
+    """
+    if replicates < 1:
+        raise ValueError(f"replicates must be positive; got {replicates}")
+    if selected is not None and replicates < 20:
+        raise ValueError(f"replicates must be at least 20 for intervals; got {replicates}")
+    u2, v2 = _validate_batch(u, v)
+    gen = rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
+    fits = list(fits)
+    gof: dict[str, GoodnessOfFit] = {}
+    uncertainty = None
+    for i, fit in enumerate(fits):
+        s_n = cramer_von_mises(u2, v2, fit)
+        if fit.n_params == 0:
+            ub, vb = bootstrap_samples(fit, replicates, gen)
+            params = np.zeros((replicates, 0))
+            ok = np.ones(replicates, dtype=bool)
+        else:
+            ub, vb, refit = _refit(fit, replicates, gen)
+            params, ok = refit.params, refit.converged
+        boot = _cvm(ub[ok], vb[ok], fit.copula, params[ok])
+        # No converged refit leaves no reference distribution: the p-value is NaN, not 1/2.
+        p = (np.sum(boot >= s_n) + 0.5) / (boot.size + 1) if boot.size else np.nan
+        gof[fit.label] = GoodnessOfFit(s_n, float(p), int(boot.size), int((~ok).sum()))
+        if selected is not None and fit is selected:
+            uncertainty = (_bootstrap_uncertainty(fit, params, ok, level) if fit.n_params
+                           else fit_uncertainty(fit, level=level))
+        if progress is not None:
+            progress(i + 1, len(fits), fit.label)
+    return CandidateBootstrap(gof, uncertainty, int(replicates))

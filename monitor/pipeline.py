@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 from tqdm import tqdm
 
+from . import alerts
 from .config import Config, SourceConfig
 from .errors import InputError
 from .ingest import (
@@ -28,9 +29,9 @@ from .ingest import (
     read_sql_table_source,
 )
 from .marginals import FilteredSeries, MarginalSettings, extend_series, filter_series
-from .rolling import RollingSettings, pair_metrics, window_end_positions
-from .signals import PairSignals, SignalSettings, pair_signals, universe_summary
-from .store import Store
+from .rolling import CHAIN_FROM, PairWindows, RollingSettings, batch_metrics, window_end_positions
+from .signals import TAILS, PairSignals, SignalSettings, pair_signals
+from .store import Store, outbox
 
 
 def marginal_settings(cfg: Config) -> MarginalSettings:
@@ -185,11 +186,33 @@ class _PairTask:
     replace_all: bool
 
 
-def _pair_task(task: _PairTask, settings: RollingSettings):
-    """Worker: one pair's new window ends."""
-    out = pair_metrics(task.dates, task.za, task.zb, settings, task.positions,
-                       start=task.warm, previous_tau=task.last_tau)
-    return task, out
+def _pair_batch(batch: list[_PairTask], settings: RollingSettings):
+    """Worker: the new window ends of a few pairs, fitted as one batch (or one big pair)."""
+    items = [PairWindows(t.dates, t.za, t.zb, t.positions, t.warm, t.last_tau) for t in batch]
+    return list(zip(batch, batch_metrics(items, settings), strict=True))
+
+
+#: Pairs with at most CHAIN_FROM new windows are fitted together, up to this many windows
+#: per batch (the daily update: one window per pair).
+BATCH_WINDOWS = 256
+
+
+def _batches(tasks: list[_PairTask]) -> list[list[_PairTask]]:
+    """Large pairs alone; small ones grouped into batches of about BATCH_WINDOWS windows."""
+    out, current, size = [], [], 0
+    for t in tasks:
+        n = len(t.positions)
+        if n > CHAIN_FROM:
+            out.append([t])
+            continue
+        if current and size + n > BATCH_WINDOWS:
+            out.append(current)
+            current, size = [], 0
+        current.append(t)
+        size += n
+    if current:
+        out.append(current)
+    return out
 
 
 @dataclass(frozen=True, slots=True)
@@ -213,7 +236,10 @@ def _pair_tasks(store: Store, key: str, settings: RollingSettings, z: pd.DataFra
         dates = pd.DatetimeIndex(common.index)
         state = store.load_pair_state(key, a, b)
         after, warm, last_tau, replace_all = -1, None, None, False
-        if state is not None:
+        if state is None:
+            # A revision dropped the pair's state but kept its older rows: start over.
+            replace_all = store.has_metrics(key, a, b)
+        else:
             hit = dates.get_indexer([pd.Timestamp(state["last_date"])])[0]
             if hit >= 0:
                 after, warm, last_tau = int(hit), state["warm"], state["last_tau"]
@@ -228,7 +254,9 @@ def _pair_tasks(store: Store, key: str, settings: RollingSettings, z: pd.DataFra
 
 def _run_tasks(tasks: list[_PairTask], settings: RollingSettings, cfg: Config,
                progress: bool):
-    """Yield (task, PairMetrics) as pairs finish, on the configured backend."""
+    """Yield lists of (task, PairMetrics), one per batch, as batches finish, on the
+    configured backend."""
+    batches = _batches(tasks)
     bar = tqdm(total=len(tasks), desc="rolling", unit="pair", disable=not progress or None,
                leave=False)
     try:
@@ -237,30 +265,34 @@ def _run_tasks(tasks: list[_PairTask], settings: RollingSettings, cfg: Config,
             from distributed import as_completed as dask_completed
 
             with Client(cfg.compute.scheduler, timeout="20s") as client:
-                futures = client.map(_pair_task, tasks, settings=settings, pure=False)
+                futures = client.map(_pair_batch, batches, settings=settings, pure=False)
                 for fut in dask_completed(futures):
-                    yield fut.result()
-                    bar.update()
+                    done = fut.result()
+                    yield done
+                    bar.update(len(done))
             return
         workers = cfg.compute.workers or os.cpu_count() or 1
-        if workers > 1 and len(tasks) > 1:
-            with ProcessPoolExecutor(min(workers, len(tasks))) as pool:
-                futures = [pool.submit(_pair_task, t, settings) for t in tasks]
+        if workers > 1 and len(batches) > 1:
+            with ProcessPoolExecutor(min(workers, len(batches))) as pool:
+                futures = [pool.submit(_pair_batch, b, settings) for b in batches]
                 for fut in as_completed(futures):
-                    yield fut.result()
-                    bar.update()
+                    done = fut.result()
+                    yield done
+                    bar.update(len(done))
         else:
-            for t in tasks:
-                yield _pair_task(t, settings)
-                bar.update()
+            for b in batches:
+                done = _pair_batch(b, settings)
+                yield done
+                bar.update(len(done))
     finally:
         bar.close()
 
 
 def update_rolling(store: Store, cfg: Config, *, progress: bool = True) -> RollingSummary:
-    """Compute every window end not yet stored, for every monitored pair, and store each pair
-    in its own transaction as it finishes (an interrupted update keeps the finished pairs;
-    a rerun computes exactly the missing ones, from the same stored state)."""
+    """Compute every window end not yet stored, for every monitored pair, and store each batch
+    of pairs (one large pair, or many with few new windows) in one transaction as it finishes
+    (an interrupted update keeps the finished batches; a rerun computes exactly the missing
+    pairs, from the same stored state)."""
     m_key = marginal_settings(cfg).key
     settings = rolling_settings(cfg)
     key = settings.key(m_key)
@@ -268,11 +300,13 @@ def update_rolling(store: Store, cfg: Config, *, progress: bool = True) -> Rolli
     pairs = _universe_pairs([str(c) for c in z.columns], cfg)
     tasks = _pair_tasks(store, key, settings, z, pairs)
     new = 0
-    for task, out in _run_tasks(tasks, settings, cfg, progress):
+    for done in _run_tasks(tasks, settings, cfg, progress):
+        # One transaction per batch: a pair's rows and state always land together.
         with store.transaction() as conn:
-            store.save_pair_metrics(conn, key, task.a, task.b, out.frame, out.last_params,
-                                    out.last_tau, replace_all=task.replace_all)
-        new += len(out.frame)
+            for task, out in done:
+                store.save_pair_metrics(conn, key, task.a, task.b, out.frame, out.last_params,
+                                        out.last_tau, replace_all=task.replace_all)
+                new += len(out.frame)
     return RollingSummary(key, len(pairs), len(tasks), new, cfg.compute.backend)
 
 
@@ -310,10 +344,12 @@ class SignalSummary:
     in_alert: tuple[tuple[str, str, str], ...]
     new_episodes: int
     ended_episodes: int
+    queued: int = 0
 
     def lines(self) -> list[str]:
         out = [(f"signals: {len(self.in_alert)} of {self.pairs} pair(s) in alert; "
-               f"{self.new_episodes} new episode(s), {self.ended_episodes} ended")]
+               f"{self.new_episodes} new episode(s), {self.ended_episodes} ended; "
+               f"{self.queued} alert message(s) queued")]
         for a, b, tails in self.in_alert[:20]:
             out.append(f"  in alert: {a}/{b} ({tails} tail)")
         if len(self.in_alert) > 20:
@@ -321,39 +357,198 @@ class SignalSummary:
         return out
 
 
+def state_runs(frame: pd.DataFrame) -> pd.DataFrame:
+    """Run-length encoding of a pair's daily tail states.
+
+    Parameters
+    ----------
+    frame : DataFrame
+        ``PairSignals.frame`` (at least ``date``, ``state_lower``, ``state_upper``).
+
+    Returns
+    -------
+    DataFrame
+        One row per run of equal state per tail: ``tail, first_date, last_date, state``
+        (first and last window end of the run), tails in :data:`monitor.signals.TAILS`
+        order, runs in date order.
+
+    Notes
+    -----
+    A pair's states change on a few hundred days of thousands, so the runs are what the
+    store keeps (:meth:`monitor.store.Store.sync_state_runs`); :func:`states_on` decodes
+    them at any dates.
+    """
+    dates = pd.to_datetime(frame["date"]).to_numpy()
+    parts = []
+    for tail in TAILS:
+        state = frame[f"state_{tail}"].to_numpy(dtype=object)
+        if state.size == 0:
+            continue
+        change = np.flatnonzero(state[1:] != state[:-1]) + 1
+        first = np.concatenate([[0], change])
+        last = np.concatenate([change - 1, [state.size - 1]])
+        parts.append(pd.DataFrame({"tail": tail, "first_date": dates[first],
+                                   "last_date": dates[last], "state": state[first]}))
+    if not parts:
+        return pd.DataFrame(columns=["tail", "first_date", "last_date", "state"])
+    return pd.concat(parts, ignore_index=True)
+
+
+def states_on(runs: pd.DataFrame, rows: pd.DataFrame) -> pd.DataFrame:
+    """The tail states of pairs on given dates, from stored state runs.
+
+    Parameters
+    ----------
+    runs : DataFrame
+        ``asset_a, asset_b, tail, first_date, last_date, state`` (as read by
+        :meth:`monitor.store.Store.read_state_runs`).
+    rows : DataFrame
+        ``asset_a, asset_b, date``: window ends of the pairs.
+
+    Returns
+    -------
+    DataFrame
+        ``state_lower`` and ``state_upper`` aligned with ``rows`` (same index): the state of
+        the run that covers each date, missing where no stored run covers it (signals not
+        yet computed for that window end).
+    """
+    keys = ["asset_a", "asset_b"]
+    # merge_asof wants identical key dtypes on both sides (also when one side is empty).
+    left = pd.DataFrame({"row": np.arange(len(rows)), "asset_a": rows["asset_a"].to_numpy(),
+                         "asset_b": rows["asset_b"].to_numpy(),
+                         "date": pd.to_datetime(rows["date"]).astype("datetime64[ns]").to_numpy()})
+    left = left.astype({"asset_a": str, "asset_b": str}).sort_values("date", kind="stable")
+    out = {}
+    for tail in TAILS:
+        right = runs.loc[runs["tail"] == tail, [*keys, "first_date", "last_date", "state"]]
+        right = right.astype({"asset_a": str, "asset_b": str, "first_date": "datetime64[ns]",
+                              "last_date": "datetime64[ns]"})
+        right = right.sort_values("first_date", kind="stable")
+        hit = pd.merge_asof(left, right, left_on="date", right_on="first_date", by=keys,
+                            direction="backward")
+        state = hit["state"].where(hit["date"] <= hit["last_date"])
+        result = np.empty(len(rows), dtype=object)
+        result[hit["row"].to_numpy()] = state.to_numpy(dtype=object, na_value=None)
+        out[f"state_{tail}"] = pd.array(result, dtype="string")
+    return pd.DataFrame(out, index=rows.index)
+
+
+@dataclass(frozen=True, slots=True)
+class _PairSignalsOut:
+    """A worker's signals of one pair: what the main process stores and alerts on."""
+
+    a: str
+    b: str
+    episodes: list[dict]
+    runs: pd.DataFrame
+    alert_tails: tuple[str, ...]
+    frame: pd.DataFrame  # the signal frame's recent rows (what the alert rules look at)
+
+
+def _alert_rows_needed(cfg: Config) -> int:
+    """Window ends of a signal frame the alert rules need: the age limit (about 5 window
+    ends per 7 days), the longest change they report, a margin."""
+    days = max([r.days for r in alerts.rules_in_force(cfg)] + [alerts.CHANGE_DAYS])
+    return int(cfg.alerts.max_age_days * 5 / 7) + days + 20
+
+
+def _signals_task(url: str, r_key: str, a: str, b: str, settings: SignalSettings,
+                  keep: int) -> _PairSignalsOut | None:
+    """Worker: read one pair's timeline and compute its signals."""
+    with Store(url, create=False) as store:
+        timeline = store.read_timeline(r_key, a, b)
+    if timeline.empty:
+        return None
+    sig = pair_signals(timeline, settings)
+    last = sig.frame.iloc[-1]
+    tails = tuple(t for t in TAILS if last[f"alert_{t}"])
+    return _PairSignalsOut(a, b, [_episode_row(e) for e in sig.episodes],
+                           state_runs(sig.frame), tails, sig.frame.tail(keep))
+
+
+#: Pairs whose signals are stored together in one transaction.
+SIGNAL_CHUNK = 32
+
+
 def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | None = None
                    ) -> SignalSummary:
-    """Recompute every pair's signals from its stored timeline and store its episodes,
-    each pair in its own transaction."""
+    """Recompute every pair's signals from its stored timeline and store its episodes, state
+    runs and alert messages, in transactions of up to :data:`SIGNAL_CHUNK` pairs; then
+    complete the stored universe summary.
+
+    Notes
+    -----
+    The pairs are computed in a local process pool (``compute.workers``; each worker reads
+    the store itself). A pair's episodes, state runs and queued alerts are written in one
+    transaction, so an alert is queued exactly when the change it reports is stored. A pair
+    whose states changed drops the universe rows from the first changed date in that same
+    transaction (as do revisions and replaced metrics), so the summary is always recomputed
+    from the first date it is missing, even after an interrupted update; a quiet day
+    recomputes one date.
+    """
     settings = SignalSettings()
     r_key = rolling_key(cfg)
     key = signals_key(cfg, settings)
-    pairs = pairs if pairs is not None else store.stored_pairs(r_key)
-    in_alert, new_n, ended_n = [], 0, 0
-    for a, b in sorted(pairs):
-        timeline = store.read_timeline(r_key, a, b)
-        if timeline.empty:
-            continue
-        sig = pair_signals(timeline, settings)
-        last = sig.frame.iloc[-1]
-        tails = [t for t in ("lower", "upper") if last[f"alert_{t}"]]
-        if tails:
-            in_alert.append((a, b, " and ".join(tails)))
+    todo = sorted(pairs if pairs is not None else store.monitored_pairs(r_key))
+    keep = _alert_rows_needed(cfg)
+    in_alert, new_n, ended_n, queued = [], 0, 0, 0
+    workers = min(cfg.compute.workers or os.cpu_count() or 1, max(len(todo), 1))
+    pool = ProcessPoolExecutor(workers) if workers > 1 and len(todo) > 1 else None
+    try:
+        args = [(store.url, r_key, a, b, settings, keep) for a, b in todo]
+        results = (pool.map(_signals_task, *zip(*args), chunksize=8) if pool and args
+                   else (_signals_task(*x) for x in args))
+        chunk: list[_PairSignalsOut] = []
+        for out in results:
+            if out is not None:
+                chunk.append(out)
+            if len(chunk) >= SIGNAL_CHUNK:
+                n_new, n_ended, n_queued = _store_signals(store, cfg, key, chunk)
+                new_n, ended_n, queued = new_n + n_new, ended_n + n_ended, queued + n_queued
+                in_alert += [(o.a, o.b, " and ".join(o.alert_tails)) for o in chunk
+                             if o.alert_tails]
+                chunk = []
+        if chunk:
+            n_new, n_ended, n_queued = _store_signals(store, cfg, key, chunk)
+            new_n, ended_n, queued = new_n + n_new, ended_n + n_ended, queued + n_queued
+            in_alert += [(o.a, o.b, " and ".join(o.alert_tails)) for o in chunk
+                         if o.alert_tails]
+    finally:
+        if pool is not None:
+            pool.shutdown()
+    stored = store.universe_range(key)
+    stored_to = None if stored is None else stored[1]
+    latest = store.latest_window_end(r_key)
+    if latest is not None and (stored_to is None or latest > stored_to):
+        summary = store.universe_after(r_key, key, stored_to)
+        prior = store.read_universe(key)
         with store.transaction() as conn:
-            new, ended = store.sync_episodes(conn, key, a, b,
-                                             [_episode_row(e) for e in sig.episodes])
-        new_n += len(new)
-        ended_n += len(ended)
-    return SignalSummary(key, len(pairs), tuple(in_alert), new_n, ended_n)
+            store.append_universe(conn, key, summary)
+            share = pd.concat([prior["share_alert"],
+                               summary["n_alert"] / summary["n_pairs"]]).sort_index()
+            queued += alerts.queue(conn, outbox, key, alerts.universe_events(cfg, key, share))
+    return SignalSummary(key, len(todo), tuple(in_alert), new_n, ended_n, queued)
+
+
+def _store_signals(store: Store, cfg: Config, key: str, chunk: list[_PairSignalsOut]
+                   ) -> tuple[int, int, int]:
+    new_n = ended_n = queued = 0
+    with store.transaction() as conn:
+        for o in chunk:
+            new, ended = store.sync_episodes(conn, key, o.a, o.b, o.episodes)
+            store.sync_state_runs(conn, key, o.a, o.b, o.runs)
+            # The alert queue changes with the state it reports, in the same transaction.
+            queued += alerts.queue(conn, outbox, key, alerts.pair_events(
+                cfg, key, o.a, o.b, o.frame, new, ended, o.episodes))
+            new_n += len(new)
+            ended_n += len(ended)
+    return new_n, ended_n, queued
 
 
 def read_universe_summary(store: Store, cfg: Config) -> pd.DataFrame:
-    """The universe-level summary over time (share of pairs in alert, mean tau and tails)."""
-    r_key = rolling_key(cfg)
-    frames = {}
-    for a, b in store.stored_pairs(r_key):
-        frames[(a, b)] = pair_signals(store.read_timeline(r_key, a, b)).frame
-    return universe_summary(frames)
+    """The universe-level summary over time (share of pairs in alert, mean tau and tails), as
+    stored by the last update (see :func:`update_signals`)."""
+    return store.read_universe(signals_key(cfg))
 
 
 @dataclass(frozen=True, slots=True)

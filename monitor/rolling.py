@@ -95,40 +95,72 @@ class PairMetrics:
     last_tau: float
 
 
+@dataclass(frozen=True, slots=True)
+class PairWindows:
+    """The window ends of one pair still to compute.
+
+    ``dates`` are the pair's common dates and ``za``, ``zb`` the two assets' standardised
+    residuals on them; ``positions`` the window-end positions (from
+    :func:`window_end_positions`, increasing); ``start`` the warm starts per slot (family,
+    slot rotation) -- the estimates of the window before the first, broadcast to every window
+    as a start -- and ``previous_tau`` that window's Kendall's tau (for the first day's
+    ratios), both None for a first run.
+    """
+
+    dates: pd.DatetimeIndex
+    za: np.ndarray
+    zb: np.ndarray
+    positions: np.ndarray
+    start: dict[tuple[str, int], np.ndarray] | None = None
+    previous_tau: float | None = None
+
+
+#: Windows of one pair beyond which its rows are fitted coarse to fine (``chain``).
+CHAIN_FROM = 16
+
+
 def pair_metrics(dates: pd.DatetimeIndex, za: np.ndarray, zb: np.ndarray,
                  settings: RollingSettings, positions: np.ndarray, *,
                  start: dict[tuple[str, int], np.ndarray] | None = None,
                  previous_tau: float | None = None) -> PairMetrics:
-    """Metrics of the windows ending at ``positions`` of a pair's common dates.
+    """Metrics of the windows ending at ``positions`` of one pair (see :class:`PairWindows`
+    for the arguments and :func:`batch_metrics`)."""
+    return batch_metrics([PairWindows(dates, za, zb, positions, start, previous_tau)],
+                         settings)[0]
 
-    Parameters
-    ----------
-    dates : DatetimeIndex
-        The pair's common dates.
-    za, zb : ndarray
-        The two assets' standardised residuals on those dates.
-    settings : RollingSettings
-    positions : ndarray of int
-        Window-end positions (from :func:`window_end_positions`), increasing.
-    start : dict, optional
-        Warm starts per slot (family, slot rotation) for the first window: the previous
-        window's estimates, broadcast to all windows of the batch as a start.
-    previous_tau : float, optional
-        Kendall's tau of the window before the first one (for the first day's ratios).
+
+def batch_metrics(items: list[PairWindows], settings: RollingSettings) -> list[PairMetrics]:
+    """Metrics of the new window ends of several pairs, fitted as one batch.
+
+    The windows of all pairs are stacked as the rows of one batch (the daily update: one new
+    window per pair, hundreds of pairs, costs about as much as a few windows each). The
+    windows of a single pair with more than :data:`CHAIN_FROM` of them are fitted coarse to
+    fine along the chain instead (consecutive windows have nearby optima).
     """
     w = settings.window
-    if positions.size == 0:
-        return PairMetrics(pd.DataFrame(columns=METRIC_COLUMNS), start or {},
-                           previous_tau if previous_tau is not None else np.nan)
-    first = positions - (w - 1)
-    u = sliding_ranks(za, w, first) / (w + 1.0)
-    v = sliding_ranks(zb, w, first) / (w + 1.0)
-    tau = sliding_kendall_tau(za, zb, w, first)
-    tau_se = kendall_tau_se(u, v, tau, sliding_dominance(za, zb, w, first))
-    rho_s = spearman_rho(u, v)
     q = settings.tail_q
+    sizes = np.array([len(it.positions) for it in items], dtype=np.intp)
+    results: list[PairMetrics | None] = [None] * len(items)
+    for i, it in enumerate(items):
+        if sizes[i] == 0:
+            results[i] = PairMetrics(pd.DataFrame(columns=METRIC_COLUMNS), it.start or {},
+                                     it.previous_tau if it.previous_tau is not None else np.nan)
+    live = [i for i in range(len(items)) if sizes[i]]
+    if not live:
+        return results
+    firsts = [items[i].positions - (w - 1) for i in live]
+    u = np.vstack([sliding_ranks(items[i].za, w, f) for i, f in zip(live, firsts)]) / (w + 1.0)
+    v = np.vstack([sliding_ranks(items[i].zb, w, f) for i, f in zip(live, firsts)]) / (w + 1.0)
+    tau = np.concatenate([sliding_kendall_tau(items[i].za, items[i].zb, w, f)
+                          for i, f in zip(live, firsts)])
+    dominance = np.vstack([sliding_dominance(items[i].za, items[i].zb, w, f)
+                           for i, f in zip(live, firsts)])
+    tau_se = kendall_tau_se(u, v, tau, dominance)
+    rho_s = spearman_rho(u, v)
     emp = tail_dependence(u, v, q)
     emp_lo, emp_hi = np.asarray(emp.lower, float), np.asarray(emp.upper, float)
+    rows = len(tau)
+    bounds = np.concatenate([[0], np.cumsum(sizes[live])])
 
     def binomial_se(lam):
         p = np.clip(lam * q, 0.0, 1.0)
@@ -137,17 +169,21 @@ def pair_metrics(dates: pd.DatetimeIndex, za: np.ndarray, zb: np.ndarray,
     families = tuple(settings.families)
     if "gaussian" not in families:
         families = (*families, "gaussian")
-    starts = None
-    if start:
-        starts = {k: np.broadcast_to(p, (len(positions), p.size)) for k, p in start.items()}
-    sel = select_batched(u, v, families, settings.criterion, tau=tau, start=starts,
-                         chain=8 if len(positions) > 16 else 0)
+    # Warm starts per row: each pair's stored estimates on its rows, NaN (tau start) elsewhere.
+    starts: dict[tuple[str, int], np.ndarray] = {}
+    for j, i in enumerate(live):
+        for key, p in (items[i].start or {}).items():
+            arr = starts.setdefault(key, np.full((rows, np.size(p)), np.nan))
+            arr[bounds[j]:bounds[j + 1]] = p
+    chain = 8 if len(live) == 1 and rows > CHAIN_FROM else 0
+    sel = select_batched(u, v, families, settings.criterion, tau=tau, start=starts or None,
+                         chain=chain)
     fits = sel.fits
     candidate = np.array([f.family in settings.families for f in fits])
     scores = sel.score()
     scores[~candidate] = np.inf
     best = np.argmin(scores, axis=0)
-    cols = np.arange(len(positions))
+    cols = np.arange(rows)
     loglik = np.stack([f.loglik for f in fits])
     lower = np.zeros_like(loglik)
     upper = np.zeros_like(loglik)
@@ -160,7 +196,7 @@ def pair_metrics(dates: pd.DatetimeIndex, za: np.ndarray, zb: np.ndarray,
             p = tuple(f.params[m, j] for j in range(f.n_params))
             lower[s, m] = fam.tail_lower(p)
             upper[s, m] = fam.tail_upper(p)
-    params = np.full((len(positions), 2), np.nan)
+    params = np.full((rows, 2), np.nan)
     names, rots, conv = [], [], []
     for c, s in enumerate(best):
         f = fits[s]
@@ -171,20 +207,26 @@ def pair_metrics(dates: pd.DatetimeIndex, za: np.ndarray, zb: np.ndarray,
     gauss = next(i for i, f in enumerate(fits) if f.family == "gaussian")
     k_best = np.array([fits[s].n_params for s in best])
     ll_best = loglik[best, cols]
-    n_obs = w
 
     def aic_or_bic(ll, k):
-        return (2 * k - 2 * ll) if settings.criterion == "aic" else (k * np.log(n_obs) - 2 * ll)
+        return (2 * k - 2 * ll) if settings.criterion == "aic" else (k * np.log(w) - 2 * ll)
 
     tail_floor = 1e-6
     ll_lower = np.where(lower > tail_floor, loglik, -np.inf).max(axis=0)
     ll_upper = np.where(upper > tail_floor, loglik, -np.inf).max(axis=0)
-    prev = np.concatenate([[tau[0] if previous_tau is None or not np.isfinite(previous_tau)
-                            else previous_tau], tau[:-1]])
+    # Each row's previous window: the row before within its pair, or the stored one.
+    prev = np.empty(rows)
+    for j, i in enumerate(live):
+        lo, hi = bounds[j], bounds[j + 1]
+        before = items[i].previous_tau
+        prev[lo] = tau[lo] if before is None or not np.isfinite(before) else before
+        prev[lo + 1:hi] = tau[lo:hi - 1]
     llr_lo, llr_hi = _newest_day_ratios(u[:, -1], v[:, -1], prev)
     gauss_q = _gaussian_tail_concordance(tau, q)
     frame = pd.DataFrame({
-        "date": dates[positions], "start": dates[first], "n": np.full(len(positions), w),
+        "date": np.concatenate([items[i].dates[items[i].positions] for i in live]),
+        "start": np.concatenate([items[i].dates[f] for i, f in zip(live, firsts)]),
+        "n": np.full(rows, w),
         "kendall_tau": tau, "kendall_tau_se": tau_se, "spearman_rho": rho_s,
         "family": names, "rotation": rots, "param1": params[:, 0], "param2": params[:, 1],
         "converged": conv, "loglik": ll_best, "aic": aic_or_bic(ll_best, k_best),
@@ -195,10 +237,14 @@ def pair_metrics(dates: pd.DatetimeIndex, za: np.ndarray, zb: np.ndarray,
         "gauss_tail_q": gauss_q, "loglik_best_lower": ll_lower, "loglik_best_upper": ll_upper,
         "llr_lower": llr_lo, "llr_upper": llr_hi,
     }, columns=list(METRIC_COLUMNS))
-    # Slot keys as select_batched takes them: rotation 0 or 180 (90 and 270 are their turns).
-    last = {(f.family, int(f.rotations[-1]) // 180 * 180): f.params[-1].copy()
-            for f in fits if f.n_params}
-    return PairMetrics(frame, last, float(tau[-1]))
+    for j, i in enumerate(live):
+        lo, hi = bounds[j], bounds[j + 1]
+        # Slot keys as select_batched takes them: rotation 0 or 180 (90 and 270 are turns).
+        last = {(f.family, int(f.rotations[hi - 1]) // 180 * 180): f.params[hi - 1].copy()
+                for f in fits if f.n_params}
+        results[i] = PairMetrics(frame.iloc[lo:hi].reset_index(drop=True), last,
+                                 float(tau[hi - 1]))
+    return results
 
 
 def _newest_day_ratios(u: np.ndarray, v: np.ndarray, tau: np.ndarray):

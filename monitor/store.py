@@ -14,6 +14,13 @@ Tables (schema version 1):
   row per window end) and what the next incremental batch of a pair starts from.
 - ``episodes``: alert episodes per signal settings key, pair and tail (open ones have no
   end), written when the signals change.
+- ``state_runs``: each pair's daily tail states (calm / watch / alert) per signal settings key,
+  run-length encoded (tail, state, first and last window end of each run), written in the
+  same transaction as the pair's episodes.
+- ``universe_daily``: the universe-level summary per signal settings key and window end (see
+  :func:`monitor.signals.universe_summary`), kept current by ``comove update``; a change to a
+  pair's states or metrics removes the rows from the first date it touches, and the update
+  recomputes the missing dates.
 - ``marginal_fits``, ``marginal_state``, ``residuals``: per marginal settings key and asset
   (see :mod:`monitor.marginals`): every fit with its diagnostics, the input the residuals
   were computed from, and the standardised residuals with their conditional sigma.
@@ -174,6 +181,51 @@ episodes = sa.Table(
         "peak_value", "peak_tail_emp", "peak_tail_model", "peak_gauss_tail",
         "peak_kendall_tau")],
     sa.Column("updated_at", sa.DateTime, nullable=False),
+)
+
+
+state_runs = sa.Table(
+    "state_runs", metadata, *_pair_key(),
+    sa.Column("tail", sa.String(8), primary_key=True),
+    sa.Column("first_date", sa.Date, primary_key=True),
+    sa.Column("last_date", sa.Date, nullable=False),
+    sa.Column("state", sa.String(8), nullable=False),
+)
+
+#: Cross-pair means kept per date in ``universe_daily`` (columns of the metrics timeline).
+UNIVERSE_MEANS = ("kendall_tau", "tail_lower", "tail_upper", "tail_lower_emp", "tail_upper_emp")
+#: Counts kept per date in ``universe_daily``.
+UNIVERSE_COUNTS = ("n_pairs", "n_alert", "n_alert_lower", "n_alert_upper")
+
+universe_daily = sa.Table(
+    "universe_daily", metadata,
+    sa.Column("settings", sa.String(255), primary_key=True),
+    sa.Column("date", sa.Date, primary_key=True),
+    *[sa.Column(name, sa.Integer, nullable=False) for name in UNIVERSE_COUNTS],
+    *[sa.Column(name, _DOUBLE) for name in UNIVERSE_MEANS],
+)
+
+#: The alert e-mail queue (monitor.alerts writes it, monitor.mailer delivers it).
+outbox = sa.Table(
+    "outbox", metadata,
+    sa.Column("message_id", sa.String(128), primary_key=True),
+    sa.Column("settings", sa.String(255), nullable=False),
+    sa.Column("rule", sa.String(64), nullable=False),
+    sa.Column("kind", sa.String(16), nullable=False),
+    sa.Column("asset_a", sa.String(64)),
+    sa.Column("asset_b", sa.String(64)),
+    sa.Column("tail", sa.String(8)),
+    sa.Column("event_date", sa.Date, nullable=False),
+    sa.Column("subject", sa.Text, nullable=False),
+    sa.Column("body_text", sa.Text, nullable=False),
+    sa.Column("body_html", sa.Text, nullable=False),
+    sa.Column("state", sa.String(8), nullable=False),  # pending, sent
+    sa.Column("attempts", sa.Integer, nullable=False),
+    sa.Column("last_error", sa.Text),
+    sa.Column("created", sa.DateTime, nullable=False),
+    sa.Column("next_attempt", sa.DateTime, nullable=False),
+    sa.Column("sent_at", sa.DateTime),
+    sa.Column("sent_as", sa.String(128)),  # the Message-ID it went out under (digests)
 )
 
 
@@ -404,6 +456,9 @@ class Store:
         conn.execute(metrics.delete().where(sa.and_(involves, metrics.c.date >= first)))
         conn.execute(pair_state.delete().where(sa.or_(pair_state.c.asset_a == asset,
                                                       pair_state.c.asset_b == asset)))
+        # The universe summary from that date on mixes the dropped metrics: the next update
+        # recomputes it (under every settings key, as the metrics of each are dropped).
+        conn.execute(universe_daily.delete().where(universe_daily.c.date >= first))
 
     # ------------------------------------------------------------------ marginal results
     def load_filtered(self, settings_key: str, asset: str, conn: sa.Connection | None = None):
@@ -492,6 +547,13 @@ class Store:
                 for k, v in json.loads(row["warm_starts"]).items()}
         return {"last_date": row["last_date"], "last_tau": row["last_tau"], "warm": warm}
 
+    def has_metrics(self, settings_key: str, a: str, b: str) -> bool:
+        """Whether any metric row of the pair is stored under the key."""
+        where = sa.and_(metrics.c.settings == settings_key, metrics.c.asset_a == a,
+                        metrics.c.asset_b == b)
+        with self.engine.connect() as conn:
+            return conn.execute(sa.select(sa.exists().where(where))).scalar_one()
+
     @staticmethod
     def save_pair_metrics(conn: sa.Connection, settings_key: str, a: str, b: str,
                           frame: pd.DataFrame, warm: dict, last_tau: float,
@@ -502,6 +564,9 @@ class Store:
                         metrics.c.asset_b == b)
         if replace_all:
             conn.execute(metrics.delete().where(where))
+            # Every date of the universe summary may have used the replaced rows.
+            conn.execute(universe_daily.delete().where(universe_daily.c.settings.startswith(
+                f"{settings_key}|", autoescape=True)))
         if not frame.empty:
             rows = frame.to_dict("records")
             for r in rows:
@@ -529,11 +594,18 @@ class Store:
         """A pair's stored metric rows, oldest first (columns of the rolling engine)."""
         from .rolling import METRIC_COLUMNS
 
+        # Dates come through as the driver gives them (ISO text on SQLite) and are converted
+        # per column, and the frame is built column-wise: several times faster than
+        # converting row by row, which matters when every pair's timeline is read daily.
+        cols = [sa.type_coerce(metrics.c[c], sa.String) if c in ("date", "start")
+                else metrics.c[c] for c in METRIC_COLUMNS]
         with self.engine.connect() as conn:
-            rows = conn.execute(sa.select(*[metrics.c[c] for c in METRIC_COLUMNS]).where(
+            rows = conn.execute(sa.select(*cols).where(
                 sa.and_(metrics.c.settings == settings_key, metrics.c.asset_a == a,
                         metrics.c.asset_b == b)).order_by(metrics.c.date)).all()
-        frame = pd.DataFrame(rows, columns=list(METRIC_COLUMNS))
+        columns = list(zip(*rows, strict=True)) if rows else [()] * len(METRIC_COLUMNS)
+        frame = pd.DataFrame({c: list(v) for c, v in zip(METRIC_COLUMNS, columns, strict=True)},
+                             columns=list(METRIC_COLUMNS))
         for col in ("date", "start"):
             frame[col] = pd.to_datetime(frame[col])
         return frame
@@ -575,6 +647,254 @@ class Store:
             conn.execute(episodes.insert(), rows)
         return new, ended
 
+    # ------------------------------------------------------------------ states and universe
+    @staticmethod
+    def sync_state_runs(conn: sa.Connection, settings_key: str, a: str, b: str,
+                        runs: pd.DataFrame) -> dt.date | None:
+        """Make the stored state runs of a pair equal ``runs``, writing only the runs that
+        changed, and drop the universe-summary rows from the first date whose state changed.
+
+        Parameters
+        ----------
+        conn : Connection
+            The caller's transaction (the one that syncs the pair's episodes).
+        settings_key : str
+            Signal settings key.
+        a, b : str
+            The pair.
+        runs : DataFrame
+            Columns ``tail, first_date, last_date, state`` (one row per run of equal state;
+            see :func:`monitor.pipeline.state_runs`).
+
+        Returns
+        -------
+        datetime.date or None
+            The first date whose stored state differs from before (None when none does).
+
+        Notes
+        -----
+        A run that only grew (same tail, first date and state, a later last date) changes
+        nothing up to its old last date, so the daily update rewrites one run per tail.
+        """
+        where = sa.and_(state_runs.c.settings == settings_key, state_runs.c.asset_a == a,
+                        state_runs.c.asset_b == b)
+        stored = {(r[0], r[1]): (r[2], r[3]) for r in conn.execute(sa.select(
+            state_runs.c.tail, state_runs.c.first_date, state_runs.c.last_date,
+            state_runs.c.state).where(where))}
+        fresh = {(str(t), f): (last, str(st)) for t, f, last, st in zip(
+            runs["tail"], _dates(runs["first_date"]), _dates(runs["last_date"]),
+            runs["state"], strict=True)}
+        gone = [k for k in stored if k not in fresh]
+        new = [k for k in fresh if k not in stored]
+        changed = [k for k in fresh if k in stored and stored[k] != fresh[k]]
+        touched = [k[1] for k in gone + new]
+        for k in changed:
+            (last0, state0), (last1, state1) = stored[k], fresh[k]
+            touched.append(k[1] if state0 != state1
+                           else min(last0, last1) + dt.timedelta(days=1))
+        if not touched:
+            return None
+        if gone or changed:
+            conn.execute(state_runs.delete().where(sa.and_(
+                where, state_runs.c.tail == sa.bindparam("t"),
+                state_runs.c.first_date == sa.bindparam("f"))),
+                [{"t": t, "f": f} for t, f in gone + changed])
+        if new or changed:
+            conn.execute(state_runs.insert(), [
+                {"settings": settings_key, "asset_a": a, "asset_b": b, "tail": t,
+                 "first_date": f, "last_date": fresh[(t, f)][0], "state": fresh[(t, f)][1]}
+                for t, f in new + changed])
+        first = min(touched)
+        conn.execute(universe_daily.delete().where(sa.and_(
+            universe_daily.c.settings == settings_key, universe_daily.c.date >= first)))
+        return first
+
+    def read_state_runs(self, settings_key: str, pair: tuple[str, str] | None = None, *,
+                        starting_by: dt.date | None = None, ending_from: dt.date | None = None
+                        ) -> pd.DataFrame:
+        """Stored state runs (columns ``asset_a, asset_b, tail, first_date, last_date,
+        state``; dates as Timestamps), of one pair or all, optionally only the runs that start
+        on or before ``starting_by`` and end on or after ``ending_from``."""
+        c = state_runs.c
+        stmt = sa.select(c.asset_a, c.asset_b, c.tail, c.first_date, c.last_date, c.state).where(
+            c.settings == settings_key)
+        if pair is not None:
+            stmt = stmt.where(c.asset_a == pair[0], c.asset_b == pair[1])
+        if starting_by is not None:
+            stmt = stmt.where(c.first_date <= starting_by)
+        if ending_from is not None:
+            stmt = stmt.where(c.last_date >= ending_from)
+        with self.engine.connect() as conn:
+            rows = conn.execute(stmt.order_by(c.asset_a, c.asset_b, c.tail, c.first_date)).all()
+        frame = pd.DataFrame(rows, columns=["asset_a", "asset_b", "tail", "first_date",
+                                            "last_date", "state"])
+        for col in ("first_date", "last_date"):
+            frame[col] = pd.to_datetime(frame[col])
+        return frame
+
+    def metrics_as_of(self, settings_key: str, as_of: dt.date,
+                      columns: Iterable[str]) -> pd.DataFrame:
+        """For every pair with a stored rolling state, its latest metric row dated on or before
+        ``as_of``: one query (columns ``asset_a, asset_b`` and ``columns``; ``date`` as a
+        Timestamp when asked for). Pairs with no window end by then are left out.
+
+        Notes
+        -----
+        A common table expression first finds each pair's latest date with a correlated
+        ``max`` over the metrics key (settings, pair, date): one index seek per pair. It is
+        materialised where the database supports it (SQLite >= 3.35, PostgreSQL >= 12), so
+        the planner cannot fold it into a scan of every window end (seconds instead of
+        milliseconds for 435 pairs x 4750 windows).
+        """
+        columns = list(columns)
+        inner = metrics.alias("later")
+        latest = (sa.select(sa.func.max(inner.c.date)).where(
+            inner.c.settings == pair_state.c.settings, inner.c.asset_a == pair_state.c.asset_a,
+            inner.c.asset_b == pair_state.c.asset_b, inner.c.date <= as_of)
+            .scalar_subquery())
+        with self.engine.connect() as conn:
+            ends = sa.select(pair_state.c.asset_a, pair_state.c.asset_b,
+                             latest.label("last_end")).where(
+                pair_state.c.settings == settings_key).cte("ends")
+            if _materialises(conn):
+                ends = ends.prefix_with("MATERIALIZED")
+            stmt = (sa.select(metrics.c.asset_a, metrics.c.asset_b,
+                              *[metrics.c[c] for c in columns])
+                    .select_from(ends.join(metrics, sa.and_(
+                        metrics.c.settings == settings_key,
+                        metrics.c.asset_a == ends.c.asset_a,
+                        metrics.c.asset_b == ends.c.asset_b,
+                        metrics.c.date == ends.c.last_end)))
+                    .order_by(metrics.c.asset_a, metrics.c.asset_b))
+            rows = conn.execute(stmt).all()
+        frame = pd.DataFrame(rows, columns=["asset_a", "asset_b", *columns])
+        for col in ("date", "start"):
+            if col in frame.columns:
+                frame[col] = pd.to_datetime(frame[col])
+        return frame
+
+    def universe_after(self, rolling_settings_key: str, signals_settings_key: str,
+                       after: dt.date | None) -> pd.DataFrame:
+        """The universe summary of the dates after ``after`` (all when None), aggregated by
+        the database from the stored metrics and state runs.
+
+        Returns
+        -------
+        DataFrame
+            The columns of :func:`monitor.signals.universe_summary`, indexed by ``date``:
+            per date, the pairs with a window end (``n_pairs``), those whose stored state run
+            covering that window end is ``alert`` in the lower tail, the upper tail and
+            either (``n_alert``), and the cross-pair means (NULLs left out, as pandas does).
+
+        Notes
+        -----
+        Five grouped queries. The alert counts join the few alert runs (materialised first)
+        to the metrics key range they cover, so they cost what the alerts cover, not the
+        whole history.
+        """
+        m = metrics.c
+        base = [m.settings == rolling_settings_key]
+        if after is not None:
+            base.append(m.date > after)
+        means = (sa.select(m.date, sa.func.count().label("n_pairs"),
+                           *[sa.func.avg(m[c]).label(c) for c in UNIVERSE_MEANS])
+                 .where(*base).group_by(m.date))
+
+        def covered(tail: str, conn: sa.Connection) -> sa.Select:
+            r = state_runs.c
+            runs = sa.select(r.asset_a, r.asset_b, r.first_date, r.last_date).where(
+                r.settings == signals_settings_key, r.tail == tail, r.state == "alert")
+            if after is not None:
+                runs = runs.where(r.last_date > after)
+            runs = runs.cte(f"alert_{tail}")
+            if _materialises(conn):
+                runs = runs.prefix_with("MATERIALIZED")
+            return (sa.select(m.date, m.asset_a, m.asset_b)
+                    .select_from(runs.join(metrics, sa.and_(
+                        m.asset_a == runs.c.asset_a, m.asset_b == runs.c.asset_b,
+                        m.date >= runs.c.first_date, m.date <= runs.c.last_date)))
+                    .where(*base))
+
+        def per_date(rows: sa.Select) -> sa.Select:
+            sub = rows.subquery()
+            return sa.select(sub.c.date, sa.func.count()).group_by(sub.c.date)
+
+        with self.engine.connect() as conn:
+            frame = pd.DataFrame(conn.execute(means).all(),
+                                 columns=["date", "n_pairs", *UNIVERSE_MEANS])
+            counts = {}
+            for name, rows in (("n_alert", sa.union(covered("lower", conn),
+                                                    covered("upper", conn))),
+                               ("n_alert_lower", covered("lower", conn)),
+                               ("n_alert_upper", covered("upper", conn))):
+                counts[name] = dict(conn.execute(per_date(rows)).all())
+        for name, got in counts.items():
+            frame[name] = frame["date"].map(got).fillna(0).astype(np.int64)
+        frame.index = pd.DatetimeIndex(pd.to_datetime(frame.pop("date")), name="date")
+        frame = frame.sort_index()
+        frame["n_pairs"] = frame["n_pairs"].astype(np.int64)
+        for c in UNIVERSE_MEANS:
+            frame[c] = pd.to_numeric(frame[c]).astype(float)
+        frame["share_alert"] = frame["n_alert"] / frame["n_pairs"]
+        return frame[["n_pairs", "n_alert", "share_alert", "n_alert_lower", "n_alert_upper",
+                      *UNIVERSE_MEANS]]
+
+    def latest_window_end(self, settings_key: str) -> dt.date | None:
+        """The latest stored window end of any pair under a rolling settings key."""
+        with self.engine.connect() as conn:
+            return conn.execute(sa.select(sa.func.max(pair_state.c.last_date)).where(
+                pair_state.c.settings == settings_key)).scalar_one_or_none()
+
+    def universe_range(self, settings_key: str) -> tuple[dt.date, dt.date] | None:
+        """First and last date of the stored universe summary (None when none is stored)."""
+        u = universe_daily.c
+        with self.engine.connect() as conn:
+            first, last = conn.execute(sa.select(sa.func.min(u.date), sa.func.max(u.date)).where(
+                u.settings == settings_key)).one()
+        return None if last is None else (first, last)
+
+    @staticmethod
+    def append_universe(conn: sa.Connection, settings_key: str, summary: pd.DataFrame) -> int:
+        """Store universe-summary rows (a frame like :func:`monitor.signals.universe_summary`'s,
+        for dates not stored yet); returns the number of rows written."""
+        if summary.empty:
+            return 0
+        rows = []
+        for day, r in zip(_dates(summary.index), summary.to_dict("records"), strict=True):
+            row = {"settings": settings_key, "date": day}
+            row.update({c: int(r[c]) for c in UNIVERSE_COUNTS})
+            row.update({c: float(r[c]) if np.isfinite(r[c]) else None for c in UNIVERSE_MEANS})
+            rows.append(row)
+        conn.execute(universe_daily.insert(), rows)
+        return len(rows)
+
+    def read_universe(self, settings_key: str) -> pd.DataFrame:
+        """The stored universe summary, oldest first, with the columns of
+        :func:`monitor.signals.universe_summary` (``share_alert`` is ``n_alert / n_pairs``)."""
+        u = universe_daily.c
+        with self.engine.connect() as conn:
+            rows = conn.execute(sa.select(u.date, *[u[c] for c in UNIVERSE_COUNTS],
+                                          *[u[c] for c in UNIVERSE_MEANS]).where(
+                u.settings == settings_key).order_by(u.date)).all()
+        frame = pd.DataFrame(rows, columns=["date", *UNIVERSE_COUNTS, *UNIVERSE_MEANS])
+        frame.index = pd.DatetimeIndex(pd.to_datetime(frame.pop("date")), name="date")
+        for c in UNIVERSE_COUNTS:
+            frame[c] = frame[c].astype(np.int64)
+        for c in UNIVERSE_MEANS:
+            frame[c] = pd.to_numeric(frame[c]).astype(float)
+        frame.insert(2, "share_alert", frame["n_alert"] / frame["n_pairs"])
+        return frame
+
+    def monitored_pairs(self, settings_key: str) -> list[tuple[str, str]]:
+        """Pairs with a stored rolling state under a rolling settings key, sorted: the pairs
+        the dashboard lists (one row per pair, so cheap; :meth:`stored_pairs` scans the
+        metrics)."""
+        with self.engine.connect() as conn:
+            return [tuple(r) for r in conn.execute(
+                sa.select(pair_state.c.asset_a, pair_state.c.asset_b).where(
+                    pair_state.c.settings == settings_key)
+                .order_by(pair_state.c.asset_a, pair_state.c.asset_b))]
+
     def stored_pairs(self, settings_key: str) -> list[tuple[str, str]]:
         with self.engine.connect() as conn:
             return [tuple(r) for r in conn.execute(
@@ -596,6 +916,18 @@ class Store:
         wide.columns = [str(c) for c in wide.columns]
         wide.columns.name = None
         return wide
+
+
+def _materialises(conn: sa.Connection) -> bool:
+    """Whether the database takes ``WITH name AS MATERIALIZED (...)``."""
+    dialect = conn.dialect
+    if dialect.name == "sqlite":
+        import sqlite3
+
+        return sqlite3.sqlite_version_info >= (3, 35)
+    if dialect.name == "postgresql":
+        return (dialect.server_version_info or (0,)) >= (12,)
+    return False
 
 
 def checksum_bytes(data: bytes) -> str:

@@ -8,6 +8,7 @@ goodness-of-fit p-values and intervals.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -21,8 +22,7 @@ from .inference import (
     FitUncertainty,
     GoodnessOfFit,
     Interval,
-    fit_uncertainty,
-    goodness_of_fit,
+    bootstrap_candidates,
     kendall_tau_interval,
 )
 from .marginals import MarginalSettings, filter_series
@@ -147,7 +147,8 @@ def study_window(frame: pd.DataFrame, a: str, b: str, *, kind: str = "returns",
                  families: tuple[str, ...] = FAMILY_NAMES, criterion: str = "aic",
                  tail_q: float = 0.10, bootstrap: int = 0,
                  rng: np.random.Generator | int | None = None,
-                 source: str = "input", filter_info: dict | None = None) -> WindowStudy:
+                 source: str = "input", filter_info: dict | None = None,
+                 progress: Callable[[int, int, str], None] | None = None) -> WindowStudy:
     """Study one pair on one window.
 
     Parameters
@@ -170,12 +171,20 @@ def study_window(frame: pd.DataFrame, a: str, b: str, *, kind: str = "returns",
         intervals (the selected family); 0 skips them.
     filter_info : dict, optional
         Provenance of the columns (from :func:`filtered_pair`), carried into the result.
+    progress : callable, optional
+        Called as ``progress(done, total, label)`` after each candidate's bootstrap.
 
     Raises
     ------
     InputError
         Unknown column, fewer than :data:`MIN_ROWS` usable rows, a constant column, uniforms
         outside (0, 1).
+
+    Notes
+    -----
+    With ``bootstrap`` > 0 every candidate gets one parametric bootstrap (all replicates
+    refitted at once) that yields its goodness-of-fit p-value; the selected family's
+    intervals come from the same refits (:func:`monitor.inference.bootstrap_candidates`).
     """
     if kind not in KINDS:
         raise InputError(f"--kind must be one of {', '.join(KINDS)}, got {kind!r}")
@@ -210,9 +219,9 @@ def study_window(frame: pd.DataFrame, a: str, b: str, *, kind: str = "returns",
     gof: dict[str, GoodnessOfFit] = {}
     uncertainty = None
     if bootstrap:
-        for f in selection.fits:
-            gof[f.label] = goodness_of_fit(u, v, f, replicates=bootstrap, rng=gen)
-        uncertainty = fit_uncertainty(selection.selected, u, v, replicates=bootstrap, rng=gen)
+        boot = bootstrap_candidates(u, v, selection.fits, replicates=bootstrap,
+                                    selected=selection.selected, rng=gen, progress=progress)
+        gof, uncertainty = boot.gof, boot.uncertainty
     return WindowStudy(
         pair=(a, b), kind=kind, start=both.index[0], end=both.index[-1], n=n, dropped=dropped,
         u=u, v=v, kendall_tau=kendall_tau_interval(u, v),

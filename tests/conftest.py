@@ -224,3 +224,30 @@ def take_snapshot(url: str) -> StoreSnapshot:
 def store_snapshot() -> Callable[[str], StoreSnapshot]:
     """``store_snapshot(url)``: a :class:`StoreSnapshot` to compare before and after."""
     return take_snapshot
+
+
+# ----------------------------------------------------------------------------- browser
+REQUIRE_BROWSER = "COMOVE_REQUIRE_BROWSER"
+
+
+def pytest_setup_options():
+    """Chrome options for dash.testing's headless browser: nothing may reach the network."""
+    from selenium.webdriver.chrome.options import Options
+
+    options = Options()
+    for flag in ("--disable-background-networking", "--disable-component-update",
+                 "--disable-sync", "--no-first-run", "--disable-quic",
+                 "--window-size=1400,900"):
+        options.add_argument(flag)
+    return options
+
+
+@pytest.fixture
+def browser_available() -> None:
+    """Skip (or fail under ``COMOVE_REQUIRE_BROWSER=1``) without chromium and its driver."""
+    missing = [b for b in ("chromium", "chromedriver") if shutil.which(b) is None]
+    if missing:
+        reason = f"browser tests need {' and '.join(missing)} on PATH"
+        if os.environ.get(REQUIRE_BROWSER) == "1":
+            pytest.fail(f"{REQUIRE_BROWSER}=1 but {reason}", pytrace=False)
+        pytest.skip(reason)

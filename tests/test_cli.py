@@ -265,19 +265,6 @@ def test_usage_errors_exit_2_with_one_line(work, args, message):
     assert re.search(message, line), line
 
 
-@pytest.mark.parametrize("args", [
-    ["demo", "--no-browser"],
-    ["alerts", "send", "--dry-run"], ["serve"],
-], ids=lambda a: " ".join(a[:2]))
-def test_commands_not_yet_available_exit_2_with_one_line(work, args):
-    # When one of these lands, its own tests replace this one; the timeout keeps a command
-    # that starts serving from hanging the suite.
-    line = assert_one_error_line(run(args, work, timeout=30))
-    words = [w for w in args if not w.startswith("-")][:2 if args[0] in ("export", "alerts")
-                                                         else 1]
-    assert line == f"error: 'comove {' '.join(words)}' is not available in this version yet"
-
-
 # -------------------------------------------------------------------------- fit: the contract
 def test_fit_json_has_the_contract_keys(study):
     assert TOP_KEYS <= set(study)

@@ -24,7 +24,9 @@ from monitor.fitting import select_copula
 from monitor.inference import kendall_tau_interval
 from monitor.pipeline import rolling_key, run_update
 from monitor.rolling import (
+    PairWindows,
     RollingSettings,
+    batch_metrics,
     pair_metrics,
     window_end_positions,
 )
@@ -78,6 +80,30 @@ def test_window_metrics_equal_the_one_window_path_and_references():
         assert row["llr_lower"] == pytest.approx(float(llr), abs=1e-10)
     rho_half = family("gaussian").cdf(0.1, 0.1, (0.5,)) / 0.1
     assert float(rho_half) == pytest.approx(0.3240, abs=5e-5)
+
+
+def test_many_pairs_in_one_batch_equal_each_pair_alone():
+    # The daily update stacks one new window of every pair into one batch: each pair's rows,
+    # with its own warm starts and previous tau, must equal that pair computed on its own.
+    settings = RollingSettings(window=120)
+    items = []
+    for seed in range(4):
+        dates, za, zb = _pair(200, seed)
+        before = window_end_positions(len(dates), settings)[:-2 - seed % 2]
+        prior = pair_metrics(dates, za, zb, settings, before[-3:])
+        after = window_end_positions(len(dates), settings, after=int(before[-1]))
+        items.append(PairWindows(dates, za, zb, after, prior.last_params, prior.last_tau))
+    items.append(PairWindows(dates, za, zb, np.empty(0, np.intp)))  # nothing new
+    batch = batch_metrics(items, settings)
+    assert batch[-1].frame.empty
+    for it, got in zip(items[:-1], batch[:-1], strict=True):
+        alone = pair_metrics(it.dates, it.za, it.zb, settings, it.positions, start=it.start,
+                             previous_tau=it.previous_tau)
+        assert len(got.frame) == len(it.positions) in (2, 3)
+        pd.testing.assert_frame_equal(got.frame, alone.frame)
+        assert got.last_tau == alone.last_tau
+        for key, p in alone.last_params.items():
+            np.testing.assert_array_equal(got.last_params[key], p)
 
 
 def test_positions_are_anchored_so_appending_only_adds_window_ends():

@@ -55,6 +55,6 @@ def test_every_window_of_a_long_series_and_a_single_window():
 
 
 def test_windows_outside_the_series_are_refused():
-    x, y = _series(100, 1)
+    x, _ = _series(100, 1)
     with pytest.raises(ValueError, match="do not fit a series of 100"):
         sliding_ranks(x, 30, np.array([0, 71]))

@@ -39,6 +39,7 @@ from monitor.pipeline import (
     rolling_settings,
     update_marginals,
     update_rolling,
+    update_signals,
 )
 from monitor.store import Store
 from synthetic_feeds import generate
@@ -51,12 +52,15 @@ def main() -> None:
     ap.add_argument("--workers", type=int, default=0, help="0: one per core")
     ap.add_argument("--sample", type=int, default=60, help="windows in the loop sample")
     ap.add_argument("--seed", type=int, default=7)
+    ap.add_argument("--keep", metavar="DIR",
+                    help="build the store in DIR and keep it (for bench_dashboard.py)")
     args = ap.parse_args()
 
     scen = generate("wide-grid", seed=args.seed, n_assets=args.assets, n_days=args.days + 1)
     prices = scen.prices
-    with tempfile.TemporaryDirectory() as tmp:
-        tmp = Path(tmp)
+    with tempfile.TemporaryDirectory() as scratch:
+        tmp = Path(args.keep or scratch)
+        tmp.mkdir(parents=True, exist_ok=True)
         url = f"sqlite:///{tmp / 'store.sqlite'}"
         cfg = Config(store=StoreConfig(url=url), compute=ComputeConfig(workers=args.workers))
         prices.iloc[:-1].to_csv(tmp / "history.csv", float_format="%.12g")
@@ -71,18 +75,25 @@ def main() -> None:
             t0 = time.perf_counter()
             roll = update_rolling(store, cfg, progress=True)
             t_roll = time.perf_counter() - t0
+            t0 = time.perf_counter()
+            update_signals(store, cfg)
+            t_sig0 = time.perf_counter() - t0
             print(f"universe: {args.assets} assets x {args.days} days, {roll.pairs} pairs, "
                   f"{roll.new_windows} window ends (window 250, step 1, all families)")
+            total = t_ingest + t_marg + t_roll + t_sig0
             print(f"full backfill: ingest {t_ingest:.1f} s, marginals {t_marg:.1f} s, rolling "
-                  f"{t_roll:.1f} s, total {t_ingest + t_marg + t_roll:.1f} s "
-                  f"({(t_ingest + t_marg + t_roll) / 60:.1f} min)")
+                  f"{t_roll:.1f} s, signals {t_sig0:.1f} s, total {total:.1f} s "
+                  f"({total / 60:.1f} min)")
             t0 = time.perf_counter()
             ingest_sources(store, [read_file_source(tmp / "today.csv", "prices")])
             m1 = update_marginals(store, cfg, progress=False)
             r1 = update_rolling(store, cfg, progress=False)
             t_day = time.perf_counter() - t0
-            print(f"one-day update (ingest + marginals + rolling): {t_day:.1f} s, "
-                  f"{m1.new_residuals} residuals, {r1.new_windows} window ends")
+            update_signals(store, cfg)
+            t_sig = time.perf_counter() - t0 - t_day
+            print(f"one-day update: ingest + marginals + rolling {t_day:.1f} s "
+                  f"({m1.new_residuals} residuals, {r1.new_windows} window ends); "
+                  f"signals, episodes and alert queue {t_sig:.1f} s; total {t_day + t_sig:.1f} s")
             _baseline(store, cfg, roll.new_windows, t_roll, args)
 
 

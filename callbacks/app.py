@@ -1,0 +1,87 @@
+"""The app factory: builds the Dash app for a configuration and registers every page.
+
+Pages are routed by our own small router (one callback on the URL) rather than Dash's global
+page registry, so that several apps can live in one process (tests build many).
+"""
+
+from __future__ import annotations
+
+import hmac
+import importlib
+import tempfile
+from urllib.parse import parse_qs
+
+import dash
+import diskcache
+from dash import Input, Output, State
+from flask import Response, request
+
+from layouts import ids
+from layouts.pages import PAGES
+from layouts.shell import nav, not_found, shell
+from monitor.config import Config
+from monitor.store import Store
+from monitor.views import StoreView
+
+#: Environment variable holding the access secret required off the loopback interface.
+SECRET_ENV = "COMOVE_DASHBOARD_SECRET"
+
+
+def page_modules(kind: str) -> dict[str, object]:
+    """``layouts`` or ``callbacks`` module of every page, by path."""
+    return {p.path: importlib.import_module(f"{kind}.{p.module}") for p in PAGES}
+
+
+def create_app(cfg: Config, *, store: Store | None = None, secret: str | None = None,
+               cache_dir: str | None = None) -> dash.Dash:
+    """The dashboard for ``cfg``.
+
+    Parameters
+    ----------
+    cfg : Config
+    store : Store, optional
+        An open store (default: opened at ``cfg.store.url``, read by the dashboard).
+    secret : str, optional
+        When given, every request must carry it as the password of HTTP basic
+        authentication (any user name): required whenever the server listens beyond
+        127.0.0.1.
+    cache_dir : str, optional
+        Folder of the background-callback cache (default: a new temporary folder).
+    """
+    store = store or Store(cfg.store.url, create=False)
+    view = StoreView.open(cfg, store)
+    manager = dash.DiskcacheManager(diskcache.Cache(cache_dir or tempfile.mkdtemp(
+        prefix="comove-dash-")))
+    app = dash.Dash(__name__, title="comove", suppress_callback_exceptions=True,
+                    background_callback_manager=manager, update_title=None)
+    app.layout = shell(view.provenance())
+    layouts = page_modules("layouts")
+
+    @app.callback(Output(ids.NAV, "children"), Output(ids.PAGE, "children"),
+                  Input(ids.URL, "pathname"), State(ids.URL, "search"))
+    def route(path, search):
+        path = path or "/"
+        query = {k: v[-1] for k, v in parse_qs((search or "").lstrip("?")).items()}
+        module = layouts.get(path)
+        if module is None:
+            return nav(path), not_found(path)
+        return nav(path), module.layout(view, query)
+
+    for module in page_modules("callbacks").values():
+        module.register(app, view)
+    if secret:
+        _require_secret(app, secret)
+    return app
+
+
+def _require_secret(app: dash.Dash, secret: str) -> None:
+    expected = secret.encode()
+
+    @app.server.before_request
+    def check():
+        auth = request.authorization
+        given = (auth.password or "").encode() if auth is not None else b""
+        if not hmac.compare_digest(given, expected):
+            return Response("comove: access secret required", 401,
+                            {"WWW-Authenticate": 'Basic realm="comove"'})
+        return None

@@ -1,0 +1,60 @@
+"""Callbacks of the Inputs page: the asset and lags controls redraw the residual
+diagnostics."""
+
+from __future__ import annotations
+
+from dash import Input, Output
+
+from layouts import ids
+from layouts.episodes import table_frame, typed_columns
+from layouts.inputs import LAGS
+from monitor.errors import InputError
+from monitor.inputs_view import (
+    acf_figure,
+    ljung_box_table,
+    marginal_diagnostics,
+    parse_lags,
+    qq_figure,
+    residuals_figure,
+)
+from monitor.palette import figure_layout
+
+
+def _blank(text: str) -> dict:
+    return {"data": [], "layout": figure_layout(
+        height=160, xaxis={"visible": False}, yaxis={"visible": False},
+        annotations=[{"text": text, "showarrow": False, "xref": "paper", "yref": "paper",
+                      "x": 0.5, "y": 0.5}])}
+
+
+def show_diagnostics(view, asset: str | None, lags):
+    """Outputs of the diagnostics callback: three figures, Ljung-Box rows and columns, note."""
+    if not asset:
+        blank = _blank("no filtered asset")
+        return blank, blank, blank, [], [], "No asset has filtered residuals yet."
+    try:
+        diag = marginal_diagnostics(view.store, view.marginal_key, asset,
+                                    lags=parse_lags(lags, LAGS[1], LAGS[2]))
+    except InputError as exc:
+        blank = _blank(str(exc))
+        return blank, blank, blank, [], [], str(exc)
+    tests = ljung_box_table(diag)
+    data, columns = table_frame(tests).to_dict("records"), typed_columns(tests)
+    fit = diag.latest
+    params = ", ".join(f"{k} = {v:.4g}" for k, v in fit.params.items())
+    note = (f"{asset}: {len(diag.residuals)} filtered days, {diag.mode} marginals "
+            f"({diag.settings_key}); latest refit {fit.spec.label} on data to "
+            f"{fit.sample_end} ({params}; percent scale)"
+            + (f", EWMA fallback: {'; '.join(fit.problems)}" if fit.fallback else "") + ".")
+    return (residuals_figure(diag), acf_figure(diag), qq_figure(diag), data, columns, note)
+
+
+def register(app, view) -> None:
+    """Attach this page's callbacks to app."""
+
+    @app.callback(Output(ids.INPUTS_RESIDUALS, "figure"), Output(ids.INPUTS_ACF, "figure"),
+                  Output(ids.INPUTS_QQ, "figure"), Output(ids.INPUTS_LJUNG_BOX, "data"),
+                  Output(ids.INPUTS_LJUNG_BOX, "columns"), Output(ids.INPUTS_NOTE, "children"),
+                  Input(ids.INPUTS_ASSET, "value"), Input(ids.INPUTS_LAGS, "value"))
+    def diagnostics(asset, lags):
+        return show_diagnostics(view, asset, lags)

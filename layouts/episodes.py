@@ -1,0 +1,256 @@
+"""The Episodes page: pairs in alert now, the history of alert episodes (each linking to the
+pair's Timeline), a chart of episodes over time, the rules in force and the e-mail outbox.
+
+Query string: ``?pair=A/B`` (one pair), ``&tail=lower|upper|both``, ``&cause=...``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from types import MappingProxyType
+
+import numpy as np
+import pandas as pd
+from dash import dcc, html
+
+from monitor.episodes_view import (
+    OUTBOX_STATES,
+    EpisodeFilter,
+    episode_frame,
+    episodes_figure,
+    filter_episodes,
+    monitored_pairs,
+    parse_episode_query,
+    read_outbox,
+    rules_table,
+    timeline_link,
+)
+from monitor.errors import InputError
+from monitor.signals import CAUSES, TAILS, SignalSettings
+
+from . import ids
+from .components import graph, message, panel, table
+from .theme import NOTE_STYLE
+
+TITLE = "Episodes"
+
+#: Shown column names of the episode tables.
+EPISODE_LABELS = MappingProxyType({
+    "pair": "pair", "tail": "tail", "status": "status", "cause": "cause",
+    "statistic": "statistic", "onset": "onset", "start": "start", "end": "end",
+    "last_day": "last day", "duration_days": "days in alert", "peak_date": "peak date",
+    "peak_value": "peak evidence (x entry)", "peak_kendall_tau": "tau at peak",
+    "peak_kendall_tau_se": "tau s.e.", "peak_tail_emp": "empirical tail at peak",
+    "peak_tail_emp_se": "empirical tail s.e.", "peak_tail_model": "model tail at peak",
+    "peak_gauss_tail": "Gaussian tail at peak",
+})
+OPEN_COLUMNS = ("pair", "tail", "cause", "statistic", "onset", "start", "duration_days",
+                 "last_day", "peak_date", "peak_value", "peak_kendall_tau",
+                 "peak_kendall_tau_se", "peak_tail_emp", "peak_tail_emp_se", "peak_tail_model",
+                 "peak_gauss_tail")
+HISTORY_COLUMNS = ("pair", "tail", "status", "cause", "statistic", "onset", "start", "end",
+                    "duration_days", "peak_date", "peak_value", "peak_kendall_tau",
+                    "peak_kendall_tau_se", "peak_tail_emp", "peak_tail_emp_se",
+                    "peak_tail_model", "peak_gauss_tail")
+LINK = "Timeline"
+
+
+def table_frame(frame: pd.DataFrame, digits: int = 4) -> pd.DataFrame:
+    """A frame ready for a table: dates as ``YYYY-MM-DD`` (with the time where one is set),
+    floats to ``digits`` significant digits, booleans as yes/no, missing values empty."""
+    out = {}
+    for c in frame.columns:
+        s = frame[c]
+        if pd.api.types.is_datetime64_any_dtype(s):
+            known = s.dropna()
+            timed = bool(len(known)) and bool((known != known.dt.normalize()).any())
+            text = s.dt.strftime("%Y-%m-%d %H:%M" if timed else "%Y-%m-%d")
+            out[c] = text.astype(object).where(s.notna(), None)
+        elif pd.api.types.is_bool_dtype(s):
+            out[c] = s.map({True: "yes", False: "no"}).astype(object)
+        elif pd.api.types.is_float_dtype(s):
+            v = s.to_numpy(dtype=float)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                mag = np.floor(np.log10(np.abs(v)))
+                scale = 10.0 ** np.where(np.isfinite(mag), digits - 1 - mag, 0)
+                rounded = np.where(np.isfinite(v) & (v != 0), np.round(v * scale) / scale, v)
+            out[c] = pd.Series(rounded, index=s.index).astype(object).where(np.isfinite(v), None)
+        else:
+            out[c] = s.astype(object).where(s.notna(), None)
+    return pd.DataFrame(out, index=frame.index, columns=frame.columns)
+
+
+def typed_columns(frame: pd.DataFrame, labels: Mapping[str, str] | None = None) -> list[dict]:
+    """DataTable column specs of ``frame`` (before :func:`table_frame`): numbers typed
+    numeric and dates datetime, so that the native filter reads ``>20`` or ``>2020-03-01``
+    as a comparison; ``labels`` renames the shown headers."""
+    labels = labels or {}
+    out = []
+    for c in frame.columns:
+        s = frame[c]
+        kind = ("datetime" if pd.api.types.is_datetime64_any_dtype(s) else
+                "numeric" if pd.api.types.is_numeric_dtype(s) and not
+                pd.api.types.is_bool_dtype(s) else "text")
+        name = labels.get(str(c), str(c))
+        out.append({"name": name, "id": name, "type": kind})
+    return out
+
+
+def typed_table(component_id: str, frame: pd.DataFrame, *,
+                labels: Mapping[str, str] | None = None, **props):
+    """:func:`layouts.components.table` of ``frame`` with typed columns and shown labels."""
+    component = table(component_id, table_frame(frame).rename(columns=labels or {}), **props)
+    component.columns = typed_columns(frame, labels)
+    return component
+
+
+def episode_records(frame: pd.DataFrame, columns) -> tuple[list[dict], list[dict]]:
+    """(data, columns) of an episode table: shown labels and, beside the pair (the first of
+    ``columns``), a link to the pair's Timeline page."""
+    part = frame[list(columns)]
+    shown = table_frame(part).rename(columns=EPISODE_LABELS)
+    # the link sits beside the pair, where the eye starts, not beyond a horizontal scroll
+    shown.insert(1, LINK, [f"[open]({timeline_link(p)})" for p in frame["pair"]])
+    typed = typed_columns(part, EPISODE_LABELS)
+    cols = [typed[0], {"name": LINK, "id": LINK, "presentation": "markdown"}, *typed[1:]]
+    return shown.to_dict("records"), cols
+
+
+def episode_table(component_id: str, frame: pd.DataFrame, columns, *, page_size: int = 15):
+    """An episode table (sortable, filterable, CSV export) whose second column links each
+    row to the pair's Timeline page."""
+    data, cols = episode_records(frame, columns)
+    component = table(component_id, page_size=page_size,
+                      markdown_options={"link_target": "_self"},
+                      css=[{"selector": ".dash-cell-value p", "rule": "margin: 0"}])
+    component.data, component.columns = data, cols
+    return component
+
+
+def _provenance(view) -> str:
+    r = view.rolling
+    return (f"Signals of the rolling metrics (window {r.window} days, step {r.step}, selection "
+            f"by {r.criterion.upper()}, tail level q = {r.tail_q:g}) on "
+            f"{view.cfg.marginals.mode} GARCH-filtered residuals; signal settings key "
+            f"{view.signals_key.rsplit('|', 1)[-1]}.")
+
+
+def layout(view, query: dict[str, str]) -> html.Div:
+    """The page for ``view``; ``query`` may name a pair, a tail and a cause."""
+    frame = episode_frame(view)
+    pairs = monitored_pairs(view)
+    problem = None
+    try:
+        flt = parse_episode_query(query, pairs)
+    except InputError as exc:
+        problem, flt = str(exc), EpisodeFilter()
+    open_now = frame[frame["status"] == "open"]
+    shown = filter_episodes(frame, flt)
+    as_of = pd.to_datetime(frame["last_day"]).max() if len(frame) else None
+    return html.Div([
+        html.H2("Episodes", style={"margin": "4px 0"}),
+        html.P(_provenance(view), style=NOTE_STYLE),
+        message(problem, kind="problem") if problem else None,
+        panel("Open now", _open_panel(open_now, pairs, as_of),
+              note="Pairs whose lower or upper tail is in an alert episode at their latest "
+                   "window end. Evidence is the largest ratio of a signal statistic to its "
+                   "entry threshold; tails are C(q,q)/q at q = "
+                   f"{view.rolling.tail_q:g} (empirical, the selected family's, and the "
+                   "Gaussian copula's at the window's Kendall's tau); s.e. are the window's "
+                   "standard errors (tau: influence function; empirical tail: binomial)."),
+        panel("Episodes over time", _controls(frame, flt),
+              html.P(count_text(shown, len(frame)), id=ids.EPISODES_COUNT, style=NOTE_STYLE),
+              graph(ids.EPISODES_CHART, episodes_figure(shown, provenance=short_provenance(view)),
+                    filename="comove-episodes"),
+              note="A bar per episode from its first to its last day in alert; lower tail "
+                   "solid vermilion with a downward triangle at the peak, upper tail hatched "
+                   "blue with an upward triangle; an open circle marks an episode still "
+                   "running. The filters apply to the chart and to the history below."),
+        panel("History", episode_table(ids.EPISODES_HISTORY, shown, HISTORY_COLUMNS),
+              note="Every stored episode, newest first; 'open' beside a pair shows its "
+                   "Timeline. Type in the row under a header to filter (e.g. >20 in days in "
+                   "alert); Export downloads the rows shown as CSV."),
+        panel("Rules in force", typed_table(ids.EPISODES_RULES, rules_table(
+                  SignalSettings(), view.cfg.alerts.email, window=view.rolling.window),
+                  page_size=30, style_cell_conditional=[
+                      {"if": {"column_id": c}, "textAlign": "left", "whiteSpace": "normal",
+                       "maxWidth": "520px"} for c in ("meaning", "calibration", "setting")]),
+              note="The thresholds that produced these episodes (monitor.signals."
+                   "SignalSettings) and the alert e-mail settings of the configuration "
+                   f"({view.cfg.source}); credentials appear only as the names of the "
+                   "environment variables that hold them. Calibration: README, "
+                   "'Regime signals'."),
+        panel("Outbox", _outbox(view),
+              note="Alert e-mails queued by the daily update, one per event of a rule in force: "
+                   "pending until delivered by 'comove alerts send' (a failed delivery stays "
+                   "pending with its attempts and last error, and is retried with back-off), "
+                   "then sent."),
+    ])
+
+
+def short_provenance(view) -> str:
+    r = view.rolling
+    return (f"window {r.window}, {view.cfg.marginals.mode} marginals, signal key "
+            f"{view.signals_key.rsplit('|', 1)[-1][:48]}...")
+
+
+def _open_panel(open_now: pd.DataFrame, pairs: list[str], as_of) -> html.Div:
+    if open_now.empty:
+        when = f" as of {as_of:%Y-%m-%d}" if as_of is not None and not pd.isna(as_of) else ""
+        return message(f"No pair is in an alert episode{when} ({len(pairs)} pairs monitored).")
+    n_pairs = open_now["pair"].nunique()
+    by_tail = ", ".join(f"{int((open_now['tail'] == t).sum())} {t}" for t in TAILS)
+    return html.Div([
+        html.P(f"{n_pairs} of {len(pairs)} pairs in alert (open episodes: {by_tail} tail).",
+               style={"margin": "2px 0 6px 0", "fontWeight": 600}),
+        episode_table(ids.EPISODES_ACTIVE, open_now, OPEN_COLUMNS, page_size=10),
+    ])
+
+
+def _controls(frame: pd.DataFrame, flt: EpisodeFilter) -> html.Div:
+    with_episodes = sorted(frame["pair"].unique()) if len(frame) else []
+    options = [{"label": p, "value": p} for p in with_episodes]
+    if flt.pair and flt.pair not in with_episodes:
+        options.append({"label": f"{flt.pair} (no episodes)", "value": flt.pair})
+    label = {"marginRight": "6px", "fontWeight": 600}
+    return html.Div([
+        html.Label("Pair", htmlFor=ids.EPISODES_PAIR, style=label),
+        dcc.Dropdown(id=ids.EPISODES_PAIR, options=options, value=flt.pair,
+                     placeholder="all pairs", clearable=True,
+                     style={"width": "240px", "marginRight": "18px"}),
+        html.Span("Tail", style=label),
+        dcc.Checklist(id=ids.EPISODES_TAILS, options=[{"label": f" {t}", "value": t}
+                                                      for t in TAILS],
+                      value=list(flt.tails), inline=True,
+                      inputStyle={"marginLeft": "8px"}, style={"marginRight": "18px"}),
+        html.Span("Cause", style=label),
+        dcc.Checklist(id=ids.EPISODES_CAUSES, options=[{"label": f" {c}", "value": c}
+                                                       for c in CAUSES],
+                      value=list(flt.causes), inline=True, inputStyle={"marginLeft": "8px"}),
+    ], style={"display": "flex", "alignItems": "center", "flexWrap": "wrap",
+              "margin": "4px 0 8px 0"})
+
+
+def count_text(shown: pd.DataFrame, total: int) -> str:
+    if total == 0:
+        return "No episodes stored under these settings yet."
+    open_ = int((shown["status"] == "open").sum())
+    return (f"{len(shown)} of {total} episodes shown ({open_} open), over "
+            f"{shown['pair'].nunique()} pair(s).")
+
+
+def _outbox(view) -> html.Div:
+    box = read_outbox(view.store)
+    if box.empty:
+        return message("Nothing queued.")
+    counts = box["state"].value_counts()
+    failing = int((box["state"].eq("pending") & box["attempts"].gt(0)).sum())
+    summary = ", ".join(f"{int(counts.get(s, 0))} {s}" for s in OUTBOX_STATES)
+    summary += f" ({failing} pending after a failed attempt)" if failing else ""
+    return html.Div([html.P(f"{len(box)} e-mail(s): {summary}.", style=NOTE_STYLE),
+                     typed_table(ids.EPISODES_OUTBOX, box, page_size=10)])
+
+
+__all__ = ["HISTORY_COLUMNS", "OPEN_COLUMNS", "TITLE", "count_text", "episode_records",
+           "episode_table", "layout", "short_provenance", "table_frame", "typed_columns",
+           "typed_table"]

@@ -1,0 +1,82 @@
+"""Component ids of the dashboard, in one place (DESIGN.md: layouts use ids from here only).
+
+Plain strings for single components; the ``*_TYPE`` names are the ``type`` of dict ids for
+repeated items (e.g. one download button per figure).
+"""
+
+# shell
+URL = "shell-url"
+NAV = "shell-nav"
+PAGE = "shell-page"
+PROVENANCE = "shell-provenance"
+
+# board (universe overview)
+BOARD_DATE = "board-date"
+BOARD_TAIL_SOURCE = "board-tail-source"
+BOARD_MESSAGE = "board-message"
+BOARD_MATRIX_TAU = "board-matrix-tau"
+BOARD_MATRIX_LOWER = "board-matrix-lower"
+BOARD_MATRIX_UPPER = "board-matrix-upper"
+BOARD_RANKING = "board-ranking"
+BOARD_SUMMARY = "board-summary"
+BOARD_NOTE = "board-note"
+
+# timeline (pair history)
+TIMELINE_PAIR = "timeline-pair"
+TIMELINE_MESSAGE = "timeline-message"
+TIMELINE_FIGURE = "timeline-figure"
+TIMELINE_EPISODES = "timeline-episodes"
+TIMELINE_RANGE = "timeline-range"
+TIMELINE_OPEN_STUDY = "timeline-open-study"
+TIMELINE_NOTE = "timeline-note"
+
+# drill-down (window study)
+STUDY_PAIR = "study-pair"
+STUDY_RANGE = "study-range"
+STUDY_REFERENCE = "study-reference"
+STUDY_REPLICATES = "study-replicates"
+STUDY_RUN = "study-run"
+STUDY_CANCEL = "study-cancel"
+STUDY_PROGRESS = "study-progress"
+STUDY_RESULT = "study-result"
+STUDY_REPORT = "study-report"
+STUDY_REPORT_DOWNLOAD = "study-report-download"
+STUDY_STORE = "study-store"
+STUDY_REFERENCE_MODE = "study-reference-mode"
+STUDY_MESSAGE = "study-message"
+STUDY_PROGRESS_BOX = "study-progress-box"
+STUDY_PROGRESS_LABEL = "study-progress-label"
+STUDY_AUTORUN = "study-autorun"
+# repeated items of the results: {"type": STUDY_FIGURE_TYPE, "role": "study"|"reference",
+# "name": ...} figures and {"type": STUDY_TABLE_TYPE, ...} tables
+STUDY_FIGURE_TYPE = "study-figure"
+STUDY_TABLE_TYPE = "study-table"
+
+# episodes (alerts)
+EPISODES_ACTIVE = "episodes-active"
+EPISODES_HISTORY = "episodes-history"
+EPISODES_RULES = "episodes-rules"
+EPISODES_OUTBOX = "episodes-outbox"
+EPISODES_CHART = "episodes-chart"
+EPISODES_PAIR = "episodes-pair"
+EPISODES_TAILS = "episodes-tails"
+EPISODES_CAUSES = "episodes-causes"
+EPISODES_COUNT = "episodes-count"
+
+# inputs (data)
+INPUTS_COVERAGE = "inputs-coverage"
+INPUTS_INGESTS = "inputs-ingests"
+INPUTS_ASSET = "inputs-asset"
+INPUTS_MARGINAL = "inputs-marginal"
+INPUTS_COVERAGE_FIGURE = "inputs-coverage-figure"
+INPUTS_REVISIONS = "inputs-revisions"
+INPUTS_LAGS = "inputs-lags"
+INPUTS_RESIDUALS = "inputs-residuals"
+INPUTS_ACF = "inputs-acf"
+INPUTS_QQ = "inputs-qq"
+INPUTS_LJUNG_BOX = "inputs-ljung-box"
+INPUTS_NOTE = "inputs-note"
+
+# repeated items: {"type": CSV_TYPE, "table": <id of a table>} buttons and their downloads
+CSV_TYPE = "csv-button"
+CSV_DOWNLOAD_TYPE = "csv-download"

@@ -1,0 +1,410 @@
+"""The Board page's library (monitor.board), the stored state runs and universe summary it
+reads (monitor.store / monitor.pipeline), and its callback called as a plain function.
+
+Checks against outside references: scipy's hierarchical clustering for the ordering (the
+leaf order must keep a block of strongly dependent assets together, whatever the input
+order), hand-computed divergence scores, and the signals module's own from-scratch
+computation (``pair_signals``, ``universe_summary``) for everything stored incrementally."""
+
+from __future__ import annotations
+
+import shutil
+from itertools import pairwise
+
+import dash
+import numpy as np
+import pandas as pd
+import pytest
+import sqlalchemy as sa
+from sqlalchemy.pool import NullPool
+
+from callbacks.board import OUTPUTS, register, show_board
+from layouts import board as board_page
+from layouts import ids
+from monitor.board import (
+    board_data,
+    cluster_order,
+    divergence,
+    matrix_figure,
+    pair_matrix,
+    rank_pairs,
+)
+from monitor.errors import InputError
+from monitor.palette import DIVERGING, SEQUENTIAL
+from monitor.pipeline import signals_key, state_runs, update_signals
+from monitor.signals import pair_signals, universe_summary
+from monitor.store import Store, metrics, pair_state
+from monitor.views import StoreView
+
+
+@pytest.fixture
+def view(dash_store):
+    store = Store(dash_store.url, create=False)
+    yield StoreView.open(dash_store.cfg, store)
+    store.close()
+
+
+def _fresh_signals(view):
+    """Every pair's signals recomputed from its stored timeline."""
+    return {pair: pair_signals(view.store.read_timeline(view.rolling_key, *pair))
+            for pair in sorted(view.store.stored_pairs(view.rolling_key))}
+
+
+def _runs_of(view, pair):
+    got = view.store.read_state_runs(view.signals_key, pair)
+    return got[["tail", "first_date", "last_date", "state"]].reset_index(drop=True)
+
+
+def _expected_runs(signals):
+    runs = state_runs(signals.frame)
+    runs = runs.astype({"first_date": "datetime64[ns]", "last_date": "datetime64[ns]"})
+    return runs.sort_values(["tail", "first_date"]).reset_index(drop=True)
+
+
+# ----------------------------------------------------------------------------- stored state
+def test_stored_state_runs_and_universe_equal_a_fresh_computation(view):
+    fresh = _fresh_signals(view)
+    assert len(fresh) == 6
+    for pair, sig in fresh.items():
+        got = _runs_of(view, pair).astype({"first_date": "datetime64[ns]",
+                                           "last_date": "datetime64[ns]"})
+        want = _expected_runs(sig)
+        assert got["state"].tolist() == want["state"].astype(str).tolist(), pair
+        assert (got[["first_date", "last_date"]].to_numpy()
+                == want[["first_date", "last_date"]].to_numpy()).all(), pair
+        # The runs decode back to the daily states, day by day.
+        for tail in ("lower", "upper"):
+            r = want[want["tail"] == tail]
+            lengths = [int(((sig.frame["date"] >= f) & (sig.frame["date"] <= last)).sum())
+                       for f, last in zip(r["first_date"], r["last_date"], strict=True)]
+            assert np.repeat(r["state"].astype(str).to_numpy(), lengths).tolist() == \
+                sig.frame[f"state_{tail}"].astype(str).tolist()
+    # The stored universe summary is signals.universe_summary of the fresh frames.
+    stored = view.store.read_universe(view.signals_key)
+    want = universe_summary({p: s.frame for p, s in fresh.items()})
+    assert stored.index.equals(pd.DatetimeIndex(want.index).astype(stored.index.dtype))
+    for col in ("n_pairs", "n_alert", "n_alert_lower", "n_alert_upper"):
+        np.testing.assert_array_equal(stored[col].to_numpy(), want[col].to_numpy(), col)
+    for col in ("share_alert", "kendall_tau", "tail_lower", "tail_upper", "tail_lower_emp",
+                "tail_upper_emp"):
+        np.testing.assert_allclose(stored[col].to_numpy(), want[col].to_numpy(), rtol=1e-12,
+                                   err_msg=col)
+    assert stored["n_alert"].max() > 0  # the Clayton regime alerts somewhere
+
+
+def _rowids(url, table, key):
+    """{row content: SQLite rowid} of a table's rows under a settings key (a rewritten row
+    gets a new rowid)."""
+    engine = sa.create_engine(url, poolclass=NullPool)
+    try:
+        with engine.connect() as conn:
+            rows = conn.execute(sa.text(f"SELECT rowid, * FROM {table} WHERE settings = :k"),
+                                {"k": key}).all()
+        return {tuple(r[1:]): r[0] for r in rows}
+    finally:
+        engine.dispose()
+
+
+@pytest.mark.parametrize("cut", ["middle", "last-day"])
+def test_incremental_update_equals_from_scratch(dash_store, tmp_path, cut):
+    """Signals updated on a shorter timeline, then again after the rest arrives, store the
+    same runs and universe as the from-scratch run of the fixture; a one-day step rewrites
+    one run per pair and tail and one universe row."""
+    from ..conftest import take_snapshot
+
+    url = f"sqlite:///{tmp_path / 'copy.sqlite'}"
+    shutil.copy(dash_store.url.removeprefix("sqlite:///"), tmp_path / "copy.sqlite")
+    cfg = dash_store.cfg
+    key = signals_key(cfg)
+    with Store(dash_store.url, create=False) as original:
+        want_universe = original.read_universe(key)
+        want_runs = original.read_state_runs(key)
+        dates = original.read_universe(key).index
+    cut_date = (dates[len(dates) // 2] if cut == "middle" else dates[-2]).date()
+    with Store(url) as store:
+        with store.transaction() as conn:
+            later = [dict(r) for r in conn.execute(sa.select(metrics).where(
+                metrics.c.date > cut_date)).mappings()]
+            conn.execute(metrics.delete().where(metrics.c.date > cut_date))
+        update_signals(store, cfg)
+        short_view = StoreView.open(cfg, store)
+        # On the shorter timeline the stored summary is again the from-scratch one.
+        fresh = _fresh_signals(short_view)
+        np.testing.assert_allclose(
+            store.read_universe(key)["tail_lower_emp"].to_numpy(),
+            universe_summary({p: s.frame for p, s in fresh.items()})["tail_lower_emp"],
+            rtol=1e-12)
+        runs_before = _rowids(url, "state_runs", key)
+        universe_before = _rowids(url, "universe_daily", key)
+        with store.transaction() as conn:
+            conn.execute(metrics.insert(), later)
+        update_signals(store, cfg)
+        got_universe = store.read_universe(key)
+        got_runs = store.read_state_runs(key)
+    pd.testing.assert_frame_equal(got_runs, want_runs)
+    pd.testing.assert_frame_equal(got_universe, want_universe, rtol=1e-12)
+    if cut == "last-day":
+        runs_after = _rowids(url, "state_runs", key)
+        universe_after = _rowids(url, "universe_daily", key)
+        rewritten = [k for k, rid in runs_after.items() if runs_before.get(k) != rid]
+        assert 0 < len(rewritten) <= 2 * 6  # at most one run per tail of each pair
+        # Every earlier universe row is untouched; the new day adds one.
+        assert all(universe_after.get(k) == rid for k, rid in universe_before.items())
+        assert len(universe_after) == len(universe_before) + 1
+    # Nothing new: the update writes nothing.
+    snap = take_snapshot(url)
+    with Store(url) as store:
+        update_signals(store, cfg)
+    assert take_snapshot(url) == snap
+
+
+# ----------------------------------------------------------------------------- the board
+def test_board_as_of_a_date_equals_the_stored_timeline(view):
+    universe = view.store.read_universe(view.signals_key)
+    # A Saturday in the middle of the history: every row is the window ending the day before.
+    day = universe.index[len(universe) // 2]
+    saturday = day + pd.Timedelta(days=(5 - day.weekday()) % 7)
+    data = board_data(view, saturday.strftime("%Y-%m-%d"))
+    assert data.as_of == saturday
+    assert len(data.pairs) == 6 and data.pairs["rank"].tolist() == list(range(1, 7))
+    fresh = _fresh_signals(view)
+    for row in data.pairs.itertuples(index=False):
+        frame = fresh[(row.asset_a, row.asset_b)].frame
+        want = frame[frame["date"] <= saturday].iloc[-1]
+        assert row.date == want["date"] and row.date.weekday() < 5
+        for col in ("kendall_tau", "kendall_tau_se", "tail_lower", "tail_upper",
+                    "tail_lower_emp", "tail_upper_emp", "gauss_tail_q"):
+            assert getattr(row, col) == pytest.approx(want[col], rel=1e-15), col
+        assert row.family == want["family"] and row.rotation == want["rotation"]
+        # The state on the date is the from-scratch state of that window end.
+        assert row.state_lower == want["state_lower"]
+        assert row.state_upper == want["state_upper"]
+        # Divergence by hand: (lambda_emp - C_Gauss(q,q)/q) / se, the signals' excess.
+        for tail in ("lower", "upper"):
+            by_hand = (want[f"tail_{tail}_emp"] - want["gauss_tail_q"]) / want[
+                f"tail_{tail}_emp_se"]
+            assert getattr(row, f"divergence_{tail}") == pytest.approx(by_hand, rel=1e-12)
+            assert getattr(row, f"divergence_{tail}") == pytest.approx(
+                want[f"excess_{tail}"], rel=1e-12)
+        assert row.divergence == max(row.divergence_lower, row.divergence_upper)
+        # 95% tau interval: tau -+ 1.959964 se (normal quantile, from memory).
+        assert row.tau_low == pytest.approx(want["kendall_tau"]
+                                            - 1.959963985 * want["kendall_tau_se"])
+    # Ranking: by state severity, then divergence descending.
+    sev = data.pairs["state"].map({"calm": 0, "watch": 1, "alert": 2}).to_numpy()
+    assert (np.diff(sev) <= 0).all()
+    for s in set(sev):
+        d = data.pairs.loc[sev == s, "divergence"].to_numpy()
+        assert (np.diff(d) <= 0).all()
+    # The matrices are symmetric with a blank diagonal and hold the pair values.
+    tau = data.matrix("kendall_tau")
+    assert np.isnan(np.diag(tau.to_numpy())).all()
+    np.testing.assert_array_equal(tau.to_numpy(), tau.to_numpy().T)
+    first = data.pairs.iloc[0]
+    assert tau.loc[first.asset_a, first.asset_b] == first.kendall_tau
+    assert set(data.assets) == set(view.store.assets())
+
+
+def test_latest_board_and_bad_dates(view):
+    data = board_data(view)
+    universe = view.store.read_universe(view.signals_key)
+    assert data.as_of == universe.index[-1] == data.last_date
+    # Each pair's latest window end (pairs keep their own calendars).
+    assert data.pairs["date"].max() == data.as_of
+    with pytest.raises(InputError, match=r"board date: '2021-13-40' is not a date"):
+        board_data(view, "2021-13-40")
+    with pytest.raises(InputError, match=r"board date: 1999-01-04 is outside the stored"):
+        board_data(view, "1999-01-04")
+
+
+def test_divergence_by_hand():
+    got = divergence([0.30, 0.10, 0.00, 0.20], [0.05, 0.04, 0.0, 0.0], [0.20, 0.18, 0.15, 0.1])
+    # (0.30 - 0.20) / 0.05 = 2; (0.10 - 0.18) / 0.04 = -2; no joint exceedance: 0; se 0 with a
+    # positive difference: +inf (the signals module's convention).
+    np.testing.assert_allclose(got[:2], [2.0, -2.0])
+    assert got[2] == 0.0 and got[3] == np.inf
+
+
+def test_cluster_order_keeps_a_dependent_block_together():
+    # Two blocks whose names interleave alphabetically: {A, C, E, G} with tau 0.6 inside,
+    # {B, D, F} with tau 0.45 inside, 0.05 across.
+    names = list("ABCDEFG")
+    block = {n: 0 if n in "ACEG" else 1 for n in names}
+    tau = pd.DataFrame([[np.nan if a == b else (0.6 if block[a] == block[b] == 0 else
+                         0.45 if block[a] == block[b] else 0.05) for b in names]
+                        for a in names], index=names, columns=names)
+    order = cluster_order(tau)
+    assert sorted(order) == names
+    labels = [block[n] for n in order]
+    assert sum(x != y for x, y in pairwise(labels)) == 1  # each block contiguous
+    # Deterministic whatever the input order.
+    shuffled = tau.loc[names[::-1], names[::-1]]
+    assert cluster_order(shuffled) == order
+    # A missing pair counts as tau = 0 (distance 1): still a valid order.
+    holey = tau.copy()
+    holey.loc["A", "C"] = holey.loc["C", "A"] = np.nan
+    assert sorted(cluster_order(holey)) == names
+
+
+def test_pair_matrix_and_ranking_on_a_small_frame():
+    pairs = pd.DataFrame({"asset_a": ["X", "X", "Y"], "asset_b": ["Y", "Z", "Z"],
+                          "kendall_tau": [0.5, 0.1, -0.2],
+                          "state": pd.array(["calm", "alert", "watch"], dtype="string"),
+                          "divergence": [4.0, 1.0, np.inf]})
+    m = pair_matrix(pairs, ("Z", "X", "Y"), "kendall_tau")
+    assert m.loc["X", "Y"] == m.loc["Y", "X"] == 0.5 and m.loc["Z", "Y"] == -0.2
+    assert np.isnan(m.loc["Z", "Z"])
+    ranked = rank_pairs(pairs)
+    assert (ranked["asset_a"] + ranked["asset_b"]).tolist() == ["XZ", "YZ", "XY"]
+
+
+# ----------------------------------------------------------------------------- callback
+def test_board_callback_returns_the_figures_and_the_table(dash_store, view):
+    app = dash.Dash(__name__)
+    register(app, view)
+    (key,) = app.callback_map
+    assert all(f"{i}.{p}" in key for i, p in OUTPUTS)
+    assert [i["id"] for i in app.callback_map[key]["inputs"]] == [ids.BOARD_DATE,
+                                                                  ids.BOARD_TAIL_SOURCE]
+    day = board_data(view).as_of.strftime("%Y-%m-%d")
+    result = dict(zip([f"{i}.{p}" for i, p in OUTPUTS], show_board(view, day, "model"),
+                      strict=True))
+    data = board_data(view, day)
+    tau_fig = result[f"{ids.BOARD_MATRIX_TAU}.figure"]
+    heat = tau_fig.data[0]
+    assert heat.type == "heatmap" and list(heat.x) == list(data.assets)
+    z = np.array(heat.z, dtype=float)
+    np.testing.assert_array_equal(z, data.matrix("kendall_tau").to_numpy())
+    assert np.isnan(np.diag(z)).all()
+    assert [list(c) for c in heat.colorscale] == [list(c) for c in DIVERGING]
+    assert (heat.zmin, heat.zmax) == (-1, 1)
+    lower = result[f"{ids.BOARD_MATRIX_LOWER}.figure"].data[0]
+    np.testing.assert_array_equal(np.array(lower.z, float), data.matrix("tail_lower").to_numpy())
+    assert [list(c) for c in lower.colorscale] == [list(c) for c in SEQUENTIAL]
+    a, b = data.pairs.iloc[0][["asset_a", "asset_b"]]
+    i, j = data.assets.index(a), data.assets.index(b)
+    assert "no stored s.e." in lower.text[i][j]
+    # The toggle: nonparametric tails with their Wilson intervals in the hover.
+    emp = show_board(view, day, "nonparametric")[1].data[0]
+    np.testing.assert_array_equal(np.array(emp.z, float),
+                                  data.matrix("tail_lower_emp").to_numpy())
+    assert "95%:" in emp.text[i][j]
+    rows = result[f"{ids.BOARD_RANKING}.data"]
+    assert len(rows) == 6 and rows[0]["rank"] == 1
+    assert rows[0]["pair"] == f"{a}/{b}"
+    assert rows[0]["history"] == f"[timeline](/timeline?pair={a}/{b})"
+    columns = result[f"{ids.BOARD_RANKING}.columns"]
+    assert columns[2] == {"name": "history", "id": "history", "presentation": "markdown"}
+    summary = result[f"{ids.BOARD_SUMMARY}.figure"]
+    assert len(summary.data) == 7
+    np.testing.assert_allclose(np.array(summary.data[0].y, float),
+                               data.summary["kendall_tau"].to_numpy(), atol=5e-5)
+    assert len(summary.layout.shapes) == 2  # the date marker on both rows
+    note = result[f"{ids.BOARD_NOTE}.children"]
+    assert "window 120 days" in note and "real-time" in note and "6 pairs of 4 assets" in note
+    assert result[f"{ids.BOARD_MESSAGE}.children"] == ""
+    bad = show_board(view, "1999-01-04", "model")
+    assert "outside the stored window ends" in bad[-1].children
+    assert bad[3] == []
+
+
+def test_matrix_figure_refuses_unknown_quantities(view):
+    data = board_data(view)
+    with pytest.raises(ValueError, match="quantity must be one of"):
+        matrix_figure(data, "spearman_rho")
+    with pytest.raises(ValueError, match="source must be one of"):
+        matrix_figure(data, "tail_lower", "guess")
+
+
+def _find(component, wanted_id):
+    """The component with id ``wanted_id`` in a layout tree (None when absent)."""
+    if getattr(component, "id", None) == wanted_id:
+        return component
+    children = getattr(component, "children", None)
+    for child in children if isinstance(children, list | tuple) else [children]:
+        if hasattr(child, "to_plotly_json"):
+            hit = _find(child, wanted_id)
+            if hit is not None:
+                return hit
+    return None
+
+
+def _text(component) -> str:
+    if isinstance(component, str):
+        return component
+    children = getattr(component, "children", None)
+    items = children if isinstance(children, list | tuple) else [children]
+    return " ".join(_text(c) for c in items if c is not None)
+
+
+def test_layout_reads_the_date_and_tail_source_from_the_address(view):
+    universe = view.store.read_universe(view.signals_key)
+    tree = board_page.layout(view, {})
+    picker = _find(tree, ids.BOARD_DATE)
+    assert picker.date == universe.index[-1].strftime("%Y-%m-%d")
+    assert picker.min_date_allowed == universe.index[0].strftime("%Y-%m-%d")
+    assert _find(tree, ids.BOARD_TAIL_SOURCE).value == "model"
+    day = universe.index[100].strftime("%Y-%m-%d")
+    tree = board_page.layout(view, {"date": day, "tails": "nonparametric"})
+    assert _find(tree, ids.BOARD_DATE).date == day
+    assert _find(tree, ids.BOARD_TAIL_SOURCE).value == "nonparametric"
+    bad = board_page.layout(view, {"date": "yesterday", "tails": "best"})
+    assert "date in the address: 'yesterday' is not a date (YYYY-MM-DD)" in _text(bad)
+    assert "tails in the address: 'best' is not one of model, nonparametric" in _text(bad)
+    assert _find(bad, ids.BOARD_TAIL_SOURCE).value == "model"
+    assert "in binomial standard errors" in _text(bad)  # the ranking's definition is shown
+
+
+def test_the_same_board_on_both_backends(dash_store, view, store_url):
+    """The fixture's metrics copied into a fresh store (SQLite file or PostgreSQL database):
+    the signals update stores the same runs and universe, and the board reads the same."""
+    cfg = dash_store.cfg
+    with view.store.engine.connect() as conn:
+        rows = [dict(r) for r in conn.execute(sa.select(metrics)).mappings()]
+        states = [dict(r) for r in conn.execute(sa.select(pair_state)).mappings()]
+    with Store(store_url) as target:
+        with target.transaction() as conn:
+            conn.execute(metrics.insert(), rows)
+            conn.execute(pair_state.insert(), states)
+        update_signals(target, cfg)
+        other = StoreView.open(cfg, target)
+        pd.testing.assert_frame_equal(target.read_state_runs(other.signals_key),
+                                      view.store.read_state_runs(view.signals_key))
+        pd.testing.assert_frame_equal(target.read_universe(other.signals_key),
+                                      view.store.read_universe(view.signals_key), rtol=1e-12)
+        day = view.store.read_universe(view.signals_key).index[300]
+        got, want = board_data(other, day).pairs, board_data(view, day).pairs
+    pd.testing.assert_frame_equal(got, want, rtol=1e-12)
+
+
+def test_revisions_and_replaced_metrics_drop_the_universe_rows_they_touch(dash_store, tmp_path):
+    shutil.copy(dash_store.url.removeprefix("sqlite:///"), tmp_path / "copy.sqlite")
+    url = f"sqlite:///{tmp_path / 'copy.sqlite'}"
+    cfg = dash_store.cfg
+    key = signals_key(cfg)
+    with Store(url) as store:
+        view = StoreView.open(cfg, store)
+        before = store.read_universe(key)
+        asset = dash_store.assets[0]
+        first = before.index[len(before) // 2].date()
+        # A revision of one asset drops its pairs' metrics from that date, and the universe
+        # rows from that date (for every pair: they averaged the dropped rows).
+        with store.transaction() as conn:
+            store.invalidate_from(conn, asset, first)
+        assert store.read_universe(key).index[-1].date() < first
+        update_signals(store, cfg)
+        fresh = _fresh_signals(view)
+        want = universe_summary({p: s.frame for p, s in fresh.items()})
+        got = store.read_universe(key)
+        np.testing.assert_array_equal(got["n_pairs"], want["n_pairs"])
+        assert got.loc[got.index.date >= first, "n_pairs"].max() == 3  # the other 3 pairs
+        np.testing.assert_allclose(got["kendall_tau"], want["kendall_tau"], rtol=1e-12)
+        # Replacing a pair's metrics drops the whole summary under those settings.
+        a, b = max(fresh)
+        timeline = store.read_timeline(view.rolling_key, a, b)
+        with store.transaction() as conn:
+            store.save_pair_metrics(conn, view.rolling_key, a, b, timeline, {}, 0.3,
+                                    replace_all=True)
+        assert store.read_universe(key).empty
+        update_signals(store, cfg)
+        pd.testing.assert_frame_equal(store.read_universe(key), got, rtol=1e-12)

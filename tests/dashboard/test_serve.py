@@ -1,0 +1,76 @@
+"""`comove serve` security and start-up: loopback by default, a secret beyond it, basic
+authentication enforced by the real Flask server of the app (its WSGI test client)."""
+
+from __future__ import annotations
+
+import base64
+import socket
+
+import pytest
+
+from callbacks.app import SECRET_ENV, create_app
+from callbacks.serve import MIN_SECRET, access_secret, is_loopback
+from monitor import cli
+from monitor.errors import InputError
+from monitor.store import Store
+
+
+@pytest.mark.parametrize("host", ["127.0.0.1", "127.0.0.2", "::1", "localhost"])
+def test_loopback_needs_no_secret(host):
+    assert is_loopback(host)
+    assert access_secret(host, environ={}) is None
+
+
+@pytest.mark.parametrize("host", ["0.0.0.0", "192.168.1.20", "::", "dash.example"])
+def test_other_addresses_need_a_long_secret(host):
+    assert not is_loopback(host)
+    with pytest.raises(InputError, match=rf"--host {host}: .*{SECRET_ENV}; refusing to start"):
+        access_secret(host, environ={})
+    with pytest.raises(InputError, match=f"at least {MIN_SECRET} characters"):
+        access_secret(host, environ={SECRET_ENV: "short"})
+    assert access_secret(host, environ={SECRET_ENV: "x" * MIN_SECRET}) == "x" * MIN_SECRET
+
+
+def test_serve_refuses_to_start_without_the_secret(dash_store, monkeypatch, capsys):
+    monkeypatch.delenv(SECRET_ENV, raising=False)
+    code = cli.main(["serve", "--host", "0.0.0.0", "--store", dash_store.url])
+    err = capsys.readouterr().err
+    assert code == 2 and err.count("\n") == 1
+    assert err.startswith("error: --host 0.0.0.0: serving beyond this machine needs an access")
+
+
+def test_serve_refuses_a_port_in_use_and_a_missing_store(dash_store, tmp_path, capsys):
+    with socket.socket() as busy:
+        busy.bind(("127.0.0.1", 0))
+        busy.listen()
+        port = busy.getsockname()[1]
+        assert cli.main(["serve", "--port", str(port), "--store", dash_store.url]) == 2
+    assert f"--port {port}: cannot listen there" in capsys.readouterr().err
+    missing = f"sqlite:///{tmp_path / 'none.sqlite'}"
+    assert cli.main(["serve", "--store", missing]) == 2
+    assert "no store there yet" in capsys.readouterr().err
+    assert not (tmp_path / "none.sqlite").exists()
+
+
+def test_secret_is_enforced_on_every_request(dash_store):
+    secret = "correct horse battery"
+    with Store(dash_store.url, create=False) as store:
+        app = create_app(dash_store.cfg, store=store, secret=secret)
+        client = app.server.test_client()
+        for path in ("/", "/_dash-layout", "/_dash-dependencies"):
+            denied = client.get(path)
+            assert denied.status_code == 401
+            assert denied.headers["WWW-Authenticate"].startswith("Basic")
+        wrong = base64.b64encode(b"analyst:wrong-secret-here").decode()
+        assert client.get("/", headers={"Authorization": f"Basic {wrong}"}).status_code == 401
+        good = base64.b64encode(f"analyst:{secret}".encode()).decode()
+        assert client.get("/", headers={"Authorization": f"Basic {good}"}).status_code == 200
+
+
+def test_loopback_app_serves_without_credentials(dash_store):
+    with Store(dash_store.url, create=False) as store:
+        app = create_app(dash_store.cfg, store=store)
+        client = app.server.test_client()
+        assert client.get("/").status_code == 200
+        layout = client.get("/_dash-layout").get_json()
+        assert "statistical estimates with model risk" in str(layout)

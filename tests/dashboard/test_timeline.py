@@ -1,0 +1,237 @@
+"""The Timeline page's library (monitor.history) and callbacks called as plain functions.
+
+Outside references: statsmodels' Wilson interval for the binomial bands, the normal quantile
+for the tau band, and ``pair_signals`` recomputed from the stored timeline for the states and
+episodes the page reads from the store."""
+
+from __future__ import annotations
+
+from urllib.parse import parse_qs, urlsplit
+
+import dash
+import numpy as np
+import pandas as pd
+import pytest
+from dash import no_update
+from statsmodels.stats.proportion import proportion_confint
+
+from callbacks.timeline import (
+    OUTPUTS,
+    open_link,
+    pick_range,
+    register,
+    selected_range,
+    show_pair,
+)
+from layouts import ids
+from layouts import timeline as page
+from monitor.errors import InputError
+from monitor.history import (
+    EPISODE_COLOURS,
+    binomial_band,
+    family_runs,
+    pair_history,
+    parse_pair,
+    study_link,
+    tau_band,
+    timeline_figure,
+)
+from monitor.palette import FAMILY_COLOURS
+from monitor.signals import pair_signals
+from monitor.store import Store
+from monitor.views import StoreView
+
+
+@pytest.fixture
+def view(dash_store):
+    store = Store(dash_store.url, create=False)
+    yield StoreView.open(dash_store.cfg, store)
+    store.close()
+
+
+def _find(component, wanted_id):
+    """The component with id ``wanted_id`` in a layout tree (None when absent)."""
+    if getattr(component, "id", None) == wanted_id:
+        return component
+    children = getattr(component, "children", None)
+    if children is None:
+        return None
+    for child in children if isinstance(children, list | tuple) else [children]:
+        if hasattr(child, "to_plotly_json"):
+            hit = _find(child, wanted_id)
+            if hit is not None:
+                return hit
+    return None
+
+
+def _text(component) -> str:
+    if isinstance(component, str):
+        return component
+    children = getattr(component, "children", None)
+    if children is None:
+        return ""
+    items = children if isinstance(children, list | tuple) else [children]
+    return " ".join(_text(c) for c in items)
+
+
+# ----------------------------------------------------------------------------- bands
+def test_binomial_band_is_the_wilson_interval():
+    n, q = 120, 0.1
+    tail = np.array([0.0, 1 / 12, 0.5, 1.0])  # 0, 1, 6 and 12 joint exceedances of 120
+    low, high = binomial_band(tail, n, q)
+    # Wilson (1927) score interval, as statsmodels computes it.
+    ref_lo, ref_hi = proportion_confint(np.round(tail * q * n), n, alpha=0.05, method="wilson")
+    np.testing.assert_allclose(low, np.clip(ref_lo / q, 0, 1), rtol=1e-10, atol=1e-15)
+    np.testing.assert_allclose(high, np.clip(ref_hi / q, 0, 1), rtol=1e-10)
+    assert low[0] == 0.0 and high[0] > 0.0  # no collapse at zero exceedances
+    with pytest.raises(ValueError, match="q must lie in"):
+        binomial_band(tail, n, 1.5)
+
+
+def test_tau_band_is_normal_and_clipped():
+    low, high = tau_band([0.3, 0.95], [0.05, 0.1])
+    z = 1.959963984540054  # Phi^{-1}(0.975) (standard tables, from memory)
+    np.testing.assert_allclose(low, [0.3 - z * 0.05, 0.95 - z * 0.1])
+    np.testing.assert_allclose(high, [0.3 + z * 0.05, 1.0])
+
+
+# ----------------------------------------------------------------------------- pair history
+def test_parse_pair_accepts_either_order_and_names_the_problem():
+    pairs = [("ALPHA", "BETA"), ("ALPHA", "GAMMA")]
+    assert parse_pair("ALPHA/BETA", pairs) == ("ALPHA", "BETA")
+    assert parse_pair(" GAMMA / ALPHA ", pairs) == ("ALPHA", "GAMMA")
+    with pytest.raises(InputError, match=r"pair 'BETA/GAMMA': no stored timeline .*2 stored"):
+        parse_pair("BETA/GAMMA", pairs)
+    with pytest.raises(InputError, match=r"pair 'ALPHABETA': write it as A/B"):
+        parse_pair("ALPHABETA", pairs)
+    with pytest.raises(InputError, match="none chosen"):
+        parse_pair("", pairs)
+
+
+def test_pair_history_matches_the_stored_signals(view, dash_store):
+    a, b = min(view.store.stored_pairs(view.rolling_key))
+    history = pair_history(view, a, b)
+    f = history.frame
+    timeline = view.store.read_timeline(view.rolling_key, a, b)
+    sig = pair_signals(timeline)
+    assert len(f) == len(timeline)
+    np.testing.assert_array_equal(f["kendall_tau"], timeline["kendall_tau"])
+    np.testing.assert_array_equal(f["tail_lower_emp"], timeline["tail_lower_emp"])
+    # States decoded from the stored runs equal the from-scratch daily states.
+    for tail in ("lower", "upper"):
+        assert f[f"state_{tail}"].tolist() == sig.frame[f"state_{tail}"].tolist()
+    # Bands: tau -+ z se; Wilson for the nonparametric tails (n = window 120).
+    z = 1.959963984540054
+    np.testing.assert_allclose(f["tau_low"], np.clip(f["kendall_tau"] - z * f["kendall_tau_se"],
+                                                     -1, 1))
+    _, hi = proportion_confint(f["tail_upper_emp"] * 0.1 * 120, 120, method="wilson")
+    np.testing.assert_allclose(f["tail_upper_high"], np.clip(hi / 0.1, 0, 1), rtol=1e-10)
+    assert (f["tail_lower_low"] <= f["tail_lower_emp"] + 1e-12).all()
+    # Family runs rebuild the family column.
+    runs = history.families
+    assert runs["windows"].sum() == len(f)
+    assert np.repeat(runs["family"].to_numpy(), runs["windows"]).tolist() == \
+        f["family"].astype(str).tolist()
+    # Episode spans are the stored episodes, which are those of pair_signals.
+    spans = history.episodes
+    assert len(spans) == len(sig.episodes)
+    for span, ep in zip(spans.itertuples(index=False), sig.episodes, strict=True):
+        assert (span.tail, span.start, span.cause) == (ep.tail, ep.start, ep.cause)
+        assert span.end == (ep.end if ep.end is not None else f["date"].iloc[-1])
+    assert "window 120 days" in history.provenance and "real-time" in history.provenance
+
+
+def test_timeline_figure_traces(view):
+    pairs = sorted(view.store.stored_pairs(view.rolling_key))
+    # The pair with the most episodes shows the shading best.
+    counts = {p: len(view.store.read_episodes(view.signals_key, p)) for p in pairs}
+    a, b = max(pairs, key=lambda p: (counts[p], p))
+    history = pair_history(view, a, b)
+    fig = timeline_figure(history)
+    names = [t.name for t in fig.data]
+    tau = fig.data[names.index("Kendall's tau")]
+    # Plotted values are rounded to 4 decimals (the hover shows 3).
+    np.testing.assert_allclose(np.array(tau.y, float), history.frame["kendall_tau"], atol=5e-5)
+    assert names.count("nonparametric C(q,q)/q") == 2  # lower and upper rows
+    assert names.count("model-implied (selected family)") == 2
+    heat = [t for t in fig.data if t.type == "heatmap"]
+    assert len(heat) == 1 and list(heat[0].y) == ["family", "lower state", "upper state"]
+    for fam in set(history.frame["family"]):
+        legend = [t for t in fig.data if t.name and t.name.startswith(f"{fam} (")]
+        assert len(legend) == 1 and legend[0].marker.color == FAMILY_COLOURS[fam]
+    shapes = fig.layout.shapes
+    assert len(shapes) == 2 * len(history.episodes)
+    assert counts[(a, b)] > 0
+    lower = [s for s in shapes if "213,94,0" in s.fillcolor]  # EPISODE_COLOURS["lower"]
+    assert EPISODE_COLOURS["lower"] == "#D55E00"
+    assert len(lower) == 2 * int((history.episodes["tail"] == "lower").sum())
+    assert all(ax.fixedrange for ax in (fig.layout.yaxis, fig.layout.yaxis2, fig.layout.yaxis3))
+
+
+# ----------------------------------------------------------------------------- page
+def test_layout_preselects_the_pair_from_the_address(view):
+    pairs = sorted(view.store.stored_pairs(view.rolling_key))
+    a, b = pairs[1]
+    tree = page.layout(view, {"pair": f"{b}/{a}"})
+    assert _find(tree, ids.TIMELINE_PAIR).value == f"{a}/{b}"
+    assert len(_find(tree, ids.TIMELINE_PAIR).options) == 6
+    bad = page.layout(view, {"pair": "NOPE/ZIP"})
+    assert _find(bad, ids.TIMELINE_PAIR).value is None
+    assert "pair 'NOPE/ZIP': no stored timeline" in _text(bad)
+    assert _find(page.layout(view, {}), ids.TIMELINE_PAIR).value == f"{pairs[0][0]}/" \
+        f"{pairs[0][1]}"
+
+
+def test_show_pair_callback(view):
+    app = dash.Dash(__name__)
+    register(app, view)
+    keys = list(app.callback_map)
+    assert len(keys) == 3 and all(f"{i}.{p}" in keys[0] for i, p in OUTPUTS)
+    a, b = min(view.store.stored_pairs(view.rolling_key))
+    out = dict(zip([f"{i}.{p}" for i, p in OUTPUTS], show_pair(view, f"{b}/{a}"), strict=True))
+    fig = out[f"{ids.TIMELINE_FIGURE}.figure"]
+    timeline = view.store.read_timeline(view.rolling_key, a, b)
+    tau = next(t for t in fig.data if t.name == "Kendall's tau")
+    np.testing.assert_allclose(np.array(tau.y, float), timeline["kendall_tau"], atol=5e-5)
+    note = out[f"{ids.TIMELINE_NOTE}.children"]
+    assert f"{a} / {b}: {len(timeline)} window ends" in note
+    assert "window 120 days" in note and "AIC" in note and "real-time" in note
+    episodes = view.store.read_episodes(view.signals_key, (a, b))
+    assert len(out[f"{ids.TIMELINE_EPISODES}.data"]) == len(episodes)
+    assert out[f"{ids.TIMELINE_MESSAGE}.children"] == ""
+    assert out[f"{ids.TIMELINE_RANGE}.min_date_allowed"] == \
+        timeline["date"].iloc[0].strftime("%Y-%m-%d")
+    bad = show_pair(view, "NOPE/ZIP")
+    assert "pair 'NOPE/ZIP': no stored timeline" in bad[4].children
+    assert bad[2] == [] and len(bad[0].data) == 0
+
+
+def test_a_drag_fills_the_range_and_the_link_opens_the_study():
+    zoom = {"xaxis2.range[0]": "2021-03-04 10:31:07.2", "xaxis2.range[1]": "2021-05-01 02:00"}
+    assert selected_range(zoom, None) == ("2021-03-04", "2021-05-01")
+    assert pick_range({"xaxis.range": ["2021-06-30", "2021-02-01"]}, None) == (
+        "2021-02-01", "2021-06-30")
+    box = {"range": {"x3": ["2020-01-06 00:00", "2020-04-01 12:00"]}, "points": []}
+    assert pick_range(None, box) == ("2020-01-06", "2020-04-01")
+    assert pick_range({"xaxis.autorange": True}, None) == (no_update, no_update)
+    href, text = open_link("ALPHA/BETA", "2021-02-01", "2021-06-30")
+    assert href == study_link(("ALPHA", "BETA"), "2021-02-01", "2021-06-30")
+    parts = urlsplit(href)
+    assert parts.path == "/drilldown"
+    assert parse_qs(parts.query) == {"pair": ["ALPHA/BETA"], "start": ["2021-02-01"],
+                                     "end": ["2021-06-30"]}
+    assert "2021-02-01 to 2021-06-30" in text
+    href, text = open_link("ALPHA/BETA", None, None)
+    assert href == "/drilldown?pair=ALPHA/BETA" and "no range chosen" in text
+    assert open_link("ALPHA/BETA", "2021-06-30", "2021-02-01")[0].endswith(
+        "start=2021-02-01&end=2021-06-30")
+
+
+def test_family_runs_of_a_small_frame():
+    frame = pd.DataFrame({"date": pd.bdate_range("2024-01-01", periods=5),
+                          "family": ["gaussian", "gaussian", "clayton", "clayton", "gaussian"],
+                          "rotation": [0, 0, 0, 180, 0]})
+    runs = family_runs(frame)
+    assert runs[["family", "rotation", "windows"]].values.tolist() == [
+        ["gaussian", 0, 2], ["clayton", 0, 1], ["clayton", 180, 1], ["gaussian", 0, 1]]
+    assert runs["last_date"].iloc[0] == pd.Timestamp("2024-01-02")
