@@ -6,7 +6,7 @@ from __future__ import annotations
 import pandas as pd
 from dash import dash_table, dcc, html
 
-from monitor.palette import BLUE, FONT, GROUND, INK, MUTED, RULE
+from monitor.palette import FONT, GROUND, INK, MUTED, RULE, VERMILION
 
 from .theme import NOTE_STYLE, PANEL_STYLE
 
@@ -59,8 +59,6 @@ def records(frame: pd.DataFrame) -> tuple[list[dict], list[dict]]:
 
 def message(text: str, *, kind: str = "info") -> html.P:
     """A one-line message in a panel (``kind``: info or problem)."""
-    colour = MUTED if kind == "info" else "#D55E00"
+    colour = MUTED if kind == "info" else VERMILION
     return html.P(text, style={"color": colour, "margin": "6px 0"})
 
-
-LINK_STYLE = {"color": BLUE}

@@ -1,7 +1,7 @@
 """Component ids of the dashboard, in one place (DESIGN.md: layouts use ids from here only).
 
 Plain strings for single components; the ``*_TYPE`` names are the ``type`` of dict ids for
-repeated items (e.g. one download button per figure).
+repeated items (the window study's figures and tables).
 """
 
 # shell
@@ -76,7 +76,3 @@ INPUTS_ACF = "inputs-acf"
 INPUTS_QQ = "inputs-qq"
 INPUTS_LJUNG_BOX = "inputs-ljung-box"
 INPUTS_NOTE = "inputs-note"
-
-# repeated items: {"type": CSV_TYPE, "table": <id of a table>} buttons and their downloads
-CSV_TYPE = "csv-button"
-CSV_DOWNLOAD_TYPE = "csv-download"

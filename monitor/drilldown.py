@@ -27,11 +27,10 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
-from scipy import stats
 
 from .arrays import read_only
 from .copulas import family
-from .empirical import empirical_copula, tail_dependence
+from .empirical import empirical_copula, tail_dependence, wilson_interval
 from .errors import InputError
 from .fitting import CopulaFit, Selection, candidate_slots
 from .inference import FitUncertainty, GoodnessOfFit, Interval
@@ -44,7 +43,6 @@ TAIL_GRID = tuple(round(0.01 * k, 2) for k in range(1, 31))
 #: Replicate counts the dashboard offers (0: no bootstrap).
 REPLICATE_CHOICES = (0, 100, 200, 500)
 #: Two-sided 95% normal quantile (binomial bands).
-_Z95 = float(stats.norm.ppf(0.975))
 
 Progress = Callable[[int, int, str], None]
 
@@ -74,24 +72,6 @@ def frechet_hoeffding_bounds(u: ArrayLike, v: ArrayLike
     u = np.asarray(u, dtype=float)
     v = np.asarray(v, dtype=float)
     return np.maximum(u + v - 1.0, 0.0), np.minimum(u, v)
-
-
-def wilson_interval(share: ArrayLike, n: int, z: float = _Z95
-                    ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    """Wilson score interval of a binomial proportion ``share`` observed on ``n`` trials.
-
-    Notes
-    -----
-    (p + z^2/2n -+ z sqrt(p(1 - p)/n + z^2/4n^2)) / (1 + z^2/n) (Wilson 1927, *JASA* 22,
-    209-212). Unlike p -+ z se it stays inside [0, 1] and is not empty when no joint
-    exceedance was seen, which is common at q = 1%.
-    """
-    p = np.clip(np.asarray(share, dtype=float), 0.0, 1.0)
-    z2n = z * z / n
-    centre = p + z2n / 2
-    half = z * np.sqrt(p * (1 - p) / n + z2n / (4 * n))
-    return (np.clip((centre - half) / (1 + z2n), 0.0, 1.0),
-            np.clip((centre + half) / (1 + z2n), 0.0, 1.0))
 
 
 # ----------------------------------------------------------------------------- results

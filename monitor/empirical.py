@@ -21,6 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
+from scipy import stats
 
 from .arrays import read_only
 
@@ -41,6 +42,7 @@ __all__ = [
     "tail_dependence_cfg",
     "tail_dependence_plateau",
     "tail_dependence_rank",
+    "wilson_interval",
 ]
 
 #: Largest number of elements one broadcast comparison block of :func:`empirical_copula` holds;
@@ -1051,3 +1053,40 @@ def exceedance_correlation(x: ArrayLike, y: ArrayLike, xi: ArrayLike, *,
         reason_upper=read_only(why_up),
         reason_lower=read_only(why_down),
     )
+
+
+def wilson_interval(share: ArrayLike, n: ArrayLike, level: float = 0.95
+                    ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Wilson score interval of a binomial proportion ``share`` observed on ``n`` trials.
+
+    Parameters
+    ----------
+    share : array_like
+        Observed proportions, in [0, 1].
+    n : array_like
+        Trials (e.g. the window's days).
+    level : float
+        Coverage, in (0, 1).
+
+    Returns
+    -------
+    (ndarray, ndarray)
+        Lower and upper ends, in [0, 1].
+
+    Notes
+    -----
+    (p + z^2/2n -+ z sqrt(p(1 - p)/n + z^2/4n^2)) / (1 + z^2/n), z the normal quantile
+    (Wilson 1927, "Probable inference, the law of succession, and statistical inference",
+    *J. Amer. Statist. Assoc.* 22, 209-212). Unlike p -+ z se it stays inside [0, 1] and is
+    not empty when no joint exceedance was seen, which is common in a tail.
+    """
+    if not 0 < level < 1:
+        raise ValueError(f"level must lie in (0, 1), got {level!r}")
+    z = float(stats.norm.ppf(0.5 + level / 2))
+    p = np.clip(np.asarray(share, dtype=float), 0.0, 1.0)
+    m = np.asarray(n, dtype=float)
+    z2n = z * z / m
+    centre = p + z2n / 2
+    half = z * np.sqrt(p * (1 - p) / m + z2n / (4 * m))
+    return (np.clip((centre - half) / (1 + z2n), 0.0, 1.0),
+            np.clip((centre + half) / (1 + z2n), 0.0, 1.0))

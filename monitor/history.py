@@ -30,6 +30,7 @@ from plotly.subplots import make_subplots
 from scipy import stats
 
 from .arrays import read_only
+from .empirical import wilson_interval
 from .errors import InputError
 from .palette import (
     BLUE,
@@ -134,15 +135,8 @@ def binomial_band(tail: ArrayLike, n: ArrayLike, q: float, level: float = LEVEL
     """
     if not 0 < q < 1:
         raise ValueError(f"q must lie in (0, 1), got {q!r}")
-    lam = np.asarray(tail, dtype=float)
-    m = np.asarray(n, dtype=float)
-    z = _normal_quantile(level)
-    p = np.clip(lam * q, 0.0, 1.0)
-    denom = 1 + z * z / m
-    centre = (p + z * z / (2 * m)) / denom
-    half = z * np.sqrt(p * (1 - p) / m + z * z / (4 * m * m)) / denom
-    return (read_only(np.clip((centre - half) / q, 0.0, 1.0)),
-            read_only(np.clip((centre + half) / q, 0.0, 1.0)))
+    lo, hi = wilson_interval(np.asarray(tail, dtype=float) * q, n, level)
+    return read_only(np.clip(lo / q, 0.0, 1.0)), read_only(np.clip(hi / q, 0.0, 1.0))
 
 
 def parse_pair(text: str | None, pairs: list[tuple[str, str]]) -> tuple[str, str]:

@@ -186,7 +186,13 @@ def test_delivery_content_and_no_duplicates(store_copy, tmp_path, capsys):
         for needle in ("Kendall's tau", "lower tail, nonparametric", "lower tail, model",
                        "upper tail, model", "selected family", "not investment advice"):
             assert needle.lower() in text.lower(), needle
-        assert "<table" in msg.get_body(("html",)).get_content()
+        html_part = msg.get_body(("html",)).get_content()
+        assert "<table" in html_part
+        if shutil.which("chromium"):
+            # With plotly's static export (kaleido + the local Chromium): the chart, inline.
+            images = [p for p in msg.walk() if p.get_content_type() == "image/png"]
+            assert len(images) == 1 and images[0].get_content()[:8] == b"\x89PNG\r\n\x1a\n"
+            assert f"cid:{images[0]['Content-ID'][1:-1]}" in html_part
         assert inbox.envelopes[0].rcpt_tos == ["desk@risk.example", "cro@risk.example"]
         # Sending again sends nothing: every message went out exactly once.
         assert _send(cfg, tmp=tmp_path) == 0
@@ -337,3 +343,36 @@ def test_rule_helpers():
     assert alerts._cooled_down(later, [first, later], 30)
     assert alerts.rules_in_force(Config()) == alerts.DEFAULT_RULES
     assert alerts.rule_name(AlertRule(kind="tail-level", above=0.3)) == "tail-level"
+
+
+def _frame(values: list[float]) -> pd.DataFrame:
+    """A signal frame with a given nonparametric lower tail path (invented numbers)."""
+    n = len(values)
+    dates = pd.bdate_range("2024-01-01", periods=n)
+    return pd.DataFrame({
+        "date": dates, "start": dates - pd.Timedelta(days=360), "n": 250,
+        "kendall_tau": 0.35, "family": "clayton", "rotation": 0,
+        "tail_lower_emp": values, "tail_lower": 0.3, "tail_upper_emp": 0.1, "tail_upper": 0.0,
+        "tail_lower_emp_se": 0.06, "tail_upper_emp_se": 0.05, "gauss_tail_q": 0.28,
+        "state_lower": "calm", "state_upper": "calm"})
+
+
+def test_tail_level_and_tail_rise_rules_fire_once_per_crossing():
+    path = [0.3] * 80 + [0.5, 0.5, 0.3, 0.6]  # crosses 0.45 twice near the end
+    rules = (AlertRule(name="deep", kind="tail-level", tail="lower", above=0.45),
+             AlertRule(name="rise", kind="tail-rise", tail="lower", rise=0.25, days=60))
+    cfg = Config(alerts=AlertsConfig(rules=rules, max_age_days=10))
+    events = alerts.pair_events(cfg, "k", "A", "B", _frame(path), [], [], [])
+    deep = [e for e in events if e.rule == "deep"]
+    rise = [e for e in events if e.rule == "rise"]
+    dates = pd.bdate_range("2024-01-01", periods=len(path))
+    assert [e.date for e in deep] == [dates[80].date(), dates[83].date()]
+    assert [e.date for e in rise] == [dates[83].date()]  # 0.6 - 0.3 >= 0.25; 0.5 - 0.3 is not
+    assert all(e.kind in ("tail-level", "tail-rise") and e.tail == "lower" for e in events)
+    # The message reports the change over the last 60 window ends: 0.600 now, 0.300 then.
+    text = deep[-1].text
+    assert "lower tail, nonparametric" in text and "0.600" in text and "0.300" in text
+    # Older crossings are outside max_age; quiet pairs never alert, the watchlist always.
+    quiet = replace(cfg, alerts=replace(cfg.alerts, quiet=("A",)))
+    assert alerts.pair_events(quiet, "k", "A", "B", _frame(path), [], [], []) == []
+    assert alerts.pair_events(cfg, "k", "A", "B", _frame([0.5] + [0.3] * 90), [], [], []) == []
