@@ -170,6 +170,32 @@ def test_update_is_incremental_and_idempotent(tmp_path):
     assert (tl["n"] == 60).all()
 
 
+def test_a_revision_recomputes_the_affected_windows_like_a_fresh_run(tmp_path):
+    # A revised price drops the derived results from its date on (the pair's rolling state
+    # too, while older metric rows stay); the next update must recompute the pair, not
+    # collide with the rows it kept, and end where a store built from the revised data does.
+    from monitor.ingest import ingest_sources, read_file_source
+
+    prices = _prices(2, 340, seed=6)
+    cfg = _setup(tmp_path, "r", prices)
+    run_update(cfg, progress=False)
+    revised = prices.copy()
+    revised.iloc[330, 0] *= 1.01
+    revised.to_csv(tmp_path / "revised.csv", float_format="%.12g")
+    with Store(cfg.store.url) as store:
+        ingest_sources(store, [read_file_source(tmp_path / "revised.csv", "prices")],
+                       accept_revisions=True)
+    run_update(cfg, progress=False)
+    fresh = _setup(tmp_path, "f", revised)
+    run_update(fresh, progress=False)
+    key = rolling_key(cfg)
+    with Store(cfg.store.url) as store, Store(fresh.store.url) as other:
+        got, want = store.read_timeline(key, "TREE0", "TREE1"), other.read_timeline(
+            key, "TREE0", "TREE1")
+    assert len(got) == len(want) > 0
+    pd.testing.assert_frame_equal(got, want, check_exact=False, atol=1e-5)
+
+
 def test_kill_minus_nine_then_rerun_gives_the_uninterrupted_result(tmp_path):
     prices = _prices(6, 420, seed=4)
     reference = _setup(tmp_path, "ref", prices)
