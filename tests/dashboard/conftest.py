@@ -12,6 +12,7 @@ from monitor.config import ComputeConfig, Config, RollingConfig, StoreConfig
 from monitor.ingest import ingest_sources, read_file_source
 from monitor.pipeline import update_marginals, update_rolling, update_signals
 from monitor.store import Store
+from monitor.views import StoreView
 from synthetic_feeds import generate
 
 
@@ -39,3 +40,10 @@ def dash_store(tmp_path_factory) -> DashStore:
         update_signals(store, cfg)
     change = scen.truth["change_points"][0]
     return DashStore(cfg, url, tuple(scen.prices.columns), str(change)[:10])
+
+
+@pytest.fixture(scope="module")
+def view(dash_store):
+    """The fixture store opened under its configuration (read-only use)."""
+    with Store(dash_store.url, create=False) as store:
+        yield StoreView.open(dash_store.cfg, store)

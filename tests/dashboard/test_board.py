@@ -36,12 +36,7 @@ from monitor.signals import pair_signals, universe_summary
 from monitor.store import Store, metrics, pair_state
 from monitor.views import StoreView
 
-
-@pytest.fixture
-def view(dash_store):
-    store = Store(dash_store.url, create=False)
-    yield StoreView.open(dash_store.cfg, store)
-    store.close()
+from .tree import find, text
 
 
 def _fresh_signals(view):
@@ -316,43 +311,22 @@ def test_matrix_figure_refuses_unknown_quantities(view):
         matrix_figure(data, "tail_lower", "guess")
 
 
-def _find(component, wanted_id):
-    """The component with id ``wanted_id`` in a layout tree (None when absent)."""
-    if getattr(component, "id", None) == wanted_id:
-        return component
-    children = getattr(component, "children", None)
-    for child in children if isinstance(children, list | tuple) else [children]:
-        if hasattr(child, "to_plotly_json"):
-            hit = _find(child, wanted_id)
-            if hit is not None:
-                return hit
-    return None
-
-
-def _text(component) -> str:
-    if isinstance(component, str):
-        return component
-    children = getattr(component, "children", None)
-    items = children if isinstance(children, list | tuple) else [children]
-    return " ".join(_text(c) for c in items if c is not None)
-
-
 def test_layout_reads_the_date_and_tail_source_from_the_address(view):
     universe = view.store.read_universe(view.signals_key)
     tree = board_page.layout(view, {})
-    picker = _find(tree, ids.BOARD_DATE)
+    picker = find(tree, ids.BOARD_DATE)
     assert picker.date == universe.index[-1].strftime("%Y-%m-%d")
     assert picker.min_date_allowed == universe.index[0].strftime("%Y-%m-%d")
-    assert _find(tree, ids.BOARD_TAIL_SOURCE).value == "model"
+    assert find(tree, ids.BOARD_TAIL_SOURCE).value == "model"
     day = universe.index[100].strftime("%Y-%m-%d")
     tree = board_page.layout(view, {"date": day, "tails": "nonparametric"})
-    assert _find(tree, ids.BOARD_DATE).date == day
-    assert _find(tree, ids.BOARD_TAIL_SOURCE).value == "nonparametric"
+    assert find(tree, ids.BOARD_DATE).date == day
+    assert find(tree, ids.BOARD_TAIL_SOURCE).value == "nonparametric"
     bad = board_page.layout(view, {"date": "yesterday", "tails": "best"})
-    assert "date in the address: 'yesterday' is not a date (YYYY-MM-DD)" in _text(bad)
-    assert "tails in the address: 'best' is not one of model, nonparametric" in _text(bad)
-    assert _find(bad, ids.BOARD_TAIL_SOURCE).value == "model"
-    assert "in binomial standard errors" in _text(bad)  # the ranking's definition is shown
+    assert "date in the address: 'yesterday' is not a date (YYYY-MM-DD)" in text(bad)
+    assert "tails in the address: 'best' is not one of model, nonparametric" in text(bad)
+    assert find(bad, ids.BOARD_TAIL_SOURCE).value == "model"
+    assert "in binomial standard errors" in text(bad)  # the ranking's definition is shown
 
 
 def test_the_same_board_on_both_backends(dash_store, view, store_url):

@@ -39,7 +39,8 @@ from monitor.inference import (
     goodness_of_fit,
 )
 from monitor.store import Store
-from monitor.views import StoreView
+
+from .tree import find_all, text
 
 
 def _fit(name: str, params: tuple[float, ...], rotation: int = 0, n: int = 500) -> CopulaFit:
@@ -51,38 +52,10 @@ def _sample(name, params, n, seed, rotation=0):
     return pseudo_observations(uv[:, 0]), pseudo_observations(uv[:, 1])
 
 
-def _find(component, wanted):
-    """Every component in a Dash tree whose id satisfies ``wanted``."""
-    out = []
-    stack = [component]
-    while stack:
-        c = stack.pop()
-        if isinstance(c, list | tuple):
-            stack.extend(c)
-            continue
-        if not hasattr(c, "to_plotly_json"):
-            continue
-        if wanted(getattr(c, "id", None)):
-            out.append(c)
-        children = getattr(c, "children", None)
-        if children is not None:
-            stack.append(children)
-    return out
-
-
 def _by_id(component, cid):
-    found = _find(component, lambda i: i == cid)
+    found = find_all(component, lambda i: i == cid)
     assert len(found) == 1, cid
     return found[0]
-
-
-def _text(component) -> str:
-    if isinstance(component, str):
-        return component
-    if isinstance(component, list | tuple):
-        return " ".join(_text(c) for c in component)
-    children = getattr(component, "children", None)
-    return "" if children is None else _text(children)
 
 
 # ----------------------------------------------------------------------------- closed forms
@@ -210,13 +183,6 @@ def test_parse_pair_messages():
 
 
 # ----------------------------------------------------------------------------- stored pair
-@pytest.fixture(scope="module")
-def view(dash_store):
-    store = Store(dash_store.url, create=False)
-    yield StoreView.open(dash_store.cfg, store)
-    store.close()
-
-
 @pytest.fixture(scope="module")
 def pair(view):
     return min(view.store.stored_pairs(view.rolling_key))
@@ -346,8 +312,8 @@ def test_layout_prefills_from_the_query_and_flags_bad_links(view, pair, common):
     assert _by_id(page, ids.STUDY_AUTORUN).data is True
     bad = layout(view, {"pair": "NOPE/ALSO", "start": "yesterday"})
     assert _by_id(bad, ids.STUDY_AUTORUN).data is False
-    text = _text(_by_id(bad, ids.STUDY_MESSAGE))
-    assert "is not a stored pair" in text and "cannot read date 'yesterday'" in text
+    message = text(_by_id(bad, ids.STUDY_MESSAGE))
+    assert "is not a stored pair" in message and "cannot read date 'yesterday'" in message
     # No query: the first pair and its last stored window, nothing started.
     plain = layout(view, {})
     timeline = view.store.read_timeline(view.rolling_key, a, b)
@@ -365,7 +331,7 @@ def test_run_and_download_callbacks_as_plain_functions(view, pair, shifted, comm
     out = run_study(view, 1, f"{a}/{b}", _day(start), _day(end), "range", lo, hi, 0,
                     set_progress=seen.append)
     children, data, note, disabled = out
-    assert disabled is False and "Studied" in _text(note)
+    assert disabled is False and "Studied" in text(note)
     # Progress as (value, max, text) strings for the html.Progress bar.
     assert seen[-1][0] == seen[-1][1] == "2" and seen[-1][2] == "done"
     study = PairStudy.from_dict(data)
@@ -373,8 +339,8 @@ def test_run_and_download_callbacks_as_plain_functions(view, pair, shifted, comm
     assert (study.reference.window.start, study.reference.window.n) == (common[0], 100)
     assert study.replicates == 0 and study.study.window.gof == {}
     # Two columns of results: six figures and seven tables (summary + 3 per window).
-    figures = _find(children, lambda i: isinstance(i, dict) and i["type"] == ids.STUDY_FIGURE_TYPE)
-    tables = _find(children, lambda i: isinstance(i, dict) and i["type"] == ids.STUDY_TABLE_TYPE)
+    figures = find_all(children, lambda i: isinstance(i, dict) and i["type"] == ids.STUDY_FIGURE_TYPE)
+    tables = find_all(children, lambda i: isinstance(i, dict) and i["type"] == ids.STUDY_TABLE_TYPE)
     assert len(figures) == 6 and len(tables) == 7
     cand = next(t for t in tables if t.id == {"type": ids.STUDY_TABLE_TYPE, "role": "study",
                                                  "name": "candidates"})
@@ -393,9 +359,9 @@ def test_run_and_download_callbacks_as_plain_functions(view, pair, shifted, comm
                           (("NOPE/" + b, lo, hi), "no stored filtered")):
         children, data, note, disabled = run_study(view, 1, *args, "calmest", None, None, 200)
         assert children == [] and data is None and disabled is True
-        assert pattern in _text(note) and "\n" not in _text(note)
+        assert pattern in text(note) and "\n" not in text(note)
     children, _, note, _ = run_study(view, 1, f"{a}/{b}", lo, hi, "range", None, None, 0)
-    assert children == [] and "reference window: choose" in _text(note)
+    assert children == [] and "reference window: choose" in text(note)
     # Nothing clicked yet: nothing changes.
     assert all(x is no_update for x in run_study(view, 0, None, None, None, None, None, None,
                                                  200))
@@ -407,7 +373,7 @@ def test_results_render_a_single_column_without_reference(view, pair, shifted):
     study = study_pair(view, a, b, start, end, reference="none", replicates=0)
     assert study.reference is None and study.reference_rule == "no reference window"
     page = results(study)
-    figures = _find(page, lambda i: isinstance(i, dict) and i["type"] == ids.STUDY_FIGURE_TYPE)
+    figures = find_all(page, lambda i: isinstance(i, dict) and i["type"] == ids.STUDY_FIGURE_TYPE)
     assert len(figures) == 3
 
 

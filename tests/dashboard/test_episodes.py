@@ -34,46 +34,7 @@ from monitor.signals import SignalSettings, pair_signals
 from monitor.store import Store
 from monitor.views import StoreView
 
-
-@pytest.fixture(scope="module")
-def view(dash_store):
-    with Store(dash_store.url, create=False) as store:
-        yield StoreView.open(dash_store.cfg, store)
-
-
-def find(component, component_id):
-    """The component with ``component_id`` in a layout tree, or None."""
-    if getattr(component, "id", None) == component_id:
-        return component
-    children = getattr(component, "children", None)
-    if children is None:
-        return None
-    for child in children if isinstance(children, list | tuple) else [children]:
-        hit = find(child, component_id)
-        if hit is not None:
-            return hit
-    return None
-
-
-def texts(component) -> list[str]:
-    """Every string in a layout tree."""
-    if isinstance(component, str):
-        return [component]
-    children = getattr(component, "children", None)
-    if children is None:
-        return []
-    out = []
-    for child in children if isinstance(children, list | tuple) else [children]:
-        out.extend(texts(child))
-    return out
-
-
-def registered(app, output_id: str):
-    """The plain function of the app's callback that writes ``output_id``."""
-    for key, entry in app.callback_map.items():
-        if f"{output_id}." in key:
-            return entry["callback"].__wrapped__
-    raise KeyError(output_id)
+from .tree import find, registered, texts
 
 
 def test_episodes_equal_the_signals_of_the_stored_timelines(view):

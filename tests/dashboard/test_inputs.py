@@ -42,13 +42,7 @@ from monitor.store import Store, marginal_fits
 from monitor.views import StoreView
 from synthetic_feeds import generate
 
-from .test_episodes import find, registered, texts
-
-
-@pytest.fixture(scope="module")
-def view(dash_store):
-    with Store(dash_store.url, create=False) as store:
-        yield StoreView.open(dash_store.cfg, store)
+from .tree import find, registered, texts
 
 
 # ------------------------------------------------------------------------ coverage by hand

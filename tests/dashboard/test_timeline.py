@@ -38,40 +38,8 @@ from monitor.history import (
 )
 from monitor.palette import FAMILY_COLOURS
 from monitor.signals import pair_signals
-from monitor.store import Store
-from monitor.views import StoreView
 
-
-@pytest.fixture
-def view(dash_store):
-    store = Store(dash_store.url, create=False)
-    yield StoreView.open(dash_store.cfg, store)
-    store.close()
-
-
-def _find(component, wanted_id):
-    """The component with id ``wanted_id`` in a layout tree (None when absent)."""
-    if getattr(component, "id", None) == wanted_id:
-        return component
-    children = getattr(component, "children", None)
-    if children is None:
-        return None
-    for child in children if isinstance(children, list | tuple) else [children]:
-        if hasattr(child, "to_plotly_json"):
-            hit = _find(child, wanted_id)
-            if hit is not None:
-                return hit
-    return None
-
-
-def _text(component) -> str:
-    if isinstance(component, str):
-        return component
-    children = getattr(component, "children", None)
-    if children is None:
-        return ""
-    items = children if isinstance(children, list | tuple) else [children]
-    return " ".join(_text(c) for c in items)
+from .tree import find, text
 
 
 # ----------------------------------------------------------------------------- bands
@@ -173,12 +141,12 @@ def test_layout_preselects_the_pair_from_the_address(view):
     pairs = sorted(view.store.stored_pairs(view.rolling_key))
     a, b = pairs[1]
     tree = page.layout(view, {"pair": f"{b}/{a}"})
-    assert _find(tree, ids.TIMELINE_PAIR).value == f"{a}/{b}"
-    assert len(_find(tree, ids.TIMELINE_PAIR).options) == 6
+    assert find(tree, ids.TIMELINE_PAIR).value == f"{a}/{b}"
+    assert len(find(tree, ids.TIMELINE_PAIR).options) == 6
     bad = page.layout(view, {"pair": "NOPE/ZIP"})
-    assert _find(bad, ids.TIMELINE_PAIR).value is None
-    assert "pair 'NOPE/ZIP': no stored timeline" in _text(bad)
-    assert _find(page.layout(view, {}), ids.TIMELINE_PAIR).value == f"{pairs[0][0]}/" \
+    assert find(bad, ids.TIMELINE_PAIR).value is None
+    assert "pair 'NOPE/ZIP': no stored timeline" in text(bad)
+    assert find(page.layout(view, {}), ids.TIMELINE_PAIR).value == f"{pairs[0][0]}/" \
         f"{pairs[0][1]}"
 
 
@@ -214,15 +182,15 @@ def test_a_drag_fills_the_range_and_the_link_opens_the_study():
     box = {"range": {"x3": ["2020-01-06 00:00", "2020-04-01 12:00"]}, "points": []}
     assert pick_range(None, box) == ("2020-01-06", "2020-04-01")
     assert pick_range({"xaxis.autorange": True}, None) == (no_update, no_update)
-    href, text = open_link("ALPHA/BETA", "2021-02-01", "2021-06-30")
+    href, label = open_link("ALPHA/BETA", "2021-02-01", "2021-06-30")
     assert href == study_link(("ALPHA", "BETA"), "2021-02-01", "2021-06-30")
     parts = urlsplit(href)
     assert parts.path == "/drilldown"
     assert parse_qs(parts.query) == {"pair": ["ALPHA/BETA"], "start": ["2021-02-01"],
                                      "end": ["2021-06-30"]}
-    assert "2021-02-01 to 2021-06-30" in text
-    href, text = open_link("ALPHA/BETA", None, None)
-    assert href == "/drilldown?pair=ALPHA/BETA" and "no range chosen" in text
+    assert "2021-02-01 to 2021-06-30" in label
+    href, label = open_link("ALPHA/BETA", None, None)
+    assert href == "/drilldown?pair=ALPHA/BETA" and "no range chosen" in label
     assert open_link("ALPHA/BETA", "2021-06-30", "2021-02-01")[0].endswith(
         "start=2021-02-01&end=2021-06-30")
 
