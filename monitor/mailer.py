@@ -20,7 +20,6 @@ import datetime as dt
 import hashlib
 import os
 import smtplib
-import socket
 import ssl
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -82,6 +81,10 @@ def credentials(cfg: Config, environ=os.environ) -> tuple[str, str] | None:
     return values[0], values[1]
 
 
+class DeliveryError(Exception):
+    """A delivery problem worth one line to the user."""
+
+
 def _connect(cfg: Config, login: tuple[str, str] | None) -> smtplib.SMTP:
     e = cfg.alerts.email
     context = ssl.create_default_context()
@@ -105,10 +108,6 @@ def _connect(cfg: Config, login: tuple[str, str] | None) -> smtplib.SMTP:
     return server
 
 
-class DeliveryError(Exception):
-    """A delivery problem worth one line to the user."""
-
-
 def _describe(exc: BaseException, cfg: Config) -> str:
     e = cfg.alerts.email
     where = f"{e.host}:{e.port}"
@@ -116,7 +115,7 @@ def _describe(exc: BaseException, cfg: Config) -> str:
         return str(exc)
     if isinstance(exc, ConnectionRefusedError):
         return f"connection refused by {where}"
-    if isinstance(exc, socket.timeout | TimeoutError):
+    if isinstance(exc, TimeoutError):  # socket.timeout is TimeoutError
         return f"no answer from {where} within {SMTP_TIMEOUT:g} s"
     if isinstance(exc, smtplib.SMTPAuthenticationError):
         return f"{where} refused the credentials ({exc.smtp_code})"

@@ -491,7 +491,8 @@ def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | Non
     key = signals_key(cfg, settings)
     todo = sorted(pairs if pairs is not None else store.monitored_pairs(r_key))
     keep = _alert_rows_needed(cfg)
-    in_alert, new_n, ended_n, queued = [], 0, 0, 0
+    in_alert: list[tuple[str, str, str]] = []
+    counts = (0, 0, 0)  # new episodes, ended episodes, queued messages
     workers = min(cfg.compute.workers or os.cpu_count() or 1, max(len(todo), 1))
     pool = ProcessPoolExecutor(workers) if workers > 1 and len(todo) > 1 else None
     try:
@@ -500,22 +501,20 @@ def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | Non
                    else (_signals_task(*x) for x in args))
         chunk: list[_PairSignalsOut] = []
         for out in results:
-            if out is not None:
-                chunk.append(out)
-            if len(chunk) >= SIGNAL_CHUNK:
-                n_new, n_ended, n_queued = _store_signals(store, cfg, key, chunk)
-                new_n, ended_n, queued = new_n + n_new, ended_n + n_ended, queued + n_queued
-                in_alert += [(o.a, o.b, " and ".join(o.alert_tails)) for o in chunk
-                             if o.alert_tails]
+            if out is None:
+                continue
+            if out.alert_tails:
+                in_alert.append((out.a, out.b, " and ".join(out.alert_tails)))
+            chunk.append(out)
+            if len(chunk) == SIGNAL_CHUNK:
+                counts = _add(counts, _store_signals(store, cfg, key, chunk))
                 chunk = []
         if chunk:
-            n_new, n_ended, n_queued = _store_signals(store, cfg, key, chunk)
-            new_n, ended_n, queued = new_n + n_new, ended_n + n_ended, queued + n_queued
-            in_alert += [(o.a, o.b, " and ".join(o.alert_tails)) for o in chunk
-                         if o.alert_tails]
+            counts = _add(counts, _store_signals(store, cfg, key, chunk))
     finally:
         if pool is not None:
             pool.shutdown()
+    new_n, ended_n, queued = counts
     stored = store.universe_range(key)
     stored_to = None if stored is None else stored[1]
     latest = store.latest_window_end(r_key)
@@ -530,8 +529,14 @@ def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | Non
     return SignalSummary(key, len(todo), tuple(in_alert), new_n, ended_n, queued)
 
 
+def _add(a: tuple[int, ...], b: tuple[int, ...]) -> tuple[int, ...]:
+    return tuple(x + y for x, y in zip(a, b, strict=True))
+
+
 def _store_signals(store: Store, cfg: Config, key: str, chunk: list[_PairSignalsOut]
                    ) -> tuple[int, int, int]:
+    """Store a chunk of pairs' episodes, state runs and alert events in one transaction;
+    returns (new episodes, ended episodes, queued messages)."""
     new_n = ended_n = queued = 0
     with store.transaction() as conn:
         for o in chunk:

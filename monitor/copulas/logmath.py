@@ -53,5 +53,6 @@ def log1mexp(x):
 
 def log_expm1(x):
     """log(exp(x) - 1) for x >= 0 without overflow: x + log(1 - exp(-x))."""
-    out = log1mexp(x)
-    return np.add(out, x, out=out) if out.shape == np.shape(x) else out + x
+    out = log1mexp(x)  # a fresh array of x's shape
+    out += x
+    return out
