@@ -231,10 +231,15 @@ class RollingSummary:
 def _pair_tasks(store: Store, key: str, settings: RollingSettings, z: pd.DataFrame,
                 pairs: list[tuple[str, str]]) -> list[_PairTask]:
     tasks = []
+    states = store.load_pair_states(key)
+    values, index = z.to_numpy(dtype=float), pd.DatetimeIndex(z.index)
+    column = {str(c): i for i, c in enumerate(z.columns)}
+    present = ~np.isnan(values)
     for a, b in pairs:
-        common = z[[a, b]].dropna()
-        dates = pd.DatetimeIndex(common.index)
-        state = store.load_pair_state(key, a, b)
+        ia, ib = column[a], column[b]
+        common = np.flatnonzero(present[:, ia] & present[:, ib])
+        dates = index[common]
+        state = states.get((a, b))
         after, warm, last_tau, replace_all = -1, None, None, False
         if state is None:
             # A revision dropped the pair's state but kept its older rows: start over.
@@ -247,8 +252,11 @@ def _pair_tasks(store: Store, key: str, settings: RollingSettings, z: pd.DataFra
                 replace_all = True  # the stored end is no longer a common date: start over
         positions = window_end_positions(len(dates), settings, after)
         if positions.size:
-            tasks.append(_PairTask(a, b, dates, common[a].to_numpy(), common[b].to_numpy(),
-                                   positions, warm, last_tau, replace_all))
+            # The workers get the days the new windows cover, not the pair's whole history.
+            lo = int(positions[0]) - settings.window + 1
+            rows = common[lo:]
+            tasks.append(_PairTask(a, b, dates[lo:], values[rows, ia], values[rows, ib],
+                                   positions - lo, warm, last_tau, replace_all))
     return tasks
 
 
@@ -303,10 +311,9 @@ def update_rolling(store: Store, cfg: Config, *, progress: bool = True) -> Rolli
     for done in _run_tasks(tasks, settings, cfg, progress):
         # One transaction per batch: a pair's rows and state always land together.
         with store.transaction() as conn:
-            for task, out in done:
-                store.save_pair_metrics(conn, key, task.a, task.b, out.frame, out.last_params,
-                                        out.last_tau, replace_all=task.replace_all)
-                new += len(out.frame)
+            new += store.save_metrics(conn, key, [
+                (t.a, t.b, out.frame, out.last_params, out.last_tau, t.replace_all)
+                for t, out in done])
     return RollingSummary(key, len(pairs), len(tasks), new, cfg.compute.backend)
 
 
