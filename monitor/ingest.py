@@ -242,13 +242,17 @@ def _derive_returns(store: Store, conn, src: Source, touched: pd.Series, accept:
     """Log returns implied by the stored prices (now including this source) of the touched
     assets, from the first touched date on; split into new and differing ones."""
     assets = list(touched.index)
-    stored_prices = store.read_prices(assets, conn)
+    first = pd.Timestamp(touched.min()).date()
+    # Only the prices the touched returns need: a daily append reads a few days, not the
+    # whole history (each return uses its asset's previous price, however far back).
+    stored_prices = store.read_prices(assets, conn, since=store.last_price_date_before(
+        conn, assets, first) or first)
     rets = log_returns(stored_prices, src.name)
     tidy = as_tidy(rets)
     since = tidy["asset"].map(touched)
     # The return on the first touched date uses the price before it, so it is included.
     tidy = tidy[tidy["date"] >= since]
-    new_rows, changed = _compare(store.stored_values(conn, returns, assets), tidy)
+    new_rows, changed = _compare(store.stored_values(conn, returns, assets, since=first), tidy)
     if len(changed) and not accept:
         _refuse_revision(src, changed, "the log return implied by the prices,")
     return new_rows, changed

@@ -7,6 +7,7 @@ step, and running it again continues from there (work already stored is not redo
 
 from __future__ import annotations
 
+import datetime as dt
 import os
 import time
 from concurrent.futures import ProcessPoolExecutor, as_completed
@@ -30,7 +31,7 @@ from .ingest import (
 )
 from .marginals import FilteredSeries, MarginalSettings, extend_series, filter_series
 from .rolling import CHAIN_FROM, PairWindows, RollingSettings, batch_metrics, window_end_positions
-from .signals import TAILS, PairSignals, SignalSettings, pair_signals
+from .signals import TAILS, PairSignals, Resume, SignalSettings, context_rows, pair_signals
 from .store import Store, outbox
 
 
@@ -81,19 +82,31 @@ class MarginalSummary:
         return out
 
 
-def _filter_one(asset: str, returns: pd.Series, previous: FilteredSeries | None,
-                settings: MarginalSettings) -> tuple[str, FilteredSeries, bool]:
-    """Worker: extend the stored result when it is a prefix of the data, else recompute."""
+def _filter_one(store: Store, key: str, asset: str, returns: pd.Series,
+                settings: MarginalSettings
+                ) -> tuple[str, FilteredSeries, bool, FilteredSeries | None] | None:
+    """One asset: None when its stored result is up to date; else (asset, result, whether
+    it was recomputed from the start, the stored result it extends)."""
+    previous = store.load_filtered(key, asset)
     if previous is not None and previous.is_prefix_of(returns):
-        return asset, extend_series(previous, returns), False
-    return asset, filter_series(returns, settings), previous is not None
+        if previous.n_input == len(returns):
+            return None  # nothing new for this asset
+        return asset, extend_series(previous, returns), False, previous
+    # A stored result whose input record was dropped (a revision) is recomputed too.
+    redone = previous is not None or store.residual_count(key, asset) > 0
+    return asset, filter_series(returns, settings), redone, None
+
+
+def _filter_task(args: tuple) -> tuple | None:
+    return _filter_one(_WORKER_STORE, *args)
 
 
 def update_marginals(store: Store, cfg: Config, *, progress: bool = True) -> MarginalSummary:
     """Filter every stored asset (incrementally where possible) and store the new residuals.
 
-    Assets run in a process pool (``compute.workers``; 0 means one per core): the GARCH fits
-    are independent, and the ``arch`` package is not thread-safe in its warning handling.
+    Assets run in a process pool (``compute.workers``; 0 means one per core), each worker
+    reading the asset's stored result itself: the GARCH fits are independent, and the
+    ``arch`` package is not thread-safe in its warning handling.
     """
     settings = marginal_settings(cfg)
     key = settings.key
@@ -105,39 +118,29 @@ def update_marginals(store: Store, cfg: Config, *, progress: bool = True) -> Mar
         if len(series) < settings.min_returns:
             skipped[asset] = (f"{len(series)} returns, the filter needs {settings.min_returns}")
             continue
-        previous = store.load_filtered(key, asset)
-        if previous is not None and previous.n_input == len(series) and previous.is_prefix_of(
-                series):
-            continue  # nothing new for this asset
-        # A stored result whose input record was dropped (a revision) is recomputed too.
-        stale = previous is None and store.residual_count(key, asset) > 0
-        todo.append((asset, series, previous, stale))
+        todo.append((key, asset, series, settings))
     results: list[tuple[str, FilteredSeries, bool, FilteredSeries | None]] = []
-    workers = cfg.compute.workers or os.cpu_count() or 1
+    workers = min(cfg.compute.workers or os.cpu_count() or 1, max(len(todo), 1))
     bar = tqdm(total=len(todo), desc="marginals", unit="asset", disable=not progress or None,
                leave=False)
     try:
         if workers > 1 and len(todo) > 1:
-            with ProcessPoolExecutor(min(workers, len(todo))) as pool:
-                futures = {pool.submit(_filter_one, a, s, p, settings): (p, st)
-                           for a, s, p, st in todo}
-                for fut in as_completed(futures):
-                    asset, fs, redone = fut.result()
-                    previous, stale = futures[fut]
-                    results.append((asset, fs, redone or stale, previous))
+            with ProcessPoolExecutor(workers, initializer=_open_worker_store,
+                                     initargs=(store.url,)) as pool:
+                for out in pool.map(_filter_task, todo):
+                    results.append(out)
                     bar.update()
         else:
-            for a, s, p, st in todo:
-                asset, fs, redone = _filter_one(a, s, p, settings)
-                results.append((asset, fs, redone or st, p))
+            for args in todo:
+                results.append(_filter_one(store, *args))
                 bar.update()
     finally:
         bar.close()
+    results = [r for r in results if r is not None]
     written = 0
     with store.transaction() as conn:
         for _asset, fs, redone, previous in results:
-            written += store.save_filtered(conn, fs, None if redone or previous is None
-                                           else previous)
+            written += store.save_filtered(conn, fs, None if redone else previous)
     return MarginalSummary(
         settings_key=key, filtered=len(results), new_residuals=written,
         recomputed=tuple(sorted(a for a, _, redone, _ in results if redone)),
@@ -145,6 +148,13 @@ def update_marginals(store: Store, cfg: Config, *, progress: bool = True) -> Mar
         skipped=skipped)
 
 
+_WORKER_STORE: Store | None = None
+
+
+def _open_worker_store(url: str) -> None:
+    """Pool initializer: one store connection per worker process, for all its tasks."""
+    global _WORKER_STORE
+    _WORKER_STORE = Store(url, create=False)
 
 
 # ----------------------------------------------------------------------------- rolling engine
@@ -197,15 +207,18 @@ def _pair_batch(batch: list[_PairTask], settings: RollingSettings):
 BATCH_WINDOWS = 256
 
 
-def _batches(tasks: list[_PairTask]) -> list[list[_PairTask]]:
-    """Large pairs alone; small ones grouped into batches of about BATCH_WINDOWS windows."""
+def _batches(tasks: list[_PairTask], parts: int = 1) -> list[list[_PairTask]]:
+    """Large pairs alone; small ones grouped into batches of at most BATCH_WINDOWS windows,
+    and into at least ``parts`` batches of about equal size (one per worker)."""
+    small = sum(len(t.positions) for t in tasks if len(t.positions) <= CHAIN_FROM)
+    limit = max(1, min(BATCH_WINDOWS, -(-small // max(parts, 1))))
     out, current, size = [], [], 0
     for t in tasks:
         n = len(t.positions)
         if n > CHAIN_FROM:
             out.append([t])
             continue
-        if current and size + n > BATCH_WINDOWS:
+        if current and size + n > limit:
             out.append(current)
             current, size = [], 0
         current.append(t)
@@ -229,9 +242,11 @@ class RollingSummary:
 
 
 def _pair_tasks(store: Store, key: str, settings: RollingSettings, z: pd.DataFrame,
-                pairs: list[tuple[str, str]]) -> list[_PairTask]:
+                pairs: list[tuple[str, str]], states: dict, recent_only: bool
+                ) -> list[_PairTask] | None:
+    """The new window ends of every pair. ``recent_only``: ``z`` holds only recent days,
+    and None is returned when some pair needs more history than that."""
     tasks = []
-    states = store.load_pair_states(key)
     values, index = z.to_numpy(dtype=float), pd.DatetimeIndex(z.index)
     column = {str(c): i for i, c in enumerate(z.columns)}
     present = ~np.isnan(values)
@@ -241,15 +256,16 @@ def _pair_tasks(store: Store, key: str, settings: RollingSettings, z: pd.DataFra
         dates = index[common]
         state = states.get((a, b))
         after, warm, last_tau, replace_all = -1, None, None, False
+        hit = -1 if state is None else dates.get_indexer([pd.Timestamp(state["last_date"])])[0]
+        if recent_only and hit < settings.window - 1:
+            return None  # a new pair, a restart, or a window reaching further back
         if state is None:
             # A revision dropped the pair's state but kept its older rows: start over.
             replace_all = store.has_metrics(key, a, b)
+        elif hit >= 0:
+            after, warm, last_tau = int(hit), state["warm"], state["last_tau"]
         else:
-            hit = dates.get_indexer([pd.Timestamp(state["last_date"])])[0]
-            if hit >= 0:
-                after, warm, last_tau = int(hit), state["warm"], state["last_tau"]
-            else:
-                replace_all = True  # the stored end is no longer a common date: start over
+            replace_all = True  # the stored end is no longer a common date: start over
         positions = window_end_positions(len(dates), settings, after)
         if positions.size:
             # The workers get the days the new windows cover, not the pair's whole history.
@@ -260,11 +276,37 @@ def _pair_tasks(store: Store, key: str, settings: RollingSettings, z: pd.DataFra
     return tasks
 
 
+#: Calendar days of residuals the daily update reads before the pairs' oldest stored window
+#: end (windows of ``window`` trading days span about 1.45 times as many calendar days).
+RECENT_DAYS_PER_WINDOW_DAY = 3
+
+
+def _rolling_tasks(store: Store, m_key: str, key: str, settings: RollingSettings,
+                   cfg: Config) -> tuple[list[tuple[str, str]], list[_PairTask]]:
+    """The universe's pairs and their tasks. A daily update reads only the recent residuals
+    (every pair continues from a stored window end); anything else reads them all. Window
+    ends at step 1 do not depend on how far back the read starts; at larger steps they are
+    counted from the pair's first common day, so the whole history is read."""
+    states = store.load_pair_states(key)
+    pairs = _universe_pairs(store.residual_assets(m_key), cfg)
+    if states and settings.step == 1 and set(pairs) <= set(states):
+        since = (min(pd.Timestamp(states[p]["last_date"]) for p in pairs)
+                 - pd.Timedelta(days=RECENT_DAYS_PER_WINDOW_DAY * settings.window)).date()
+        z = store.read_residuals(m_key, since=since)
+        if {a for p in pairs for a in p} <= {str(c) for c in z.columns}:
+            tasks = _pair_tasks(store, key, settings, z, pairs, states, recent_only=True)
+            if tasks is not None:
+                return pairs, tasks
+    z = store.read_residuals(m_key)
+    return pairs, _pair_tasks(store, key, settings, z, pairs, states, recent_only=False)
+
+
 def _run_tasks(tasks: list[_PairTask], settings: RollingSettings, cfg: Config,
                progress: bool):
     """Yield lists of (task, PairMetrics), one per batch, as batches finish, on the
     configured backend."""
-    batches = _batches(tasks)
+    workers = cfg.compute.workers or os.cpu_count() or 1
+    batches = _batches(tasks, 1 if cfg.compute.backend == "dask" else workers)
     bar = tqdm(total=len(tasks), desc="rolling", unit="pair", disable=not progress or None,
                leave=False)
     try:
@@ -279,7 +321,6 @@ def _run_tasks(tasks: list[_PairTask], settings: RollingSettings, cfg: Config,
                     yield done
                     bar.update(len(done))
             return
-        workers = cfg.compute.workers or os.cpu_count() or 1
         if workers > 1 and len(batches) > 1:
             with ProcessPoolExecutor(min(workers, len(batches))) as pool:
                 futures = [pool.submit(_pair_batch, b, settings) for b in batches]
@@ -304,9 +345,7 @@ def update_rolling(store: Store, cfg: Config, *, progress: bool = True) -> Rolli
     m_key = marginal_settings(cfg).key
     settings = rolling_settings(cfg)
     key = settings.key(m_key)
-    z = store.read_residuals(m_key)
-    pairs = _universe_pairs([str(c) for c in z.columns], cfg)
-    tasks = _pair_tasks(store, key, settings, z, pairs)
+    pairs, tasks = _rolling_tasks(store, m_key, key, settings, cfg)
     new = 0
     for done in _run_tasks(tasks, settings, cfg, progress):
         # One transaction per batch: a pair's rows and state always land together.
@@ -450,6 +489,9 @@ class _PairSignalsOut:
     runs: pd.DataFrame
     alert_tails: tuple[str, ...]
     frame: pd.DataFrame  # the signal frame's recent rows (what the alert rules look at)
+    since: dt.date | None  # the resume date a continued computation started from
+    through: dt.date  # the last window end covered
+    resume: dict | None  # where the next update continues from
 
 
 def _alert_rows_needed(cfg: Config) -> int:
@@ -459,18 +501,52 @@ def _alert_rows_needed(cfg: Config) -> int:
     return int(cfg.alerts.max_age_days * 5 / 7) + days + 20
 
 
-def _signals_task(url: str, r_key: str, a: str, b: str, settings: SignalSettings,
-                  keep: int) -> _PairSignalsOut | None:
-    """Worker: read one pair's timeline and compute its signals."""
-    with Store(url, create=False) as store:
-        timeline = store.read_timeline(r_key, a, b)
-    if timeline.empty:
-        return None
-    sig = pair_signals(timeline, settings)
+@dataclass(frozen=True, slots=True)
+class _SignalJob:
+    """What a worker needs to compute one pair's signals."""
+
+    r_key: str
+    a: str
+    b: str
+    settings: SignalSettings
+    keep: int  # recent rows the alert rules need, and the lag of the next resume point
+    context: int  # rows before a resume date the continued computation reads
+    resume: dict | None
+
+
+def _pair_signals_job(store: Store, job: _SignalJob) -> _PairSignalsOut | None:
+    """One pair's signals: continued from its stored resume point when there is one (reading
+    only the newest rows of its timeline), else from its whole timeline."""
+    sig = None
+    if job.resume is not None:
+        resume = Resume.from_dict(job.resume)
+        timeline = store.read_timeline(job.r_key, job.a, job.b,
+                                       context_from=resume.date.date(),
+                                       context_rows=job.context)
+        try:
+            sig = pair_signals(timeline, job.settings, resume=resume)
+        except InputError:
+            sig = None  # not a window end any more: recompute the whole timeline
+        if sig is not None and len(sig.frame) < job.keep:
+            sig = None  # the alert rules now look further back than the resume point
+    if sig is None:
+        timeline = store.read_timeline(job.r_key, job.a, job.b)
+        if timeline.empty:
+            return None
+        sig = pair_signals(timeline, job.settings)
     last = sig.frame.iloc[-1]
     tails = tuple(t for t in TAILS if last[f"alert_{t}"])
-    return _PairSignalsOut(a, b, [_episode_row(e) for e in sig.episodes],
-                           state_runs(sig.frame), tails, sig.frame.tail(keep))
+    # With no new rows the old point still holds (its rows are all still in the frame).
+    nxt = sig.resume_at(job.keep) or sig.resumed_from
+    since = None if sig.resumed_from is None else sig.resumed_from.date.date()
+    return _PairSignalsOut(job.a, job.b, [_episode_row(e) for e in sig.episodes],
+                           state_runs(sig.frame), tails, sig.frame.tail(job.keep), since,
+                           pd.Timestamp(last["date"]).date(),
+                           None if nxt is None else nxt.to_dict())
+
+
+def _signals_task(job: _SignalJob) -> _PairSignalsOut | None:
+    return _pair_signals_job(_WORKER_STORE, job)
 
 
 #: Pairs whose signals are stored together in one transaction.
@@ -479,33 +555,43 @@ SIGNAL_CHUNK = 32
 
 def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | None = None
                    ) -> SignalSummary:
-    """Recompute every pair's signals from its stored timeline and store its episodes, state
+    """Bring every pair's signals up to its stored timeline and store its episodes, state
     runs and alert messages, in transactions of up to :data:`SIGNAL_CHUNK` pairs; then
     complete the stored universe summary.
 
     Notes
     -----
-    The pairs are computed in a local process pool (``compute.workers``; each worker reads
-    the store itself). A pair's episodes, state runs and queued alerts are written in one
-    transaction, so an alert is queued exactly when the change it reports is stored. A pair
-    whose states changed drops the universe rows from the first changed date in that same
-    transaction (as do revisions and replaced metrics), so the summary is always recomputed
-    from the first date it is missing, even after an interrupted update; a quiet day
-    recomputes one date.
+    A pair continues from its stored resume point (:class:`monitor.signals.Resume`, a
+    fixed number of window ends before its last one), so a daily update reads a few hundred
+    rows of each timeline rather than all of them and gives the same states and episodes.
+    A pair without one (new, or its metrics were replaced or revised) is computed from its
+    whole timeline. The pairs are computed in a local process pool (``compute.workers``;
+    each worker reads the store itself). A pair's episodes, state runs, queued alerts and
+    resume point are written in one transaction, so an alert is queued exactly when the
+    change it reports is stored. A pair whose states changed drops the universe rows from
+    the first changed date in that same transaction (as do revisions and replaced
+    metrics), so the summary is always recomputed from the first date it is missing, even
+    after an interrupted update; a quiet day recomputes one date.
     """
     settings = SignalSettings()
     r_key = rolling_key(cfg)
     key = signals_key(cfg, settings)
     todo = sorted(pairs if pairs is not None else store.monitored_pairs(r_key))
     keep = _alert_rows_needed(cfg)
+    r = cfg.rolling
+    context = context_rows(settings, r.window // r.step + 1)
+    resumes = store.read_resumes(key)
+    jobs = [_SignalJob(r_key, a, b, settings, keep, context, resumes.get((a, b)))
+            for a, b in todo]
     in_alert: list[tuple[str, str, str]] = []
     counts = (0, 0, 0)  # new episodes, ended episodes, queued messages
     workers = min(cfg.compute.workers or os.cpu_count() or 1, max(len(todo), 1))
-    pool = ProcessPoolExecutor(workers) if workers > 1 and len(todo) > 1 else None
+    pool = (ProcessPoolExecutor(workers, initializer=_open_worker_store,
+                                initargs=(store.url,))
+            if workers > 1 and len(todo) > 1 else None)
     try:
-        args = [(store.url, r_key, a, b, settings, keep) for a, b in todo]
-        results = (pool.map(_signals_task, *zip(*args), chunksize=8) if pool and args
-                   else (_signals_task(*x) for x in args))
+        results = (pool.map(_signals_task, jobs, chunksize=8) if pool
+                   else (_pair_signals_job(store, j) for j in jobs))
         chunk: list[_PairSignalsOut] = []
         for out in results:
             if out is None:
@@ -514,10 +600,10 @@ def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | Non
                 in_alert.append((out.a, out.b, " and ".join(out.alert_tails)))
             chunk.append(out)
             if len(chunk) == SIGNAL_CHUNK:
-                counts = _add(counts, _store_signals(store, cfg, key, chunk))
+                counts = _add(counts, _store_signals(store, cfg, r_key, key, chunk))
                 chunk = []
         if chunk:
-            counts = _add(counts, _store_signals(store, cfg, key, chunk))
+            counts = _add(counts, _store_signals(store, cfg, r_key, key, chunk))
     finally:
         if pool is not None:
             pool.shutdown()
@@ -540,18 +626,20 @@ def _add(a: tuple[int, ...], b: tuple[int, ...]) -> tuple[int, ...]:
     return tuple(x + y for x, y in zip(a, b, strict=True))
 
 
-def _store_signals(store: Store, cfg: Config, key: str, chunk: list[_PairSignalsOut]
-                   ) -> tuple[int, int, int]:
-    """Store a chunk of pairs' episodes, state runs and alert events in one transaction;
-    returns (new episodes, ended episodes, queued messages)."""
+def _store_signals(store: Store, cfg: Config, r_key: str, key: str,
+                   chunk: list[_PairSignalsOut]) -> tuple[int, int, int]:
+    """Store a chunk of pairs' episodes, state runs, alert events and resume points in one
+    transaction; returns (new episodes, ended episodes, queued messages)."""
     new_n = ended_n = queued = 0
     with store.transaction() as conn:
         for o in chunk:
-            new, ended = store.sync_episodes(conn, key, o.a, o.b, o.episodes)
-            store.sync_state_runs(conn, key, o.a, o.b, o.runs)
+            new, ended, every = store.sync_episodes(conn, key, o.a, o.b, o.episodes,
+                                                    since=o.since)
+            store.sync_state_runs(conn, key, o.a, o.b, o.runs, since=o.since)
             # The alert queue changes with the state it reports, in the same transaction.
             queued += alerts.queue(conn, outbox, key, alerts.pair_events(
-                cfg, key, o.a, o.b, o.frame, new, ended, o.episodes))
+                cfg, key, o.a, o.b, o.frame, new, ended, every))
+            store.save_resume(conn, key, r_key, o.a, o.b, o.through, o.resume)
             new_n += len(new)
             ended_n += len(ended)
     return new_n, ended_n, queued

@@ -98,6 +98,7 @@ not built for a change at constant tau and rarely fires on these scenarios.
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from types import MappingProxyType
@@ -119,7 +120,10 @@ __all__ = [
     "TAILS",
     "Episode",
     "PairSignals",
+    "Resume",
     "SignalSettings",
+    "carry_rows",
+    "context_rows",
     "cusum",
     "hysteresis",
     "pair_signals",
@@ -325,11 +329,14 @@ class Episode:
 @dataclass(frozen=True, slots=True)
 class PairSignals:
     """Signals of one pair: the timeline with the :data:`SIGNAL_COLUMNS` added, its episodes
-    (in start order, both tails) and the settings that produced them."""
+    (in start order, both tails) and the settings that produced them. ``resumed_from`` is
+    the :class:`Resume` a continued computation started from (None for a whole timeline).
+    """
 
     frame: pd.DataFrame
     episodes: tuple[Episode, ...]
     settings: SignalSettings = field(default_factory=SignalSettings)
+    resumed_from: Resume | None = None
 
     def episodes_frame(self) -> pd.DataFrame:
         """The episodes as a table, one row each (columns are :class:`Episode`'s fields)."""
@@ -337,11 +344,93 @@ class PairSignals:
         return pd.DataFrame([[getattr(e, c) for c in cols] for e in self.episodes],
                             columns=cols)
 
+    def resume_at(self, lag: int) -> Resume | None:
+        """The point the next computation can continue from: ``lag`` window ends before the
+        last row of ``frame`` (None when the frame is too short for it).
+
+        Parameters
+        ----------
+        lag : int
+            Window ends between the resume date and the end of the frame (>= 0). The next
+            computation returns its frame from the row after the resume date, so ``lag``
+            bounds from below the rows it can report without new data.
+        """
+        if lag < 0:
+            raise ValueError(f"lag must be >= 0, got {lag}")
+        m = carry_rows(self.settings)
+        row = len(self.frame) - 1 - lag
+        # The levels before the frame's first row: those a continued computation carried.
+        before = () if self.resumed_from is None else self.resumed_from.cusum[TAILS[0]]
+        if row < 0 or row - m + 1 < -len(before):
+            return None
+        date = pd.Timestamp(self.frame["date"].iloc[row])
+        levels = {}
+        for t in TAILS:
+            carried = () if self.resumed_from is None else self.resumed_from.cusum[t]
+            seq = np.concatenate([carried, self.frame[f"sequential_{t}"].to_numpy(dtype=float)])
+            at = row + len(carried)
+            levels[t] = tuple(float(x) for x in seq[at - m + 1:at + 1])
+        open_ = tuple(e for e in self.episodes
+                      if e.start <= date and (e.end is None or e.end >= date))
+        return Resume(date, MappingProxyType(levels), open_)
+
+
+def carry_rows(settings: SignalSettings) -> int:
+    """Window ends of CUSUM levels a :class:`Resume` carries: enough for every run of
+    active or quiet days that a later decision can depend on."""
+    return max(settings.entry_days, settings.exit_days)
+
+
+@dataclass(frozen=True, slots=True)
+class Resume:
+    """Where a pair's signals continue from, so that a daily update computes only its new
+    window ends (see :func:`pair_signals`).
+
+    Attributes
+    ----------
+    date : Timestamp
+        A window end already computed. A continued computation takes its decisions from
+        the window end after it.
+    cusum : mapping of tail -> tuple of float
+        The CUSUM (``sequential_*``) on the last :func:`carry_rows` window ends up to and
+        including ``date``.
+    episodes : tuple of Episode
+        The episodes open on ``date`` (at most one per tail); a tail is in alert on
+        ``date`` exactly when one of them is its own. Their peak is over at least their
+        days up to ``date``.
+    """
+
+    date: pd.Timestamp
+    cusum: Mapping[str, tuple[float, ...]]
+    episodes: tuple[Episode, ...] = ()
+
+    def to_dict(self) -> dict[str, object]:
+        """JSON-ready form (the inverse of :meth:`from_dict`)."""
+        return {"date": self.date.strftime("%Y-%m-%d"),
+                "cusum": {t: list(self.cusum[t]) for t in TAILS},
+                "episodes": [e.to_dict() for e in self.episodes]}
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, object]) -> Resume:
+        """Rebuild from :meth:`to_dict`'s form."""
+        def day(x: object) -> pd.Timestamp | None:
+            return None if x is None else pd.Timestamp(str(x))
+
+        eps = []
+        for e in data["episodes"]:
+            fields = dict(e)
+            for k in ("onset", "start", "end", "peak_date"):
+                fields[k] = day(fields[k])
+            eps.append(Episode(**fields))
+        return cls(pd.Timestamp(str(data["date"])),
+                   MappingProxyType({t: tuple(float(x) for x in data["cusum"][t])
+                                     for t in TAILS}), tuple(eps))
+
 
 # ----------------------------------------------------------------------- building blocks
-def cusum(increments: ArrayLike, reference: float = 0.0, cap: float = np.inf
-          ) -> NDArray[np.float64]:
-    """One-sided CUSUM ``S_t = min(cap, max(0, S_{t-1} + x_t - k))`` with ``S_0 = 0``.
+def cusum(increments: ArrayLike, reference: float = 0.0, cap: float = np.inf,
+          start: float = 0.0) -> NDArray[np.float64]:
+    """One-sided CUSUM ``S_t = min(cap, max(0, S_{t-1} + x_t - k))`` from ``S_0 = start``.
 
     Parameters
     ----------
@@ -352,6 +441,9 @@ def cusum(increments: ArrayLike, reference: float = 0.0, cap: float = np.inf
         Reference value (drift allowance) ``k``.
     cap : float
         Ceiling (``inf`` for none); must be >= 0.
+    start : float
+        The level before the first increment, in ``[0, cap]`` (0 for a fresh start; a
+        stored level to continue a series).
 
     Returns
     -------
@@ -378,20 +470,23 @@ def cusum(increments: ArrayLike, reference: float = 0.0, cap: float = np.inf
         raise ValueError("increments must have at least one axis (days)")
     if not np.isfinite(reference) or not cap >= 0:
         raise ValueError(f"reference must be finite and cap >= 0, got {reference}, {cap}")
+    if not 0.0 <= start <= cap:
+        raise ValueError(f"start must be in [0, cap], got {start}")
     steps = np.where(np.isnan(x), 0.0, x - reference)
     if steps.size == 0:
         return read_only(steps)
     flat = steps.reshape(-1, steps.shape[-1])
     out = np.empty_like(flat)
     for row in range(flat.shape[0]):
-        out[row] = _reflected_path(flat[row], float(cap))
+        out[row] = _reflected_path(flat[row], float(cap), float(start))
     return read_only(out.reshape(x.shape))
 
 
-def _reflected_path(steps: NDArray[np.float64], cap: float) -> NDArray[np.float64]:
+def _reflected_path(steps: NDArray[np.float64], cap: float, start: float
+                    ) -> NDArray[np.float64]:
     n = steps.size
     out = np.empty(n)
-    pos, level, lower = 0, 0.0, True
+    pos, level, lower = 0, start, True
     while pos < n:
         w = np.cumsum(steps[pos:])
         if lower:
@@ -419,8 +514,8 @@ def _run_lengths(flags: NDArray[np.bool_]) -> NDArray[np.int64]:
     return np.where(flags, idx - last_false, 0)
 
 
-def hysteresis(active: ArrayLike, quiet: ArrayLike, entry_days: int, exit_days: int
-               ) -> list[tuple[int, int | None]]:
+def hysteresis(active: ArrayLike, quiet: ArrayLike, entry_days: int, exit_days: int, *,
+               start: int = 0, open_at_start: bool = False) -> list[tuple[int, int | None]]:
     """Alert spells from daily flags: open after ``entry_days`` active days in a row, close
     after ``exit_days`` quiet days in a row.
 
@@ -431,6 +526,13 @@ def hysteresis(active: ArrayLike, quiet: ArrayLike, entry_days: int, exit_days: 
         may be neither (between the levels) but not both.
     entry_days, exit_days : int
         Persistence needed to open and to close (>= 1).
+    start : int
+        First day on which spells may open or close; the days before only count towards
+        the runs of active and quiet days (to continue a series, they must include the last
+        ``max(entry_days, exit_days) - 1`` days before ``start``).
+    open_at_start : bool
+        Whether a spell is open on the day before ``start``; it is returned first, as
+        ``(start, closing_day)``.
 
     Returns
     -------
@@ -460,10 +562,18 @@ def hysteresis(active: ArrayLike, quiet: ArrayLike, entry_days: int, exit_days: 
         raise ValueError("a day cannot be both active and quiet")
     if entry_days < 1 or exit_days < 1:
         raise ValueError("entry_days and exit_days must be >= 1")
+    if not 0 <= start <= a.size:
+        raise ValueError(f"start must be in [0, {a.size}], got {start}")
     opens = np.flatnonzero(_run_lengths(a) >= entry_days)
     closes = np.flatnonzero(_run_lengths(q) >= exit_days)
     spells: list[tuple[int, int | None]] = []
-    after = 0
+    after = start
+    if open_at_start:
+        j = np.searchsorted(closes, start)
+        if j == closes.size:
+            return [(start, None)]
+        spells.append((start, int(closes[j])))
+        after = int(closes[j]) + 1
     while True:
         i = np.searchsorted(opens, after)
         if i == opens.size:
@@ -537,10 +647,13 @@ def _check_timeline(timeline: pd.DataFrame) -> pd.DataFrame:
 
 
 def _tail_statistics(frame: pd.DataFrame, tail: str, s: SignalSettings,
-                     reference_end: NDArray[np.intp]) -> dict[str, NDArray[np.float64]]:
+                     reference_end: NDArray[np.intp], resume_row: int,
+                     carried: tuple[float, ...]) -> dict[str, NDArray[np.float64]]:
     def num(name: str) -> NDArray[np.float64]:
-        return pd.to_numeric(frame[name], errors="coerce").to_numpy(dtype=float,
-                                                                   na_value=np.nan)
+        col = frame[name]
+        if col.dtype.kind == "f":  # as stored: no conversion needed
+            return col.to_numpy()
+        return pd.to_numeric(col, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
 
     emp, se = num(f"tail_{tail}_emp"), num(f"tail_{tail}_emp_se")
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -548,7 +661,15 @@ def _tail_statistics(frame: pd.DataFrame, tail: str, s: SignalSettings,
         # Where the binomial s.e. is 0 the estimate is 0 (no joint exceedance): no excess.
         excess = np.where(se > 0, diff / se, np.where(diff > 0, np.inf, 0.0))
     window = num(f"loglik_best_{tail}") - num("loglik_gauss")
-    sequential = np.asarray(cusum(num(f"llr_{tail}"), s.cusum_reference, s.cusum_cap))
+    llr = num(f"llr_{tail}")
+    if carried:
+        # Continued: the carried levels up to the resume row, the recursion after it.
+        sequential = np.full(llr.size, np.nan)
+        sequential[resume_row - len(carried) + 1:resume_row + 1] = carried
+        sequential[resume_row + 1:] = cusum(llr[resume_row + 1:], s.cusum_reference,
+                                            s.cusum_cap, start=carried[-1])
+    else:
+        sequential = np.asarray(cusum(llr, s.cusum_reference, s.cusum_cap))
     spike = np.asarray(robust_z_against_history(emp, se, reference_end, s.reference_windows))
     other = "upper" if tail == "lower" else "lower"
     model = num(f"tail_{tail}")
@@ -566,8 +687,12 @@ def _tail_statistics(frame: pd.DataFrame, tail: str, s: SignalSettings,
 
 
 def _tail_episodes(frame: pd.DataFrame, tail: str, stats: dict[str, NDArray[np.float64]],
-                   s: SignalSettings
+                   s: SignalSettings, first_row: int, decide_from: int,
+                   continued: Episode | None
                    ) -> tuple[NDArray[np.float64], NDArray[np.bool_], NDArray, list[Episode]]:
+    """Evidence, alert flags, states and episodes of one tail. Rows before ``first_row``
+    are history only; spells open and close from ``decide_from`` on, continuing the
+    ``continued`` episode when one is open the row before."""
     names = list(STATISTICS)
     values = np.stack([stats[n] for n in names])
     entry = np.array([s.thresholds(n)[0] for n in names])[:, None]
@@ -591,29 +716,42 @@ def _tail_episodes(frame: pd.DataFrame, tail: str, stats: dict[str, NDArray[np.f
     n = len(frame)
     alert = np.zeros(n, dtype=bool)
     dates = pd.to_datetime(frame["date"]).reset_index(drop=True)
+
+    def at(row: int) -> dict[str, object]:
+        r = frame.iloc[row]
+        return {"peak_date": dates[row], "peak_value": float(evidence[row]),
+                "peak_tail_emp": float(r[f"tail_{tail}_emp"]),
+                "peak_tail_model": float(r[f"tail_{tail}"]),
+                "peak_gauss_tail": float(r["gauss_tail_q"]),
+                "peak_kendall_tau": float(r["kendall_tau"])}
+
     episodes = []
-    for first, close in hysteresis(active, quiet, s.entry_days, s.exit_days):
-        stop = n if close is None else close
+    spells = hysteresis(active[first_row:], quiet[first_row:], s.entry_days, s.exit_days,
+                        start=decide_from - first_row, open_at_start=continued is not None)
+    for k, (first, close) in enumerate(spells):
+        first += first_row
+        stop = n if close is None else close + first_row
         alert[first:stop] = True
+        end = None if close is None else dates[stop - 1]
+        peak = first + int(np.argmax(evidence[first:stop])) if stop > first else None
+        if k == 0 and continued is not None:
+            # Its peak so far against the new days' (the first maximum wins ties).
+            newer = peak is not None and evidence[peak] > continued.peak_value
+            episodes.append(dataclasses.replace(continued, end=end,
+                                                **(at(peak) if newer else {})))
+            continue
         run_start = first - s.entry_days + 1
         days_active = active_each[:, run_start:first + 1].sum(axis=1)
         best = int(np.argmax(days_active))  # first maximum: STATISTICS order breaks ties
-        peak = first + int(np.argmax(evidence[first:stop]))
-        row = frame.iloc[peak]
         episodes.append(Episode(
             tail=tail, cause=STATISTICS[names[best]], statistic=names[best],
-            onset=dates[run_start], start=dates[first],
-            end=None if close is None else dates[close - 1], peak_date=dates[peak],
-            peak_value=float(evidence[peak]), peak_tail_emp=float(row[f"tail_{tail}_emp"]),
-            peak_tail_model=float(row[f"tail_{tail}"]),
-            peak_gauss_tail=float(row["gauss_tail_q"]),
-            peak_kendall_tau=float(row["kendall_tau"])))
+            onset=dates[run_start], start=dates[first], end=end, **at(peak)))
     state = np.where(alert, "alert", np.where(active, "watch", "calm"))
     return evidence, alert, state, episodes
 
 
-def pair_signals(timeline: pd.DataFrame, settings: SignalSettings | None = None
-                 ) -> PairSignals:
+def pair_signals(timeline: pd.DataFrame, settings: SignalSettings | None = None,
+                 resume: Resume | None = None) -> PairSignals:
     """Tail-divergence, spike and switch signals, states and alert episodes of one pair.
 
     Parameters
@@ -624,6 +762,11 @@ def pair_signals(timeline: pd.DataFrame, settings: SignalSettings | None = None
         :func:`monitor.rolling.pair_metrics`).
     settings : SignalSettings, optional
         Thresholds; the calibrated defaults if omitted.
+    resume : Resume, optional
+        Continue an earlier computation of the same pair and settings from its
+        :meth:`PairSignals.resume_at` point. ``timeline`` must then be the newest rows of
+        the pair's timeline: at least :func:`context_rows` rows up to the resume date (or
+        every row up to it), and every row after it.
 
     Returns
     -------
@@ -633,12 +776,15 @@ def pair_signals(timeline: pd.DataFrame, settings: SignalSettings | None = None
         same tau), ``window_*``, ``sequential_*``, ``spike_*`` and ``switch_*`` (the four
         statistics), ``evidence_*`` (largest statistic-to-entry ratio), ``state_*`` (one of
         :data:`STATES`), ``alert_*`` (0/1) and ``alert`` (1 while either tail is in an
-        episode).
+        episode). With ``resume``, ``frame`` holds the rows after the resume date and
+        ``episodes`` those in alert on the resume date or later: both as the whole timeline's
+        computation gives them (the CUSUM to rounding, about 1e-15).
 
     Raises
     ------
     InputError
-        If a required column is missing or the dates are not strictly increasing.
+        If a required column is missing, the dates are not strictly increasing, or the
+        resume date is not one of the timeline's window ends with enough rows before it.
 
     Notes
     -----
@@ -670,12 +816,26 @@ def pair_signals(timeline: pd.DataFrame, settings: SignalSettings | None = None
     starts = pd.to_datetime(frame["start"]).to_numpy()
     # Reference windows end before the current window's first day: no shared observation.
     reference_end = np.searchsorted(dates, starts, side="left")
+    row, first_row = -1, 0
+    if resume is not None:
+        row = int(np.searchsorted(dates, resume.date.to_datetime64()))
+        if row == len(dates) or dates[row] != resume.date.to_datetime64():
+            raise InputError(f"timeline: the resume date {resume.date.date()} is not one of "
+                             "its window ends")
+        first_row = row - carry_rows(s) + 1
+        if first_row < 0 or any(len(resume.cusum[t]) != carry_rows(s) for t in TAILS):
+            raise InputError(f"timeline: too few rows up to the resume date "
+                             f"{resume.date.date()}")
     new: dict[str, object] = {}
     episodes: list[Episode] = []
     any_alert = np.zeros(len(frame), dtype=bool)
     for tail in TAILS:
-        stats = _tail_statistics(frame, tail, s, reference_end)
-        evidence, alert, state, eps = _tail_episodes(frame, tail, stats, s)
+        carried = () if resume is None else resume.cusum[tail]
+        stats = _tail_statistics(frame, tail, s, reference_end, row, carried)
+        continued = None if resume is None else next(
+            (e for e in resume.episodes if e.tail == tail), None)
+        evidence, alert, state, eps = _tail_episodes(frame, tail, stats, s, first_row,
+                                                     row + 1, continued)
         for name in ("excess", "window", "sequential", "spike", "switch"):
             new[f"{name}_{tail}"] = stats[name]
         new[f"evidence_{tail}"] = evidence
@@ -686,8 +846,26 @@ def pair_signals(timeline: pd.DataFrame, settings: SignalSettings | None = None
     new["alert"] = any_alert.astype(np.int64)
     out = frame.drop(columns=[c for c in SIGNAL_COLUMNS if c in frame.columns])
     out = pd.concat([out, pd.DataFrame(new, index=out.index)], axis=1)
+    if resume is not None:
+        out = out.iloc[row + 1:].reset_index(drop=True)
     episodes.sort(key=lambda e: (e.start, TAILS.index(e.tail)))
-    return PairSignals(out, tuple(episodes), s)
+    return PairSignals(out, tuple(episodes), s, resume)
+
+
+def context_rows(settings: SignalSettings, window_rows: int) -> int:
+    """Rows of a timeline up to a resume date that :func:`pair_signals` needs to continue
+    from it: the carried CUSUM rows, and for each of them the spike and switch references
+    (the ``reference_windows`` window ends before its window's first day).
+
+    Parameters
+    ----------
+    settings : SignalSettings
+    window_rows : int
+        Most window ends within one window's span (``window // step + 1`` for the rolling
+        engine's windows of ``window`` common days at step ``step``).
+    """
+    return (carry_rows(settings) + window_rows + max(settings.reference_windows,
+                                                     settings.switch_windows) + 1)
 
 
 # ------------------------------------------------------------------------------ universe

@@ -192,6 +192,17 @@ state_runs = sa.Table(
     sa.Column("state", sa.String(8), nullable=False),
 )
 
+#: Where each pair's signals continue from (:class:`monitor.signals.Resume`, as JSON). A row
+#: vouches that the pair's stored states and episodes agree with its stored metrics, so
+#: anything that drops or replaces metric rows drops the pair's row here too.
+signal_resume = sa.Table(
+    "signal_resume", metadata, *_pair_key(),
+    sa.Column("rolling", sa.String(255), nullable=False),  # the metrics' settings key
+    sa.Column("through", sa.Date, nullable=False),  # last window end covered
+    sa.Column("payload", sa.Text, nullable=False),
+    sa.Column("updated_at", sa.DateTime, nullable=False),
+)
+
 #: Cross-pair means kept per date in ``universe_daily`` (columns of the metrics timeline).
 UNIVERSE_MEANS = ("kendall_tau", "tail_lower", "tail_upper", "tail_lower_emp", "tail_upper_emp")
 #: Counts kept per date in ``universe_daily``.
@@ -227,6 +238,51 @@ outbox = sa.Table(
     sa.Column("sent_at", sa.DateTime),
     sa.Column("sent_as", sa.String(128)),  # the Message-ID it went out under (digests)
 )
+
+
+def _of_pair(table: sa.Table) -> sa.ColumnElement[bool]:
+    """``settings, asset_a, asset_b`` equal to the bound ``p_s, p_a, p_b``."""
+    return sa.and_(table.c.settings == sa.bindparam("p_s"),
+                   table.c.asset_a == sa.bindparam("p_a"),
+                   table.c.asset_b == sa.bindparam("p_b"))
+
+
+# Statements the signals step runs for every pair, built once: building and compiling SQL
+# expressions per call would cost more than running them.
+_EPISODE_COLUMNS = [c for c in episodes.c
+                    if c.name not in ("settings", "asset_a", "asset_b", "updated_at")]
+_SELECT_EPISODES = sa.select(*_EPISODE_COLUMNS).where(_of_pair(episodes))
+_DELETE_EPISODE = episodes.delete().where(
+    _of_pair(episodes), episodes.c.tail == sa.bindparam("p_t"),
+    episodes.c.start == sa.bindparam("p_f"))
+_SELECT_RUNS = sa.select(state_runs.c.tail, state_runs.c.first_date, state_runs.c.last_date,
+                         state_runs.c.state).where(_of_pair(state_runs))
+_DELETE_RUN = state_runs.delete().where(
+    _of_pair(state_runs), state_runs.c.tail == sa.bindparam("p_t"),
+    state_runs.c.first_date == sa.bindparam("p_f"))
+_DELETE_UNIVERSE_FROM = universe_daily.delete().where(
+    universe_daily.c.settings == sa.bindparam("p_s"),
+    universe_daily.c.date >= sa.bindparam("p_f"))
+_DELETE_RESUME = signal_resume.delete().where(_of_pair(signal_resume))
+
+
+def _timeline_statements() -> tuple[sa.Select, sa.Select]:
+    """A pair's metric rows in date order: all of them, and those from the ``p_n``-th
+    window end before ``p_d`` on (all when it has fewer)."""
+    from .rolling import METRIC_COLUMNS
+
+    # Dates come through as the driver gives them (ISO text on SQLite) and are converted
+    # per column: several times faster than converting value by value, which matters when
+    # every pair's timeline is read daily.
+    cols = [_raw(metrics.c[c]) if c in ("date", "start") else metrics.c[c]
+            for c in METRIC_COLUMNS]
+    whole = sa.select(*cols).where(_of_pair(metrics)).order_by(metrics.c.date)
+    first = (sa.select(metrics.c.date)
+             .where(_of_pair(metrics), metrics.c.date <= sa.bindparam("p_d"))
+             .order_by(metrics.c.date.desc()).limit(1).offset(sa.bindparam("p_n"))
+             .scalar_subquery())
+    newest = whole.where(metrics.c.date >= sa.func.coalesce(first, dt.date(1, 1, 1)))
+    return whole, newest
 
 
 def _now() -> dt.datetime:
@@ -271,6 +327,9 @@ def _raw(column: sa.ColumnElement) -> sa.ColumnElement:
     large reads that convert the whole column at once with ``pd.to_datetime``; SQLAlchemy's
     per-value date parsing dominates such reads otherwise."""
     return sa.type_coerce(column, sa.String)
+
+
+_SELECT_TIMELINE, _SELECT_TIMELINE_FROM = _timeline_statements()
 
 
 def _dates(index: Iterable) -> list[dt.date]:
@@ -386,11 +445,26 @@ class Store:
         return self._read_wide(returns, assets, conn)
 
     def read_prices(self, assets: Iterable[str] | None = None,
-                    conn: sa.Connection | None = None) -> pd.DataFrame:
-        return self._read_wide(prices, assets, conn)
+                    conn: sa.Connection | None = None, since: dt.date | None = None
+                    ) -> pd.DataFrame:
+        """Stored prices as a wide frame (dated ``since`` or later when given)."""
+        return self._read_wide(prices, assets, conn, since)
 
-    def _read_wide(self, table: sa.Table, assets, conn) -> pd.DataFrame:
+    @staticmethod
+    def last_price_date_before(conn: sa.Connection, assets: Iterable[str], day: dt.date
+                               ) -> dt.date | None:
+        """The earliest of the assets' last price dates before ``day`` (None when none of
+        them has a price before it): prices from there on give every return from ``day``
+        on."""
+        last = (sa.select(sa.func.max(prices.c.date).label("d"))
+                .where(prices.c.asset.in_(list(assets)), prices.c.date < day)
+                .group_by(prices.c.asset).subquery())
+        return conn.execute(sa.select(sa.func.min(last.c.d))).scalar_one()
+
+    def _read_wide(self, table: sa.Table, assets, conn, since=None) -> pd.DataFrame:
         stmt = sa.select(table.c.asset, _raw(table.c.date), table.c.value)
+        if since is not None:
+            stmt = stmt.where(table.c.date >= since)
         if assets is not None:
             assets = list(assets)
             stmt = stmt.where(table.c.asset.in_(assets))
@@ -445,11 +519,15 @@ class Store:
         return int(conn.execute(ingests.insert().values(**values)).inserted_primary_key[0])
 
     @staticmethod
-    def stored_values(conn: sa.Connection, table: sa.Table, assets: Iterable[str]
-                      ) -> pd.DataFrame:
-        """Stored (asset, date, value) rows of ``table`` for ``assets``."""
-        rows = conn.execute(sa.select(table.c.asset, _raw(table.c.date), table.c.value).where(
-            table.c.asset.in_(list(assets)))).all()
+    def stored_values(conn: sa.Connection, table: sa.Table, assets: Iterable[str],
+                      since: dt.date | None = None) -> pd.DataFrame:
+        """Stored (asset, date, value) rows of ``table`` for ``assets`` (dated ``since`` or
+        later when given)."""
+        stmt = sa.select(table.c.asset, _raw(table.c.date), table.c.value).where(
+            table.c.asset.in_(list(assets)))
+        if since is not None:
+            stmt = stmt.where(table.c.date >= since)
+        rows = conn.execute(stmt).all()
         tidy = _frame(rows, ["asset", "date", "value"])
         tidy["date"] = pd.to_datetime(tidy["date"])
         return tidy
@@ -496,6 +574,8 @@ class Store:
         conn.execute(metrics.delete().where(sa.and_(involves, metrics.c.date >= first)))
         conn.execute(pair_state.delete().where(sa.or_(pair_state.c.asset_a == asset,
                                                       pair_state.c.asset_b == asset)))
+        conn.execute(signal_resume.delete().where(sa.or_(signal_resume.c.asset_a == asset,
+                                                         signal_resume.c.asset_b == asset)))
         # The universe summary from that date on mixes the dropped metrics: the next update
         # recomputes it (under every settings key, as the metrics of each are dropped).
         conn.execute(universe_daily.delete().where(universe_daily.c.date >= first))
@@ -514,13 +594,13 @@ class Store:
             fits = c.execute(sa.select(marginal_fits.c.payload).where(sa.and_(
                 marginal_fits.c.settings == settings_key, marginal_fits.c.asset == asset))
                 .order_by(marginal_fits.c.seq)).scalars().all()
-            rows = c.execute(sa.select(residuals.c.date, residuals.c.value, residuals.c.sigma,
-                                       residuals.c.fit_seq).where(sa.and_(
+            rows = c.execute(sa.select(_raw(residuals.c.date), residuals.c.value,
+                                       residuals.c.sigma, residuals.c.fit_seq).where(sa.and_(
                 residuals.c.settings == settings_key, residuals.c.asset == asset))
                 .order_by(residuals.c.date)).all()
         return FilteredSeries.from_dict({
             "asset": asset, "settings": settings_key,
-            "dates": [r[0].isoformat() for r in rows], "residuals": [r[1] for r in rows],
+            "dates": [str(r[0]) for r in rows], "residuals": [r[1] for r in rows],
             "sigma": [r[2] for r in rows], "fit_index": [r[3] for r in rows],
             "fits": [json.loads(f) for f in fits],
             "input": {"n": state["n_input"], "start": state["input_start"].isoformat(),
@@ -625,16 +705,27 @@ class Store:
             conn.execute(metrics.delete().where(sa.and_(
                 metrics.c.settings == settings_key, metrics.c.asset_a == sa.bindparam("a"),
                 metrics.c.asset_b == sa.bindparam("b"))), replaced)
+            conn.execute(signal_resume.delete().where(sa.and_(
+                signal_resume.c.rolling == settings_key,
+                signal_resume.c.asset_a == sa.bindparam("a"),
+                signal_resume.c.asset_b == sa.bindparam("b"))), replaced)
             # Every date of the universe summary may have used the replaced rows.
             conn.execute(universe_daily.delete().where(universe_daily.c.settings.startswith(
                 f"{settings_key}|", autoescape=True)))
-        rows, states = [], []
+        live = [(a, b, frame) for a, b, frame, *_ in items if not frame.empty]
+        rows = []
+        if live:
+            # One frame for all pairs: converting it costs about as much as one pair's.
+            both = pd.concat([f for *_, f in live], ignore_index=True)
+            sizes = [len(f) for *_, f in live]
+            both["asset_a"] = np.repeat([a for a, _, _ in live], sizes)
+            both["asset_b"] = np.repeat([b for _, b, _ in live], sizes)
+            rows = _records(both, {"settings": settings_key})
+        states = []
         now = _now()
         for a, b, frame, warm, last_tau, _ in items:
             if frame.empty:
                 continue
-            rows.extend(_records(frame, {"settings": settings_key, "asset_a": a,
-                                         "asset_b": b}))
             states.append({
                 "settings": settings_key, "asset_a": a, "asset_b": b,
                 "last_date": pd.Timestamp(frame["date"].iloc[-1]).date(),
@@ -654,23 +745,36 @@ class Store:
             conn.execute(pair_state.insert(), states)
         return len(rows)
 
-    def read_timeline(self, settings_key: str, a: str, b: str) -> pd.DataFrame:
-        """A pair's stored metric rows, oldest first (columns of the rolling engine)."""
+    def read_timeline(self, settings_key: str, a: str, b: str, *,
+                      context_from: dt.date | None = None, context_rows: int = 0
+                      ) -> pd.DataFrame:
+        """A pair's stored metric rows, oldest first (columns of the rolling engine).
+
+        With ``context_from``, only the newest rows: those from ``context_rows`` window
+        ends up to and including ``context_from`` on (all rows when it has fewer before).
+        """
         from .rolling import METRIC_COLUMNS
 
-        # Dates come through as the driver gives them (ISO text on SQLite) and are converted
-        # per column, and the frame is built column-wise: several times faster than
-        # converting row by row, which matters when every pair's timeline is read daily.
-        cols = [_raw(metrics.c[c]) if c in ("date", "start") else metrics.c[c]
-                for c in METRIC_COLUMNS]
+        params = {"p_s": settings_key, "p_a": a, "p_b": b}
+        if context_from is None:
+            stmt = _SELECT_TIMELINE
+        else:
+            stmt = _SELECT_TIMELINE_FROM
+            params.update(p_d=context_from, p_n=max(context_rows - 1, 0))
         with self.engine.connect() as conn:
-            rows = conn.execute(sa.select(*cols).where(
-                sa.and_(metrics.c.settings == settings_key, metrics.c.asset_a == a,
-                        metrics.c.asset_b == b)).order_by(metrics.c.date)).all()
-        frame = _frame(rows, list(METRIC_COLUMNS))
-        for col in ("date", "start"):
-            frame[col] = pd.to_datetime(frame[col])
-        return frame
+            rows = conn.execute(stmt, params).fetchall()
+        data = list(zip(*rows, strict=True)) if rows else [()] * len(METRIC_COLUMNS)
+        out = {}
+        for name, values in zip(METRIC_COLUMNS, data, strict=True):
+            kind = metrics.c[name].type.python_type
+            if kind is dt.date:
+                out[name] = pd.to_datetime(pd.Index(values, dtype=object))
+            elif kind in (float, int, bool):
+                # Typed arrays up front (NULL reads as NaN): no per-value type inference.
+                out[name] = np.array(values, dtype=kind)
+            else:
+                out[name] = pd.array(values, dtype="str")
+        return pd.DataFrame(out, columns=list(METRIC_COLUMNS))
 
     def read_episodes(self, settings_key: str, pair: tuple[str, str] | None = None
                       ) -> pd.DataFrame:
@@ -685,13 +789,28 @@ class Store:
 
     @staticmethod
     def sync_episodes(conn: sa.Connection, settings_key: str, a: str, b: str,
-                      current: list[dict]) -> tuple[list[dict], list[dict]]:
+                      current: list[dict], since: dt.date | None = None
+                      ) -> tuple[list[dict], list[dict], list[dict]]:
         """Make the stored episodes of a pair equal ``current`` (dicts with the table's
-        columns but the key); returns (episodes that are new, episodes that just ended)."""
-        where = sa.and_(episodes.c.settings == settings_key, episodes.c.asset_a == a,
-                        episodes.c.asset_b == b)
-        stored = {(r["tail"], r["start"]): dict(r) for r in
-                  conn.execute(sa.select(episodes).where(where)).mappings()}
+        columns but the key).
+
+        With ``since``, ``current`` holds only the episodes in alert on that date or later
+        (a continued computation) and the stored ones that ended before it are kept.
+
+        Returns
+        -------
+        (new, ended, all) : tuple of lists of dict
+            The episodes that are new, those that just ended, and every episode of the pair
+            now stored, in start order.
+        """
+        key = {"p_s": settings_key, "p_a": a, "p_b": b}
+        stored_all = [dict(r) for r in conn.execute(_SELECT_EPISODES, key).mappings()]
+
+        def ended_before(e: dict) -> bool:
+            return since is not None and e["end"] is not None and e["end"] < since
+
+        kept = [e for e in stored_all if ended_before(e)]
+        stored = {(e["tail"], e["start"]): e for e in stored_all if not ended_before(e)}
         fresh = {(e["tail"], e["start"]): e for e in current}
         new = [e for k, e in fresh.items() if k not in stored]
         ended = [e for k, e in fresh.items()
@@ -699,20 +818,41 @@ class Store:
         changed = [e for k, e in fresh.items() if k in stored and any(
             stored[k][c] != e[c] for c in e)]
         gone = [k for k in stored if k not in fresh]
+        if gone or changed:
+            conn.execute(_DELETE_EPISODE, [{**key, "p_t": t, "p_f": f} for t, f in
+                                           gone + [(e["tail"], e["start"]) for e in changed]])
         now = _now()
-        for tail, start in gone + [(e["tail"], e["start"]) for e in changed]:
-            conn.execute(episodes.delete().where(sa.and_(where, episodes.c.tail == tail,
-                                                         episodes.c.start == start)))
         rows = [{**e, "settings": settings_key, "asset_a": a, "asset_b": b, "updated_at": now}
                 for e in new + changed]
         if rows:
             conn.execute(episodes.insert(), rows)
-        return new, ended
+        return new, ended, sorted([*kept, *fresh.values()],
+                                  key=lambda e: (e["start"], e["tail"]))
+
+    def read_resumes(self, settings_key: str) -> dict[tuple[str, str], dict]:
+        """Every pair's stored resume point under a signals key: ``{(a, b): payload}``
+        (the JSON form of :class:`monitor.signals.Resume`)."""
+        r = signal_resume.c
+        with self.engine.connect() as conn:
+            rows = conn.execute(sa.select(r.asset_a, r.asset_b, r.payload).where(
+                r.settings == settings_key)).all()
+        return {(a, b): json.loads(p) for a, b, p in rows}
+
+    @staticmethod
+    def save_resume(conn: sa.Connection, settings_key: str, rolling_key: str, a: str, b: str,
+                    through: dt.date, payload: dict | None) -> None:
+        """Replace a pair's resume point (None only drops it), in the caller's transaction
+        (the one that stores the states and episodes it continues)."""
+        conn.execute(_DELETE_RESUME, {"p_s": settings_key, "p_a": a, "p_b": b})
+        if payload is not None:
+            conn.execute(signal_resume.insert(), {
+                "settings": settings_key, "asset_a": a, "asset_b": b, "rolling": rolling_key,
+                "through": through, "payload": json.dumps(payload), "updated_at": _now()})
 
     # ------------------------------------------------------------------ states and universe
     @staticmethod
     def sync_state_runs(conn: sa.Connection, settings_key: str, a: str, b: str,
-                        runs: pd.DataFrame) -> dt.date | None:
+                        runs: pd.DataFrame, since: dt.date | None = None) -> dt.date | None:
         """Make the stored state runs of a pair equal ``runs``, writing only the runs that
         changed, and drop the universe-summary rows from the first date whose state changed.
 
@@ -727,6 +867,10 @@ class Store:
         runs : DataFrame
             Columns ``tail, first_date, last_date, state`` (one row per run of equal state;
             see :func:`monitor.pipeline.state_runs`).
+        since : date, optional
+            ``runs`` cover only the window ends after this one (a continued computation);
+            the stored states up to it are kept, a run through it joining the first new
+            run of its tail when their states agree.
 
         Returns
         -------
@@ -738,14 +882,13 @@ class Store:
         A run that only grew (same tail, first date and state, a later last date) changes
         nothing up to its old last date, so the daily update rewrites one run per tail.
         """
-        where = sa.and_(state_runs.c.settings == settings_key, state_runs.c.asset_a == a,
-                        state_runs.c.asset_b == b)
-        stored = {(r[0], r[1]): (r[2], r[3]) for r in conn.execute(sa.select(
-            state_runs.c.tail, state_runs.c.first_date, state_runs.c.last_date,
-            state_runs.c.state).where(where))}
+        key = {"p_s": settings_key, "p_a": a, "p_b": b}
+        stored = {(r[0], r[1]): (r[2], r[3]) for r in conn.execute(_SELECT_RUNS, key)}
         fresh = {(str(t), f): (last, str(st)) for t, f, last, st in zip(
             runs["tail"], _dates(runs["first_date"]), _dates(runs["last_date"]),
             runs["state"], strict=True)}
+        if since is not None:
+            fresh = _join_runs(stored, fresh, since)
         gone = [k for k in stored if k not in fresh]
         new = [k for k in fresh if k not in stored]
         changed = [k for k in fresh if k in stored and stored[k] != fresh[k]]
@@ -757,18 +900,14 @@ class Store:
         if not touched:
             return None
         if gone or changed:
-            conn.execute(state_runs.delete().where(sa.and_(
-                where, state_runs.c.tail == sa.bindparam("t"),
-                state_runs.c.first_date == sa.bindparam("f"))),
-                [{"t": t, "f": f} for t, f in gone + changed])
+            conn.execute(_DELETE_RUN, [{**key, "p_t": t, "p_f": f} for t, f in gone + changed])
         if new or changed:
             conn.execute(state_runs.insert(), [
                 {"settings": settings_key, "asset_a": a, "asset_b": b, "tail": t,
                  "first_date": f, "last_date": fresh[(t, f)][0], "state": fresh[(t, f)][1]}
                 for t, f in new + changed])
         first = min(touched)
-        conn.execute(universe_daily.delete().where(sa.and_(
-            universe_daily.c.settings == settings_key, universe_daily.c.date >= first)))
+        conn.execute(_DELETE_UNIVERSE_FROM, {"p_s": settings_key, "p_f": first})
         return first
 
     def read_state_runs(self, settings_key: str, pair: tuple[str, str] | None = None, *,
@@ -961,11 +1100,20 @@ class Store:
                 sa.select(metrics.c.asset_a, metrics.c.asset_b).where(
                     metrics.c.settings == settings_key).distinct())]
 
-    def read_residuals(self, settings_key: str, assets: Iterable[str] | None = None
-                       ) -> pd.DataFrame:
-        """Stored standardised residuals as a wide frame (date x asset)."""
+    def residual_assets(self, settings_key: str) -> list[str]:
+        """Assets with stored residuals under a marginal settings key, sorted."""
+        with self.engine.connect() as conn:
+            return sorted(conn.execute(sa.select(residuals.c.asset).where(
+                residuals.c.settings == settings_key).distinct()).scalars())
+
+    def read_residuals(self, settings_key: str, assets: Iterable[str] | None = None,
+                       since: dt.date | None = None) -> pd.DataFrame:
+        """Stored standardised residuals as a wide frame (date x asset), dated ``since`` or
+        later when given."""
         stmt = sa.select(residuals.c.asset, _raw(residuals.c.date), residuals.c.value).where(
             residuals.c.settings == settings_key)
+        if since is not None:
+            stmt = stmt.where(residuals.c.date >= since)
         if assets is not None:
             stmt = stmt.where(residuals.c.asset.in_(list(assets)))
         with self.engine.connect() as conn:
@@ -976,6 +1124,24 @@ class Store:
         wide.columns = [str(c) for c in wide.columns]
         wide.columns.name = None
         return wide
+
+
+def _join_runs(stored: dict, fresh: dict, since: dt.date) -> dict:
+    """Stored state runs up to ``since`` followed by the fresh runs after it (both keyed by
+    (tail, first date) with (last date, state) values), a run through ``since`` joined with
+    its tail's first fresh run when their states agree."""
+    out = {k: (min(last, since), state) for k, (last, state) in stored.items()
+           if k[1] <= since}
+    through = {k[0]: k for k, (last, _) in out.items() if last == since}
+    joined = set()
+    for (tail, first), (last, state) in sorted(fresh.items(), key=lambda kv: kv[0][1]):
+        old = through.get(tail)
+        if tail not in joined and old is not None and out[old][1] == state:
+            out[old] = (last, state)
+        else:
+            out[(tail, first)] = (last, state)
+        joined.add(tail)
+    return out
 
 
 def _materialises(conn: sa.Connection) -> bool:

@@ -451,3 +451,109 @@ def test_universe_summary_arithmetic():
     assert len(universe_summary({})) == 0
     with pytest.raises(InputError, match="missing column"):
         universe_summary([frames[("A", "B")].drop(columns=["alert"])])
+
+
+# -------------------------------------------------------------------- continued computation
+def _busy_timeline(n: int, seed: int) -> pd.DataFrame:
+    """A hand-made timeline whose regime changes every 30 days among calm, a CUSUM drift, a
+    jump of the empirical tail and a tail-dependent selected family, so that every cause
+    opens and closes episodes (invented data)."""
+    rng = np.random.default_rng(seed)
+    regime = np.repeat(rng.integers(0, 4, n // 30 + 1), 30)[:n]
+    drift = np.where(regime == 1, 0.25, -0.08)
+    emp = 0.3 + 0.01 * rng.standard_normal(n) + 0.2 * (regime == 2)
+    switched = regime == 3
+    return _timeline(
+        n, llr_lower=drift + 0.3 * rng.standard_normal(n),
+        llr_upper=drift[::-1] + 0.3 * rng.standard_normal(n),
+        tail_lower_emp=emp, tail_lower_emp_se=0.03,
+        aic=np.where(switched, -70.0, -50.0), tail_lower=np.where(switched, 0.3, 0.0),
+        tail_upper=np.where(switched[::-1], 0.2, 0.0))
+
+
+BUSY = SignalSettings(reference_windows=60, switch_windows=20, switch_entry=0.6,
+                      switch_exit=0.3)
+
+
+@pytest.mark.parametrize("seed", [0, 2, 3])
+def test_continued_computation_equals_the_whole_timeline(seed):
+    # The daily update continues each pair from a stored resume point instead of recomputing
+    # its whole timeline. Chains of continuations (1 to 40 new rows at a time, resume points
+    # 0 to 30 rows before the end, through a JSON round trip, with only context_rows rows
+    # before each resume date) must give the whole timeline's states, statistics and
+    # episodes: a property of the method (every statistic but the CUSUM looks a bounded
+    # number of rows back), checked here against the plain computation.
+    from monitor.signals import Resume, context_rows
+
+    rng = np.random.default_rng(seed)
+    tl = _busy_timeline(1200, seed)
+    full = pair_signals(tl, BUSY)
+    causes = {e.cause for e in full.episodes}
+    assert len(full.episodes) >= 10 and causes == {"divergence", "spike", "switch"}
+    assert {e.tail for e in full.episodes} == {"lower", "upper"}
+    context = context_rows(BUSY, WINDOW + 1)
+    dates = tl["date"].to_numpy()
+    k = 200
+    sig = pair_signals(tl.iloc[:k], BUSY)
+    continued_episodes = 0
+    while k < len(tl):
+        lag = min(int(rng.integers(0, 31)), len(sig.frame) - 1)
+        res = Resume.from_dict(sig.resume_at(lag).to_dict())
+        k2 = min(len(tl), k + int(rng.choice([1, 1, 2, 7, 40])))
+        row = int(np.flatnonzero(dates == res.date.to_datetime64())[0])
+        sig = pair_signals(tl.iloc[max(0, row - context + 1):k2], BUSY, resume=res)
+        want = full.frame.iloc[row + 1:k2].reset_index(drop=True)
+        for col in ("state_lower", "state_upper"):
+            assert sig.frame[col].tolist() == want[col].tolist()
+        for col in SIGNAL_COLUMNS:
+            if not col.startswith("state"):
+                np.testing.assert_allclose(sig.frame[col].to_numpy(float),
+                                           want[col].to_numpy(float), rtol=0, atol=1e-12)
+        # The episodes in alert on the resume date or later, as the prefix's plain computation
+        # has them (the peak of a continued one is compared over its whole extent).
+        prefix = pair_signals(tl.iloc[:k2], BUSY).episodes
+        expect = [e for e in prefix if e.end is None or e.end >= res.date]
+        assert [(e.tail, e.cause, e.onset, e.start, e.end, e.peak_date) for e in sig.episodes] \
+            == [(e.tail, e.cause, e.onset, e.start, e.end, e.peak_date) for e in expect]
+        np.testing.assert_allclose([e.peak_value for e in sig.episodes],
+                                   [e.peak_value for e in expect], rtol=0, atol=1e-12)
+        continued_episodes += len(res.episodes)
+        k = k2
+    assert continued_episodes > 0  # some resume points fell inside an episode
+
+
+def test_resume_needs_its_date_and_enough_rows():
+    from monitor.signals import Resume
+
+    tl = _busy_timeline(300, 0)
+    res = pair_signals(tl.iloc[:200], BUSY).resume_at(0)
+    assert isinstance(res, Resume) and res.date == tl["date"].iloc[199]
+    with pytest.raises(InputError, match="resume date .* is not one of its window ends"):
+        pair_signals(tl.iloc[210:], BUSY, resume=res)
+    with pytest.raises(InputError, match="too few rows up to the resume date"):
+        pair_signals(tl.iloc[197:], BUSY, resume=res)
+    assert pair_signals(tl.iloc[:3], BUSY).resume_at(0) is None
+    with pytest.raises(ValueError, match="lag must be >= 0"):
+        pair_signals(tl, BUSY).resume_at(-1)
+
+
+def test_cusum_continues_from_a_start_level():
+    # Page (1954) recursion continued: S from a level equals the tail of the series whose
+    # earlier increments led to that level.
+    x = np.random.default_rng(4).normal(0.05, 1.0, 400)
+    whole = cusum(x, 0.1, cap=5.0)
+    np.testing.assert_allclose(cusum(x[150:], 0.1, cap=5.0, start=whole[149]), whole[150:],
+                               rtol=0, atol=1e-12)
+    with pytest.raises(ValueError, match="start must be in"):
+        cusum(x, 0.1, cap=5.0, start=6.0)
+
+
+def test_hysteresis_continues_an_open_spell():
+    a = np.array([1, 1, 1, 0, 0, 0, 1, 1, 1, 1], bool)
+    q = np.array([0, 0, 0, 1, 1, 0, 0, 0, 0, 0], bool)
+    assert hysteresis(a, q, 3, 2) == [(2, 4), (8, None)]
+    # Continuing from day 3 with the spell open: it closes on day 4, then reopens.
+    assert hysteresis(a, q, 3, 2, start=3, open_at_start=True) == [(3, 4), (8, None)]
+    assert hysteresis(a, q, 3, 2, start=5, open_at_start=False) == [(8, None)]
+    with pytest.raises(ValueError, match="start must be in"):
+        hysteresis(a, q, 3, 2, start=11)
