@@ -425,7 +425,7 @@ def state_runs(frame: pd.DataFrame) -> pd.DataFrame:
     them at any dates.
     """
     dates = pd.to_datetime(frame["date"]).to_numpy()
-    parts = []
+    cols: dict[str, list] = {"tail": [], "first_date": [], "last_date": [], "state": []}
     for tail in TAILS:
         state = frame[f"state_{tail}"].to_numpy(dtype=object)
         if state.size == 0:
@@ -433,11 +433,13 @@ def state_runs(frame: pd.DataFrame) -> pd.DataFrame:
         change = np.flatnonzero(state[1:] != state[:-1]) + 1
         first = np.concatenate([[0], change])
         last = np.concatenate([change - 1, [state.size - 1]])
-        parts.append(pd.DataFrame({"tail": tail, "first_date": dates[first],
-                                   "last_date": dates[last], "state": state[first]}))
-    if not parts:
-        return pd.DataFrame(columns=["tail", "first_date", "last_date", "state"])
-    return pd.concat(parts, ignore_index=True)
+        cols["tail"] += [tail] * first.size
+        cols["first_date"].append(dates[first])
+        cols["last_date"].append(dates[last])
+        cols["state"] += list(state[first])
+    for c in ("first_date", "last_date"):
+        cols[c] = np.concatenate(cols[c]) if cols[c] else np.array([], "datetime64[ns]")
+    return pd.DataFrame(cols, columns=["tail", "first_date", "last_date", "state"])
 
 
 def states_on(runs: pd.DataFrame, rows: pd.DataFrame) -> pd.DataFrame:
@@ -491,7 +493,8 @@ class _PairSignalsOut:
     frame: pd.DataFrame  # the signal frame's recent rows (what the alert rules look at)
     since: dt.date | None  # the resume date a continued computation started from
     through: dt.date  # the last window end covered
-    resume: dict | None  # where the next update continues from
+    resume: dict | None  # where the next update continues from (None: nowhere)
+    resume_changed: bool  # whether that differs from the stored one
 
 
 def _alert_rows_needed(cfg: Config) -> int:
@@ -538,11 +541,12 @@ def _pair_signals_job(store: Store, job: _SignalJob) -> _PairSignalsOut | None:
     tails = tuple(t for t in TAILS if last[f"alert_{t}"])
     # With no new rows the old point still holds (its rows are all still in the frame).
     nxt = sig.resume_at(job.keep) or sig.resumed_from
+    payload = None if nxt is None else nxt.to_dict()
     since = None if sig.resumed_from is None else sig.resumed_from.date.date()
     return _PairSignalsOut(job.a, job.b, [_episode_row(e) for e in sig.episodes],
                            state_runs(sig.frame), tails, sig.frame.tail(job.keep), since,
-                           pd.Timestamp(last["date"]).date(),
-                           None if nxt is None else nxt.to_dict())
+                           pd.Timestamp(last["date"]).date(), payload,
+                           payload != job.resume)
 
 
 def _signals_task(job: _SignalJob) -> _PairSignalsOut | None:
@@ -639,7 +643,8 @@ def _store_signals(store: Store, cfg: Config, r_key: str, key: str,
             # The alert queue changes with the state it reports, in the same transaction.
             queued += alerts.queue(conn, outbox, key, alerts.pair_events(
                 cfg, key, o.a, o.b, o.frame, new, ended, every))
-            store.save_resume(conn, key, r_key, o.a, o.b, o.through, o.resume)
+            if o.resume_changed:
+                store.save_resume(conn, key, r_key, o.a, o.b, o.through, o.resume)
             new_n += len(new)
             ended_n += len(ended)
     return new_n, ended_n, queued

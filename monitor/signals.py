@@ -638,11 +638,15 @@ def _check_timeline(timeline: pd.DataFrame) -> pd.DataFrame:
     if missing:
         raise InputError(f"timeline: missing column(s) {', '.join(missing)}")
     frame = timeline.reset_index(drop=True)
-    dates = pd.to_datetime(frame["date"])
-    if len(frame) and not (dates.diff().dropna() > pd.Timedelta(0)).all():
-        bad = int(np.flatnonzero(~(dates.diff() > pd.Timedelta(0)).to_numpy()[1:])[0] + 1)
+    for col in ("date", "start"):
+        if frame[col].dtype.kind != "M":
+            frame[col] = pd.to_datetime(frame[col])
+    dates = frame["date"].to_numpy()
+    down = np.flatnonzero(dates[1:] <= dates[:-1])
+    if down.size:
+        bad = int(down[0] + 1)
         raise InputError(f"timeline: dates must be strictly increasing (row {bad}, "
-                         f"{dates.iloc[bad].date()})")
+                         f"{frame['date'].iloc[bad].date()})")
     return frame
 
 
@@ -715,7 +719,7 @@ def _tail_episodes(frame: pd.DataFrame, tail: str, stats: dict[str, NDArray[np.f
     evidence = np.clip(strength.max(axis=0), 0.0, None)
     n = len(frame)
     alert = np.zeros(n, dtype=bool)
-    dates = pd.to_datetime(frame["date"]).reset_index(drop=True)
+    dates = frame["date"]
 
     def at(row: int) -> dict[str, object]:
         r = frame.iloc[row]
@@ -812,8 +816,8 @@ def pair_signals(timeline: pd.DataFrame, settings: SignalSettings | None = None,
     if not isinstance(s, SignalSettings):
         raise TypeError(f"settings must be SignalSettings, got {type(s).__name__}")
     frame = _check_timeline(timeline)
-    dates = pd.to_datetime(frame["date"]).to_numpy()
-    starts = pd.to_datetime(frame["start"]).to_numpy()
+    dates = frame["date"].to_numpy()
+    starts = frame["start"].to_numpy()
     # Reference windows end before the current window's first day: no shared observation.
     reference_end = np.searchsorted(dates, starts, side="left")
     row, first_row = -1, 0
