@@ -2,9 +2,11 @@
 universe summary.
 
 Every function here is a pure function of stored timelines (the frames of
-:func:`monitor.rolling.pair_metrics`), so the daily update can recompute the signals of every
-pair from its whole timeline after each run. The work is vectorised over the rows of a
-timeline; Python loops run only over alert episodes.
+:func:`monitor.rolling.pair_metrics`). The work is vectorised over the rows of a timeline;
+Python loops run only over alert episodes. Every statistic but the CUSUM looks a bounded
+number of window ends back, so a computation can continue from a :class:`Resume` point
+(the CUSUM levels of a few window ends and the episodes open there) on the newest rows of
+a timeline only, with the whole timeline's results: that is what the daily update does.
 
 Method
 ------
