@@ -356,3 +356,49 @@ def test_daily_signals_continue_to_the_states_and_episodes_of_a_fresh_run(tmp_pa
     # revision test above).
     pd.testing.assert_frame_equal(eps, eps_fresh, check_exact=False, rtol=0, atol=1e-4)
     pd.testing.assert_frame_equal(uni, uni_fresh, check_exact=False, rtol=0, atol=1e-4)
+
+
+def test_daily_update_reads_recent_residuals_and_gets_the_same_tasks(tmp_path):
+    # The daily path reads only recent residuals; its tasks (days, values and window-end
+    # positions the workers get) must equal those from the whole history, and a read too
+    # short for some pair's window must fall back to the whole history.
+    from monitor.ingest import ingest_sources, read_file_source
+    from monitor.pipeline import (
+        _pair_tasks,
+        _rolling_tasks,
+        _universe_pairs,
+        marginal_settings,
+        rolling_settings,
+    )
+
+    prices = _prices(3, 420, seed=5)
+    cfg = _setup(tmp_path, "t", prices.iloc[:415])
+    run_update(cfg, progress=False)
+    prices.to_csv(tmp_path / "more.csv", float_format="%.12g")
+    with Store(cfg.store.url) as store:
+        ingest_sources(store, [read_file_source(tmp_path / "more.csv", "prices")])
+    from monitor.pipeline import update_marginals
+
+    with Store(cfg.store.url) as store:
+        update_marginals(store, cfg, progress=False)
+        m_key, settings = marginal_settings(cfg).key, rolling_settings(cfg)
+        key = rolling_key(cfg)
+        reads, read = [], store.read_residuals
+        store.read_residuals = lambda *a, **kw: (reads.append(kw.get("since")), read(*a, **kw))[1]
+        pairs, daily = _rolling_tasks(store, m_key, key, settings, cfg)
+        store.read_residuals = read
+        z = store.read_residuals(m_key)
+        states = store.load_pair_states(key)
+        whole = _pair_tasks(store, key, settings, z, pairs, states, recent_only=False)
+        short = _pair_tasks(store, key, settings, z.iloc[-settings.window:], pairs, states,
+                            recent_only=True)
+    assert pairs == _universe_pairs(list(prices.columns), cfg) and short is None
+    # One read, of about three window lengths of calendar days before the oldest stored end.
+    assert len(reads) == 1 and reads[0] is not None and reads[0] > z.index[0].date()
+    assert [len(t.positions) for t in daily] == [5, 5, 5]
+    for got, want in zip(daily, whole, strict=True):
+        assert (got.a, got.b, got.replace_all) == (want.a, want.b, want.replace_all)
+        np.testing.assert_array_equal(got.positions, want.positions)
+        np.testing.assert_array_equal(got.dates, want.dates)
+        np.testing.assert_array_equal(got.za, want.za)
+        np.testing.assert_array_equal(got.zb, want.zb)
