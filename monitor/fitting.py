@@ -33,7 +33,7 @@ _FD_GRADIENT_STEP = 1e-6
 _BLOCK = 1 << 15
 #: Newton stops after a step when it estimates less than this gain left (see _newton);
 #: only local steps (predicted gain below _SETTLE_STEP) qualify.
-_SETTLE_GAIN = 2.5e-6
+_SETTLE_GAIN = 2.5e-5
 _SETTLE_STEP = 1e-2
 
 

@@ -138,8 +138,10 @@ def test_warm_starts_and_chain_give_the_same_estimates():
         chained = fit_batched(fam, u, v, chain=16)
         warm = fit_batched(fam, u, v, start=cold.params)
         assert cold.converged.all() and chained.converged.all() and warm.converged.all()
-        np.testing.assert_allclose(chained.loglik, cold.loglik, atol=1e-6)
-        np.testing.assert_allclose(warm.loglik, cold.loglik, atol=1e-8)
+        # Newton stops once it estimates less than fitting._SETTLE_GAIN (2.5e-5) of gain
+        # left, so fits from different starts agree to about twice that.
+        np.testing.assert_allclose(chained.loglik, cold.loglik, atol=5e-5)
+        np.testing.assert_allclose(warm.loglik, cold.loglik, atol=5e-5)
         assert warm.iterations.mean() < cold.iterations.mean()
 
 

@@ -64,7 +64,7 @@ def test_window_metrics_equal_the_one_window_path_and_references():
         assert row["tail_upper_emp"] == float(td.upper)
         one = select_copula(u, v)
         assert (row["family"], row["rotation"]) == (one.selected.family, one.selected.rotation)
-        # Rolling fits stop once Newton estimates < 2.5e-6 of gain left (fitting._SETTLE_GAIN).
+        # Rolling fits stop once Newton estimates < 2.5e-5 of gain left (fitting._SETTLE_GAIN).
         assert row["aic"] == pytest.approx(one.selected.aic, abs=1e-5)
         assert row["loglik_gauss"] == pytest.approx(one.fit_of("gaussian").loglik, abs=5e-6)
         # Gaussian copula tail concordance at the window's tau (reference sheet, section 4:
