@@ -362,16 +362,16 @@ class PairSignals:
         m = carry_rows(self.settings)
         row = len(self.frame) - 1 - lag
         # The levels before the frame's first row: those a continued computation carried.
-        before = () if self.resumed_from is None else self.resumed_from.cusum[TAILS[0]]
-        if row < 0 or row - m + 1 < -len(before):
+        before = 0 if self.resumed_from is None else m
+        if row < 0 or row - m + 1 < -before:
             return None
         date = pd.Timestamp(self.frame["date"].iloc[row])
         levels = {}
         for t in TAILS:
-            carried = () if self.resumed_from is None else self.resumed_from.cusum[t]
-            seq = np.concatenate([carried, self.frame[f"sequential_{t}"].to_numpy(dtype=float)])
-            at = row + len(carried)
-            levels[t] = tuple(float(x) for x in seq[at - m + 1:at + 1])
+            seq = self.frame[f"sequential_{t}"].to_numpy(dtype=float)
+            if before:
+                seq = np.concatenate([self.resumed_from.cusum[t], seq])
+            levels[t] = tuple(float(x) for x in seq[row + before - m + 1:row + before + 1])
         open_ = tuple(e for e in self.episodes
                       if e.start <= date and (e.end is None or e.end >= date))
         return Resume(date, MappingProxyType(levels), open_)

@@ -256,3 +256,81 @@ def test_a_refused_store_keeps_no_connection_open(pg_database, postgres_url):
     rows = execute(postgres_url, "SELECT count(*) FROM pg_stat_activity WHERE datname = :n",
                    n=name)
     assert rows == [(0,)]
+
+
+# ----------------------------------------------------------------------------- signals state
+def _metric_frame(days: pd.DatetimeIndex, seed: int) -> pd.DataFrame:
+    """Invented metric rows of one pair (every column of the rolling engine)."""
+    from monitor.rolling import METRIC_COLUMNS
+
+    rng = np.random.default_rng(seed)
+    n = len(days)
+    frame = pd.DataFrame({c: rng.uniform(0.05, 0.5, n) for c in METRIC_COLUMNS})
+    frame["date"], frame["start"] = days, days - pd.Timedelta(days=300)
+    frame["n"], frame["rotation"] = 250, 0
+    frame["family"], frame["converged"] = "clayton", True
+    frame.loc[::3, "param2"] = np.nan
+    return frame
+
+
+def test_metrics_timelines_resume_points_and_continued_state_runs(store_url):
+    days = pd.bdate_range("2022-01-03", periods=40)
+    a, b = _metric_frame(days, 1), _metric_frame(days, 2)
+    with Store(store_url) as store:
+        with store.transaction() as conn:
+            assert store.save_metrics(conn, "r", [("ALDER", "BIRCH", a, {}, 0.3, False),
+                                                  ("ALDER", "CEDAR", b, {}, 0.2, False)]) == 80
+        whole = store.read_timeline("r", "ALDER", "BIRCH")
+        newest = store.read_timeline("r", "ALDER", "BIRCH", context_from=days[30].date(),
+                                     context_rows=5)
+        everything = store.read_timeline("r", "ALDER", "BIRCH", context_from=days[3].date(),
+                                         context_rows=9)
+        # Resume points: read back by pair; dropped with the pair's metrics when they are
+        # replaced, and with every pair of an asset on a revision.
+        with store.transaction() as conn:
+            for pair in (("ALDER", "BIRCH"), ("ALDER", "CEDAR")):
+                store.save_resume(conn, "r|s", "r", *pair, days[-1].date(), {"at": pair[1]})
+        assert store.read_resumes("r|s") == {("ALDER", "BIRCH"): {"at": "BIRCH"},
+                                             ("ALDER", "CEDAR"): {"at": "CEDAR"}}
+        with store.transaction() as conn:
+            store.save_metrics(conn, "r", [("ALDER", "BIRCH", a, {}, 0.3, True)])
+        assert set(store.read_resumes("r|s")) == {("ALDER", "CEDAR")}
+        with store.transaction() as conn:
+            store.invalidate_from(conn, "CEDAR", days[-1].date())
+        assert store.read_resumes("r|s") == {}
+        # State runs continued after a date: a run through it joins the first new one of
+        # its tail when the states agree; a new state starts a run of its own.
+        d = [x.date() for x in days]
+
+        def runs(rows):
+            return pd.DataFrame(rows, columns=["tail", "first_date", "last_date", "state"])
+
+        with store.transaction() as conn:
+            store.sync_state_runs(conn, "r|s", "ALDER", "BIRCH", runs([
+                ("lower", d[0], d[9], "calm"), ("upper", d[0], d[4], "calm"),
+                ("upper", d[5], d[9], "watch")]))
+            store.sync_state_runs(conn, "r|s", "ALDER", "BIRCH", runs([
+                ("lower", d[10], d[11], "calm"), ("upper", d[10], d[10], "calm"),
+                ("upper", d[11], d[11], "watch")]), since=d[9])
+            # Episodes continued after a date keep the ones that ended before it.
+            old = {"tail": "lower", "start": d[1], "onset": d[0], "end": d[2],
+                   "cause": "spike", "statistic": "spike", "peak_date": d[1],
+                   "peak_value": 1.5, "peak_tail_emp": 0.4, "peak_tail_model": 0.3,
+                   "peak_gauss_tail": 0.2, "peak_kendall_tau": 0.35}
+            new_, ended, every = store.sync_episodes(conn, "r|s", "ALDER", "BIRCH", [old])
+            assert len(new_) == 1 and not ended and every == [old]
+            later = {**old, "start": d[8], "onset": d[7], "end": None, "peak_date": d[8]}
+            new_, ended, every = store.sync_episodes(conn, "r|s", "ALDER", "BIRCH", [later],
+                                                     since=d[5])
+            assert new_ == [later] and [e["start"] for e in every] == [d[1], d[8]]
+        stored = store.read_state_runs("r|s", ("ALDER", "BIRCH"))
+    pd.testing.assert_frame_equal(whole.drop(columns=["date", "start"]),
+                                  a.drop(columns=["date", "start"]), check_dtype=False)
+    assert (whole["date"] == days).all() and np.isnan(whole["param2"].iloc[0])
+    assert newest["date"].tolist() == list(days[26:])
+    assert everything["date"].tolist() == list(days)
+    assert [(r.tail, r.first_date.date(), r.last_date.date(), r.state)
+            for r in stored.itertuples()] == [
+        ("lower", d[0], d[11], "calm"), ("upper", d[0], d[4], "calm"),
+        ("upper", d[5], d[9], "watch"), ("upper", d[10], d[10], "calm"),
+        ("upper", d[11], d[11], "watch")]
