@@ -22,7 +22,7 @@ from scipy import optimize
 
 from .arrays import read_only
 from .copulas import CopulaFamily, family
-from .copulas.base import UNIT_EPS
+from .copulas.base import UNIT_EPS, rank_grid
 from .empirical import kendall_tau
 
 #: Finite-difference steps in transformed coordinates: central differences for gradient and
@@ -35,6 +35,8 @@ _BLOCK = 1 << 15
 #: only local steps (predicted gain below _SETTLE_STEP) qualify.
 _SETTLE_GAIN = 2.5e-5
 _SETTLE_STEP = 1e-2
+#: Newton iterations at most per window (default).
+_MAX_ITER = 100
 
 
 @dataclass(frozen=True, slots=True)
@@ -198,7 +200,7 @@ def _validate_batch(u: ArrayLike, v: ArrayLike) -> tuple[NDArray, NDArray]:
 def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
                 start: ArrayLike | None = None, tau: ArrayLike | None = None,
                 rotation_by_sign: bool = False, chain: int = 0,
-                max_iter: int = 100) -> BatchFit:
+                max_iter: int = _MAX_ITER) -> BatchFit:
     """Fit one family by maximum pseudo-likelihood on every window of a batch.
 
     Parameters
@@ -245,6 +247,14 @@ def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
     """
     fam = family(fam) if isinstance(fam, str) else fam
     u, v = _validate_batch(u, v)
+    return _fit_valid(fam, u, v, start, tau, rotation_by_sign, chain, max_iter, None)
+
+
+def _fit_valid(fam: CopulaFamily, u: NDArray, v: NDArray, start: ArrayLike | None,
+               tau: ArrayLike | None, rotation_by_sign: bool, chain: int, max_iter: int,
+               grid: tuple | None) -> BatchFit:
+    """:func:`fit_batched` on validated data; ``grid`` optionally holds the rank-grid ranks
+    of u and v (see :meth:`CopulaFamily.prepare`)."""
     windows, n = u.shape
     if tau is None and (start is None or rotation_by_sign):
         tau = kendall_tau(u, v)
@@ -257,6 +267,8 @@ def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
         flip = tau < 0
         rotations[flip] += 90
         u = np.where(flip[:, None], 1.0 - u, u)
+        if grid is not None and grid[0] is not None:
+            grid = (np.where(flip[:, None], n - 1 - grid[0], grid[0]), grid[1])
     k = fam.n_params
     if k == 0:
         ll = np.zeros(windows)
@@ -267,29 +279,45 @@ def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
     start = None if start is None else np.broadcast_to(np.asarray(start, dtype=float),
                                                        (windows, k))
     missing = np.ones(windows, bool) if start is None else np.isnan(start).any(axis=1)
+    missing &= _first_rows(windows, chain)  # the only rows fitted from ``start``
     if missing.any():
         if tau is None:  # only without rotation_by_sign, so u is not flipped
             tau = kendall_tau(u, v)
         t = np.where(flip, -tau, tau)[missing]
         start = np.array(start if start is not None else np.empty((windows, k)))
         start[missing] = np.column_stack(fam.start_params(t))
-    data = fam.prepare(u, v)
+    data = fam.prepare(u, v, grid)
     params, ll, conv, iters = _solve(fam, data, start, chain, max_iter, n)
     return BatchFit(fam.name, fam.param_names, read_only(rotations), read_only(params),
                     read_only(ll), read_only(conv), read_only(iters), n)
 
 
+def _chain_step(windows: int, chain: int) -> int:
+    """Spacing of the coarsest lattice of rows fitted along a chain (1: no chain)."""
+    if not (chain > 1 and windows > chain):
+        return 1
+    step = chain
+    while step * chain * 4 <= windows:
+        step *= chain
+    return step
+
+
+def _first_rows(windows: int, chain: int) -> NDArray[np.bool_]:
+    """The rows fitted from the given starts (the coarsest lattice of a chain)."""
+    rows = np.zeros(windows, dtype=bool)
+    rows[::_chain_step(windows, chain)] = True
+    return rows
+
+
 def _solve(fam, data, start, chain, max_iter, n):
     windows, k = start.shape
-    if not (chain > 1 and windows > chain):
+    step = _chain_step(windows, chain)
+    if step == 1:
         return _newton(fam, data, start, max_iter, n)[:4]
     # Coarse to fine: the coarsest lattice of rows from the given starts, then each finer
     # lattice (and finally every row) from the nearest row already fitted -- its estimate
     # *and* its Hessian (overlapping windows have nearly the same curvature), so most rows
     # need only gradient evaluations and one trial point.
-    step = chain
-    while step * chain * 4 <= windows:
-        step *= chain
     params = np.empty((windows, k))
     ll = np.empty(windows)
     conv = np.empty(windows, dtype=bool)
@@ -623,9 +651,10 @@ def select_batched(u: ArrayLike, v: ArrayLike, families: tuple[str, ...] | list[
     u2, v2 = _validate_batch(u, v)
     tau = kendall_tau(u2, v2) if tau is None else np.asarray(tau, dtype=float)
     start = start or {}
+    grid = rank_grid(u2), rank_grid(v2)  # shared by every slot
     fits = tuple(
-        fit_batched(fam, u2, v2, tau=tau, rotation_by_sign=True,
-                    start=start.get((fam.name, fam.rotation)), chain=chain)
+        _fit_valid(fam, u2, v2, start.get((fam.name, fam.rotation)), tau, True, chain,
+                   _MAX_ITER, grid)
         for fam in candidate_slots(names)
     )
     scores = np.stack([getattr(f, criterion) for f in fits])

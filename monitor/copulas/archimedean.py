@@ -67,7 +67,7 @@ class Clayton(CopulaFamily):
         (theta,) = p
         return theta / (theta + 2.0)
 
-    def prepare(self, u, v):
+    def prepare(self, u, v, grid=None):
         ru, rv = self._rotate_uv(u, v)
         lu, lv = np.log(ru), np.log(rv)
         return lu, lv, np.sum(lu + lv, axis=-1)
@@ -176,7 +176,7 @@ class Gumbel(CopulaFamily):
         return (np.exp(lx) + np.exp(ly) + (theta - 1.0) * (lx + ly)
                 + self._log_density_core(lx, ly, theta))
 
-    def prepare(self, u, v):
+    def prepare(self, u, v, grid=None):
         # The double logs and the sums that do not involve theta are computed once per fit.
         ru, rv = self._rotate_uv(u, v)
         lx, ly = np.log(-np.log(ru)), np.log(-np.log(rv))
@@ -372,7 +372,7 @@ class Frank(CopulaFamily):
         near = 0.5 * theta * (1.0 - 2.0 * u) * (1.0 - 2.0 * v)
         return np.where(small, near, out)
 
-    def prepare(self, u, v):
+    def prepare(self, u, v, grid=None):
         return u, v, 1.0 - v
 
     def loglik_prepared(self, data, p):
@@ -529,7 +529,7 @@ class Joe(CopulaFamily):
         return ((1.0 / theta - 2.0) * log_s + (theta - 1.0) * (lub + lvb)
                 + np.log(theta - 1.0 + np.exp(log_s)))
 
-    def prepare(self, u, v):
+    def prepare(self, u, v, grid=None):
         ru, rv = self._rotate_uv(u, v)
         lub, lvb = np.log1p(-ru), np.log1p(-rv)
         return lub, lvb, np.sum(lub + lvb, axis=-1)

@@ -339,15 +339,31 @@ class CopulaFamily(ABC):
         return self._logpdf(ru, rv, p)
 
     # ------------------------------------------------------------------ estimator hooks
-    def prepare(self, u: NDArray, v: NDArray) -> tuple:
+    def prepare(self, u: NDArray, v: NDArray, grid: tuple | None = None) -> tuple:
         """Per-window data the likelihood needs, computed once before an optimisation.
 
-        ``u`` and ``v`` have shape ``(windows, n)`` and are already valid pseudo-observations.
-        The default keeps the rotated data; families override it to cache transforms (logs,
-        normal scores) or sufficient statistics. The result must be accepted by
-        :meth:`take` and :meth:`loglik_prepared`.
+        ``u`` and ``v`` have shape ``(windows, n)`` and are already valid pseudo-observations;
+        ``grid`` optionally holds their :func:`rank_grid` ranks (a pair, either None when not
+        on the grid), which a caller fitting several families computes once. The default
+        keeps the rotated data; families override it to cache transforms (logs, normal
+        scores) or sufficient statistics. The result must be accepted by :meth:`take` and
+        :meth:`loglik_prepared`.
         """
         return self._rotate_uv(u, v)
+
+    def _grid_ranks(self, u: NDArray, v: NDArray, grid: tuple | None
+                    ) -> tuple[NDArray[np.intp], NDArray[np.intp]] | None:
+        """:func:`rank_grid` ranks of the rotated (u, v) (as :meth:`_rotate_uv` rotates them),
+        from ``grid`` or computed; None unless both are on the grid."""
+        ru, rv = grid if grid is not None else (rank_grid(u), rank_grid(v))
+        if ru is None or rv is None:
+            return None
+        top = u.shape[-1] - 1  # the rank of 1 - u is n - 1 minus the rank of u
+        if self.rotation in (90, 180):
+            ru = top - ru
+        if self.rotation in (180, 270):
+            rv = top - rv
+        return ru, rv
 
     def take(self, data: tuple, index: NDArray | slice) -> tuple:
         """The prepared data of the windows ``index`` (a subset for the active windows)."""
@@ -456,11 +472,13 @@ def rank_grid(u: NDArray) -> NDArray[np.intp] | None:
     n = u.shape[-1]
     scaled = u * (n + 1)
     ranks = np.rint(scaled)
-    if not np.all(np.abs(scaled - ranks) < 1e-6):
+    scaled -= ranks
+    if not np.abs(scaled).max(initial=0.0) < 1e-6:
         return None
-    ranks = ranks.astype(np.intp) - 1
-    if ranks.min() < 0 or ranks.max() >= n:
+    ranks = ranks.astype(np.intp)
+    ranks -= 1
+    if ranks.size and (ranks.min() < 0 or ranks.max() >= n):
         return None
-    seen = np.zeros(ranks.shape, dtype=bool)
-    np.put_along_axis(seen, ranks, True, axis=-1)
+    seen = np.zeros(ranks.size, dtype=bool)
+    seen[(ranks.reshape(-1, n) + np.arange(0, ranks.size, n)[:, None]).ravel()] = True
     return ranks if seen.all() else None
