@@ -14,7 +14,7 @@ from fractions import Fraction
 import numpy as np
 from scipy import special
 
-from .base import QUAD_NODES, QUAD_WEIGHTS, UNIT_EPS, CopulaFamily
+from .base import QUAD_NODES, QUAD_WEIGHTS, UNIT_EPS, CopulaFamily, GridData, gather
 from .logmath import log1mexp, log_expm1, logaddexp
 
 _ROTATIONS = (0, 90, 180, 270)
@@ -68,13 +68,30 @@ class Clayton(CopulaFamily):
         return theta / (theta + 2.0)
 
     def prepare(self, u, v, grid=None):
+        data = self._grid_data(u, v, grid, lambda points: np.log(points))
+        if data is not None:
+            return data
         ru, rv = self._rotate_uv(u, v)
         lu, lv = np.log(ru), np.log(rv)
         return lu, lv, np.sum(lu + lv, axis=-1)
 
     def loglik_prepared(self, data, p):
-        lu, lv, sum_log = data
         (theta,) = p
+        if isinstance(data, GridData):
+            # On the rank grid s = 1 + x_u + x_v with x = u^-theta - 1 (expm1: relative
+            # accuracy near u = 1), a sum of positive numbers, in plain space; past its range
+            # (x overflows), the log-space form below on the gathered logs.
+            lg = data.table
+            with np.errstate(over="ignore"):
+                x = np.expm1(-theta[:, None] * lg)
+            log_s = np.log1p(gather(x, data.ru) + gather(x, data.rv))
+            out = (lg.size * np.log1p(theta) - (theta + 1.0) * 2.0 * lg.sum()
+                   - (1.0 / theta + 2.0) * np.sum(log_s, axis=-1))
+            if np.all(np.isfinite(out)):
+                return out
+            lu, lv = lg[data.ru], lg[data.rv]
+            data = lu, lv, np.sum(lu + lv, axis=-1)
+        lu, lv, sum_log = data
         log_s = _log_sum_minus_one(-theta[:, None] * lu, -theta[:, None] * lv)
         n = lu.shape[-1]
         return n * np.log1p(theta) - (theta + 1.0) * sum_log - (1.0 / theta + 2.0) * np.sum(
@@ -178,14 +195,33 @@ class Gumbel(CopulaFamily):
 
     def prepare(self, u, v, grid=None):
         # The double logs and the sums that do not involve theta are computed once per fit.
+        data = self._grid_data(u, v, grid, lambda points: np.log(-np.log(points)))
+        if data is not None:
+            return data
         ru, rv = self._rotate_uv(u, v)
         lx, ly = np.log(-np.log(ru)), np.log(-np.log(rv))
         return lx, ly, np.sum(np.exp(lx) + np.exp(ly), axis=-1), np.sum(lx + ly, axis=-1)
 
     def loglik_prepared(self, data, p):
-        lx, ly, sum_xy, sum_log = data
         (theta,) = p
-        core = self._log_density_core(lx, ly, theta[:, None])
+        t = theta[:, None]
+        if isinstance(data, GridData):
+            # On the rank grid A = x^theta + y^theta in plain space (a sum of positive
+            # numbers); past its range, the log-space core on the gathered logs.
+            lx = data.table
+            with np.errstate(all="ignore"):
+                power = np.exp(t * lx)
+                log_a = np.log(gather(power, data.ru) + gather(power, data.rv))
+                m = np.exp(log_a / t)
+                core = (1.0 / t - 2.0) * log_a - m + np.log(m + (t - 1.0))
+            out = 2.0 * (np.exp(lx).sum() + (theta - 1.0) * lx.sum()) + np.sum(core, axis=-1)
+            if np.all(np.isfinite(out)):
+                return out
+            lx_u, ly_v = lx[data.ru], lx[data.rv]
+            data = (lx_u, ly_v, np.sum(np.exp(lx_u) + np.exp(ly_v), axis=-1),
+                    np.sum(lx_u + ly_v, axis=-1))
+        lx, ly, sum_xy, sum_log = data
+        core = self._log_density_core(lx, ly, t)
         return sum_xy + (theta - 1.0) * sum_log + np.sum(core, axis=-1)
 
     def _h_u_given_v(self, u, v, p):
@@ -530,14 +566,33 @@ class Joe(CopulaFamily):
                 + np.log(theta - 1.0 + np.exp(log_s)))
 
     def prepare(self, u, v, grid=None):
+        data = self._grid_data(u, v, grid, lambda points: np.log1p(-points))
+        if data is not None:
+            return data
         ru, rv = self._rotate_uv(u, v)
         lub, lvb = np.log1p(-ru), np.log1p(-rv)
         return lub, lvb, np.sum(lub + lvb, axis=-1)
 
     def loglik_prepared(self, data, p):
-        lub, lvb, sum_log = data
         (theta,) = p
         t = theta[:, None]
+        if isinstance(data, GridData):
+            # On the rank grid S = a_u + a_v (1 - a_u) with a = (1 - u)^theta, a sum of
+            # positive numbers in plain space (log S is needed to absolute accuracy only);
+            # past its range (a underflows), the log-space form below on the gathered logs.
+            lgb = data.table
+            la = t * lgb
+            a, oma = np.exp(la), -np.expm1(la)
+            big_s = gather(a, data.ru) + gather(a, data.rv) * gather(oma, data.ru)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                log_s = np.log(big_s)
+                out = (theta - 1.0) * 2.0 * lgb.sum() + np.sum(
+                    (1.0 / t - 2.0) * log_s + np.log(t - 1.0 + big_s), axis=-1)
+            if np.all(np.isfinite(out)):
+                return out
+            lub, lvb = lgb[data.ru], lgb[data.rv]
+            data = lub, lvb, np.sum(lub + lvb, axis=-1)
+        lub, lvb, sum_log = data
         log_s = self._parts_from_logs(lub, lvb, t)[4]
         return (theta - 1.0) * sum_log + np.sum(
             (1.0 / t - 2.0) * log_s + np.log(t - 1.0 + np.exp(log_s)), axis=-1)

@@ -21,7 +21,7 @@ from abc import abstractmethod
 import numpy as np
 from scipy import special
 
-from .base import UNIT_EPS, CopulaFamily
+from .base import UNIT_EPS, CopulaFamily, GridData
 from .logmath import log1mexp, log_expm1, logaddexp
 
 _ROTATIONS = (0, 90, 180, 270)
@@ -108,27 +108,21 @@ class _Archimedean2(CopulaFamily):
     def prepare(self, u, v, grid=None):
         # The logs do not depend on the parameters: computed once per optimisation, on the
         # grid when the data are ranks.
-        ranks = self._grid_ranks(u, v, grid)
-        if ranks is None:
+        data = self._grid_data(u, v, grid, _log_of_unit)
+        if data is None:
             ru, rv = self._rotate_uv(u, v)
             return (*_log_of_unit(ru), *_log_of_unit(rv))
-        n = u.shape[-1]
-        return *ranks, _log_of_unit(np.arange(1, n + 1) / (n + 1.0))
-
-    def take(self, data, index):
-        if len(data) == 4:
-            return tuple(a[index] for a in data)
-        return data[0][index], data[1][index], data[2]
+        return data
 
     def loglik_prepared(self, data, p):
         pw = tuple(a[:, None] for a in p)
-        if len(data) == 4:
+        if not isinstance(data, GridData):
             lu, lub, lv, lvb = data
             return np.sum(self._log_h_and_log_c(lu, lub, lv, lvb, pw, want_h=False)[1],
                           axis=-1)
         gu, gv, (lg, lgb) = data
         windows, n = gu.shape
-        # Gathered by flat index (np.take: several times faster than take_along_axis).
+        # Gathered by flat index (see base.gather), computed once for both paths.
         flat = np.arange(0, windows * n, n)[:, None]
         fu, fv = gu + flat, gv + flat
         with np.errstate(all="ignore"):

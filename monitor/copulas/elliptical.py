@@ -27,7 +27,7 @@ import numpy as np
 from scipy import special
 
 from ..arrays import read_only
-from .base import UNIT_EPS, CopulaFamily
+from .base import UNIT_EPS, CopulaFamily, GridData, gather
 
 #: Starting value of the t copula's degrees of freedom: Kendall's tau does not depend on nu.
 NU_START = 8.0
@@ -268,18 +268,11 @@ class StudentT(CopulaFamily):
                 + 0.5 * (nu + 1.0) * (np.log1p(x * x / nu) + np.log1p(y * y / nu)))
 
     def prepare(self, u, v, grid=None):
-        ranks = self._grid_ranks(u, v, grid)
-        if ranks is None:
-            return (u, v)
-        return *ranks, _QuantileTable.build(u.shape[-1])
-
-    def take(self, data, index):
-        if len(data) == 2:
-            return data[0][index], data[1][index]
-        return data[0][index], data[1][index], data[2]
+        data = self._grid_data(u, v, grid, lambda points: _QuantileTable.build(points.size))
+        return (u, v) if data is None else data
 
     def loglik_prepared(self, data, p):
-        if len(data) == 2:
+        if not isinstance(data, GridData):
             return super().loglik_prepared(data, p)
         # Pseudo-observations on the rank grid: both margins are permutations of the same n
         # quantiles t_nu^-1(i/(n+1)), interpolated in 1/nu from a table shared by all windows,
@@ -287,9 +280,7 @@ class StudentT(CopulaFamily):
         ru, rv, table = data
         rho, nu = p
         q, marginal = table.quantiles(nu)
-        flat = np.arange(0, q.size, q.shape[-1])[:, None]  # np.take by flat index: fastest
-        x = np.take(q, ru + flat)
-        y = np.take(q, rv + flat)
+        x, y = gather(q, ru), gather(q, rv)
         rho_c = rho[:, None]
         one_m = _one_minus_rho_squared(rho_c)
         quad = (x - rho_c * y) ** 2 / one_m + y * y
