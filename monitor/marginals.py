@@ -671,11 +671,11 @@ def _constraint_jacobians() -> Iterator[None]:
 
     def with_jacobians(a, b):
         cons = build(a, b)
-        rows = np.asarray(a, dtype=float)
+        rows = np.array(a, dtype=float)  # a copy: each Jacobian keeps its own row
         if isinstance(cons, list) and len(cons) == len(rows) and all(
                 isinstance(c, dict) and c.get("type") == "ineq" for c in cons):
             for con, row in zip(cons, rows, strict=True):
-                con.setdefault("jac", lambda x, *args, row=row.copy(): row)
+                con.setdefault("jac", lambda x, *args, row=row: row)
         return cons
 
     base.constraint = with_jacobians
