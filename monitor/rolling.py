@@ -25,11 +25,12 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+from numpy.lib.stride_tricks import sliding_window_view
 
 from .copulas import FAMILY_NAMES, family
-from .empirical import spearman_rho, tail_dependence
+from .empirical import kendall_tau, pseudo_observations, spearman_rho, tail_dependence
 from .fitting import select_batched
-from .sliding import sliding_dominance, sliding_kendall_tau, sliding_ranks
+from .sliding import sliding_dominance, sliding_kendall_tau, sliding_ranks, window_dominance
 
 #: Stored columns of a pair's timeline, in order (DESIGN.md's export contract is a subset).
 METRIC_COLUMNS = (
@@ -149,12 +150,8 @@ def batch_metrics(items: list[PairWindows], settings: RollingSettings) -> list[P
     if not live:
         return results
     firsts = [items[i].positions - (w - 1) for i in live]
-    u = np.vstack([sliding_ranks(items[i].za, w, f) for i, f in zip(live, firsts)]) / (w + 1.0)
-    v = np.vstack([sliding_ranks(items[i].zb, w, f) for i, f in zip(live, firsts)]) / (w + 1.0)
-    tau = np.concatenate([sliding_kendall_tau(items[i].za, items[i].zb, w, f)
-                          for i, f in zip(live, firsts)])
-    dominance = np.vstack([sliding_dominance(items[i].za, items[i].zb, w, f)
-                           for i, f in zip(live, firsts)])
+    u, v, tau, dominance = _window_statistics(
+        [(items[i].za, items[i].zb, f) for i, f in zip(live, firsts)], w)
     tau_se = kendall_tau_se(u, v, tau, dominance)
     rho_s = spearman_rho(u, v)
     emp = tail_dependence(u, v, q)
@@ -245,6 +242,37 @@ def batch_metrics(items: list[PairWindows], settings: RollingSettings) -> list[P
         results[i] = PairMetrics(frame.iloc[lo:hi].reset_index(drop=True), last,
                                  float(tau[hi - 1]))
     return results
+
+
+#: Pairs with at most this many windows have them counted window by window (sorting), the
+#: rest along their own series by banded prefix sums.
+FEW_WINDOWS = 8
+
+
+def _window_statistics(series: list[tuple[np.ndarray, np.ndarray, np.ndarray]], w: int):
+    """Pseudo-observations of both margins, Kendall's tau and dominance counts of the
+    windows starting at ``first`` of each ``(x, y, first)``, rows in that order.
+
+    A series with many windows is counted along itself (the banded prefix sums of
+    :mod:`monitor.sliding` cover its overlapping windows once). The windows of series with
+    few (the daily update: one each, hundreds of pairs) are stacked and counted together by
+    sorting: the same integer counts, so the same numbers to the last bit.
+    """
+    parts: list[tuple | None] = [None] * len(series)
+    few = [k for k, (_, _, f) in enumerate(series) if len(f) <= FEW_WINDOWS]
+    for k, (x, y, f) in enumerate(series):
+        if len(f) > FEW_WINDOWS:
+            parts[k] = (sliding_ranks(x, w, f) / (w + 1.0), sliding_ranks(y, w, f) / (w + 1.0),
+                        sliding_kendall_tau(x, y, w, f), sliding_dominance(x, y, w, f))
+    if few:
+        xw = np.concatenate([sliding_window_view(series[k][0], w)[series[k][2]] for k in few])
+        yw = np.concatenate([sliding_window_view(series[k][1], w)[series[k][2]] for k in few])
+        stacked = (pseudo_observations(xw), pseudo_observations(yw), kendall_tau(xw, yw),
+                   window_dominance(xw, yw))
+        at = np.cumsum([0] + [len(series[k][2]) for k in few])
+        for j, k in enumerate(few):
+            parts[k] = tuple(a[at[j]:at[j + 1]] for a in stacked)
+    return tuple(np.concatenate([p[m] for p in parts]) for m in range(4))
 
 
 def _newest_day_ratios(u: np.ndarray, v: np.ndarray, tau: np.ndarray):

@@ -58,3 +58,30 @@ def test_windows_outside_the_series_are_refused():
     x, _ = _series(100, 1)
     with pytest.raises(ValueError, match="do not fit a series of 100"):
         sliding_ranks(x, 30, np.array([0, 71]))
+
+
+@pytest.mark.parametrize("decimals", [None, 1, 0])
+def test_stacked_windows_give_the_banded_counts_to_the_bit(decimals):
+    # The daily update counts one window of each of hundreds of pairs by sorting the stacked
+    # windows (monitor.rolling._window_statistics); the numbers must be the banded ones
+    # exactly, ties included, so a daily update equals a backfill to the last bit.
+    from monitor.rolling import _window_statistics
+    from monitor.sliding import window_dominance
+
+    w = 40
+    series = []
+    for seed in range(5):
+        x, y = _series(300, seed, decimals)
+        first = np.sort(np.random.default_rng(seed).choice(len(x) - w + 1, 3, replace=False))
+        series.append((x, y, first))
+    few = _window_statistics(series, w)
+    banded = [np.concatenate(parts) for parts in zip(*[
+        (sliding_ranks(x, w, f) / (w + 1.0), sliding_ranks(y, w, f) / (w + 1.0),
+         sliding_kendall_tau(x, y, w, f), sliding_dominance(x, y, w, f))
+        for x, y, f in series])]
+    for got, want in zip(few, banded, strict=True):
+        np.testing.assert_array_equal(got, want)
+    x, y, f = series[0]
+    np.testing.assert_array_equal(
+        window_dominance(sliding_window_view(x, w)[f], sliding_window_view(y, w)[f]),
+        sliding_dominance(x, y, w, f))
