@@ -240,8 +240,10 @@ def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
     a non-concave local model is shifted by a multiple of the identity (Levenberg-Marquardt).
     A window converges when the concave local model predicts a gain below 1e-7 from a step
     below 1e-4, when an accepted step changes no coordinate by more than 1e-7 and the
-    log-likelihood by less than 1e-9, or when the projected gradient is below 1e-7. Windows
-    that hit ``max_iter`` are reported with ``converged`` False; their estimates are never
+    log-likelihood by less than 1e-9, when the projected gradient is below 1e-7, or once an
+    accepted full step's gain agrees with its prediction closely enough that less than
+    2.5e-5 nats are estimated to be left (``_SETTLE_GAIN``; see ``_newton``). Windows that
+    hit ``max_iter`` are reported with ``converged`` False; their estimates are never
     replaced. With ``chain`` the later rows borrow a neighbour's Hessian for two iterations
     and use forward-difference gradients (step 1e-6) meanwhile.
     """

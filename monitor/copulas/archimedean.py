@@ -217,9 +217,9 @@ class Gumbel(CopulaFamily):
             out = 2.0 * (np.exp(lx).sum() + (theta - 1.0) * lx.sum()) + np.sum(core, axis=-1)
             if np.all(np.isfinite(out)):
                 return out
-            lx_u, ly_v = lx[data.ru], lx[data.rv]
-            data = (lx_u, ly_v, np.sum(np.exp(lx_u) + np.exp(ly_v), axis=-1),
-                    np.sum(lx_u + ly_v, axis=-1))
+            at_u, at_v = lx[data.ru], lx[data.rv]
+            data = (at_u, at_v, np.sum(np.exp(at_u) + np.exp(at_v), axis=-1),
+                    np.sum(at_u + at_v, axis=-1))
         lx, ly, sum_xy, sum_log = data
         core = self._log_density_core(lx, ly, t)
         return sum_xy + (theta - 1.0) * sum_log + np.sum(core, axis=-1)

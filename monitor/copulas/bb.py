@@ -36,13 +36,14 @@ _BB7_SERIES_RADIUS = 0.05
 _BB7_SERIES_TERMS = 12
 
 _LOGIT_MAX = float(np.log((1.0 - UNIT_EPS) / UNIT_EPS))
+_NEWTON_MAX_ITER = 60
 
 #: The grid log-likelihoods work in plain space while every generator power on the grid lies
-#: within e^+-700 (normal doubles, and sums of two stay finite); inside the fit box at n = 250
-#: that is every point but the box's far corners.
+#: within e^+-700 (normal doubles, and sums of two stay finite) and, for BB7, above 1e-290
+#: (far from the subnormal range); inside the fit box at n = 250 that is every point but
+#: BB1's corner of large theta and delta.
 _PLAIN_RANGE = 700.0
 _PLAIN_TINY = 1e-290
-_NEWTON_MAX_ITER = 60
 
 
 # ---------------------------------------------------------------------- log-space helpers
