@@ -1,6 +1,6 @@
 """Benchmark: full backfill and one-day update of a 30-asset universe, against a plain loop.
 
-Run from the repository root (about half an hour for the default size on 2 cores)::
+Run from the repository root (about a quarter of an hour for the default size on 2 cores)::
 
     .venv/bin/python tests/benchmarks/bench_rolling.py [--assets 30] [--days 5000] [--workers 0]
 
