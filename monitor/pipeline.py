@@ -120,7 +120,7 @@ def update_marginals(store: Store, cfg: Config, *, progress: bool = True) -> Mar
             continue
         todo.append((key, asset, series, settings))
     results: list[tuple[str, FilteredSeries, bool, FilteredSeries | None]] = []
-    workers = min(cfg.compute.workers or os.cpu_count() or 1, max(len(todo), 1))
+    workers = min(_workers(cfg), max(len(todo), 1))
     bar = tqdm(total=len(todo), desc="marginals", unit="asset", disable=not progress or None,
                leave=False)
     try:
@@ -146,6 +146,11 @@ def update_marginals(store: Store, cfg: Config, *, progress: bool = True) -> Mar
         recomputed=tuple(sorted(a for a, _, redone, _ in results if redone)),
         fallbacks={a: fs.n_fallback for a, fs, _, _ in results if fs.n_fallback},
         skipped=skipped)
+
+
+def _workers(cfg: Config) -> int:
+    """Worker processes of the local pool: ``compute.workers``, 0 meaning one per core."""
+    return cfg.compute.workers or os.cpu_count() or 1
 
 
 _WORKER_STORE: Store | None = None
@@ -305,7 +310,7 @@ def _run_tasks(tasks: list[_PairTask], settings: RollingSettings, cfg: Config,
                progress: bool):
     """Yield lists of (task, PairMetrics), one per batch, as batches finish, on the
     configured backend."""
-    workers = cfg.compute.workers or os.cpu_count() or 1
+    workers = _workers(cfg)
     batches = _batches(tasks, 1 if cfg.compute.backend == "dask" else workers)
     bar = tqdm(total=len(tasks), desc="rolling", unit="pair", disable=not progress or None,
                leave=False)
@@ -589,7 +594,7 @@ def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | Non
             for a, b in todo]
     in_alert: list[tuple[str, str, str]] = []
     counts = (0, 0, 0)  # new episodes, ended episodes, queued messages
-    workers = min(cfg.compute.workers or os.cpu_count() or 1, max(len(todo), 1))
+    workers = min(_workers(cfg), max(len(todo), 1))
     pool = (ProcessPoolExecutor(workers, initializer=_open_worker_store,
                                 initargs=(store.url,))
             if workers > 1 and len(todo) > 1 else None)

@@ -259,9 +259,11 @@ def _window_statistics(series: list[tuple[np.ndarray, np.ndarray, np.ndarray]], 
     sorting: the same integer counts, so the same numbers to the last bit.
     """
     parts: list[tuple | None] = [None] * len(series)
-    few = [k for k, (_, _, f) in enumerate(series) if len(f) <= FEW_WINDOWS]
+    few = []
     for k, (x, y, f) in enumerate(series):
-        if len(f) > FEW_WINDOWS:
+        if len(f) <= FEW_WINDOWS:
+            few.append(k)
+        else:
             parts[k] = (sliding_ranks(x, w, f) / (w + 1.0), sliding_ranks(y, w, f) / (w + 1.0),
                         sliding_kendall_tau(x, y, w, f), sliding_dominance(x, y, w, f))
     if few:

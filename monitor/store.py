@@ -701,15 +701,16 @@ class Store:
         items : list of tuple
             ``(asset_a, asset_b, frame, warm_starts, last_tau, replace_all)`` per pair.
         """
-        replaced = [{"a": a, "b": b} for a, b, *_, replace_all in items if replace_all]
+        replaced = [{"p_s": settings_key, "p_a": a, "p_b": b}
+                    for a, b, *_, replace_all in items if replace_all]
         if replaced:
-            conn.execute(metrics.delete().where(sa.and_(
-                metrics.c.settings == settings_key, metrics.c.asset_a == sa.bindparam("a"),
-                metrics.c.asset_b == sa.bindparam("b"))), replaced)
-            conn.execute(signal_resume.delete().where(sa.and_(
-                signal_resume.c.rolling == settings_key,
-                signal_resume.c.asset_a == sa.bindparam("a"),
-                signal_resume.c.asset_b == sa.bindparam("b"))), replaced)
+            conn.execute(metrics.delete().where(_of_pair(metrics)), replaced)
+            # Resume points are keyed by the signals' settings; their ``rolling`` column
+            # names the metrics they continue.
+            conn.execute(signal_resume.delete().where(
+                signal_resume.c.rolling == sa.bindparam("p_s"),
+                signal_resume.c.asset_a == sa.bindparam("p_a"),
+                signal_resume.c.asset_b == sa.bindparam("p_b")), replaced)
             # Every date of the universe summary may have used the replaced rows.
             conn.execute(universe_daily.delete().where(universe_daily.c.settings.startswith(
                 f"{settings_key}|", autoescape=True)))
@@ -737,11 +738,8 @@ class Store:
         if rows:
             conn.execute(metrics.insert(), rows)
         if items:
-            conn.execute(pair_state.delete().where(sa.and_(
-                pair_state.c.settings == settings_key,
-                pair_state.c.asset_a == sa.bindparam("a"),
-                pair_state.c.asset_b == sa.bindparam("b"))),
-                [{"a": a, "b": b} for a, b, *_ in items])
+            conn.execute(pair_state.delete().where(_of_pair(pair_state)),
+                         [{"p_s": settings_key, "p_a": a, "p_b": b} for a, b, *_ in items])
         if states:
             conn.execute(pair_state.insert(), states)
         return len(rows)
