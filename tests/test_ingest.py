@@ -181,7 +181,8 @@ REFUSALS = [
     ("empty", "", r": file is empty$"),
     ("header_only", "date,ALDER,BIRCH\n", r": header only, no data rows$"),
     ("no_date_column", _csv("day,ALDER", "2021-03-08,1.0", "2021-03-09,2.0"),
-     r": no 'date' column \(columns: day, ALDER\)$"),
+     r": no 'date' column \(columns: day, ALDER\); give --columns date=day if 'day' holds "
+     r"the dates$"),
     ("duplicate_date", _csv("date,ALDER", "2021-03-08,1.0", "2021-03-08,2.0", "2021-03-09,3.0"),
      r": date 2021-03-08 appears more than once with different values$"),
     ("text_in_number", _csv("date,ALDER", "2021-03-08,1.0", "2021-03-09,abc"),
@@ -196,8 +197,14 @@ REFUSALS = [
      r": line 3 \(2021-03-09\), column 'ALDER': 'NaN' is not a finite number$"),
     ("unparseable_date", _csv("date,ALDER", "2021-03-08,1.0", "2021-13-45,2.0"),
      r": line 3: cannot read date '2021-13-45' \(expected YYYY-MM-DD\)$"),
-    ("single_row", _csv("date,ALDER", "2021-03-08,1.0"),
-     r": a single row; at least two dates are needed$"),
+    # One day of closes is refused only when an asset has no earlier stored price (issue 12).
+    ("one_day_new_asset", _csv("date,ALDER,CEDAR", "2021-03-08,104.0,1.0"),
+     r": 2021-03-08, column 'CEDAR': the store holds no earlier price of 'CEDAR', so this price "
+     r"gives no return \(a one-day file of closes needs each asset's previous close\); a new "
+     r"asset needs a history file first$"),
+    ("one_day_before_the_history", _csv("date,asset,value", "2021-02-26,ALDER,99.0"),
+     r": 2021-02-26, column 'ALDER': the store holds no earlier price of 'ALDER' before "
+     r"2021-03-01, so this price gives no return .*"),
     ("column_without_values", _csv("date,ALDER,BIRCH", "2021-03-08,1.0,", "2021-03-09,2.0,"),
      r": column 'BIRCH' has no values$"),
     ("binary", b"\x89PNG\r\n\x1a\n\x00\x00\x00\rIHDR\x00\x00",

@@ -163,17 +163,20 @@ CSV_REFUSALS = [
     ("blank_lines_only", "\n\n  \n", r": file is empty$"),
     ("header_only", "date,ALDER,BIRCH\n", r": header only, no data rows$"),
     ("no_date_column", "day,ALDER\n2021-03-01,1\n2021-03-02,2\n",
-     r": no 'date' column \(columns: day, ALDER\)$"),
+     r": no 'date' column \(columns: day, ALDER\); give --columns date=day if 'day' holds "
+     r"the dates$"),
     ("only_date_column", "date\n2021-03-01\n2021-03-02\n", r": no asset columns besides 'date'"),
     ("bad_date", "date,ALDER\n2021-03-01,1\n2021-13-45,2\n",
      r": line 3: cannot read date '2021-13-45' \(expected YYYY-MM-DD\)$"),
     ("day_first_date", "date,ALDER\n01/03/2021,1\n02/03/2021,2\n",
-     r": line 2: cannot read date '01/03/2021'"),
+     r": line 2: dates like 01/03/2021 could be day-first or month-first; give "
+     r"--date-format '%d/%m/%Y' or '%m/%d/%Y'$"),
     ("blank_date", "date,ALDER\n2021-03-01,1\n,2\n", r": line 3: cannot read date ''"),
     ("text_in_number", "date,ALDER,BIRCH\n2021-03-01,1,2\n2021-03-02,1,2\n2021-03-03,3,n/a\n",
      r": line 4 \(2021-03-03\), column 'BIRCH': 'n/a' is not a finite number$"),
     ("decimal_comma", 'date,ALDER\n2021-03-01,"1,5"\n2021-03-02,2\n',
-     r": line 2 \(2021-03-01\), column 'ALDER': '1,5' is not a finite number$"),
+     r": line 2 \(2021-03-01\), column 'ALDER': '1,5' is not a finite number; give "
+     r"--decimal ,$"),
     ("literal_NaN", "date,ALDER\n2021-03-01,1\n2021-03-02,NaN\n",
      r": line 3 \(2021-03-02\), column 'ALDER': 'NaN' is not a finite number$"),
     ("literal_nan_lower", "date,ALDER\n2021-03-01,nan\n2021-03-02,1\n",
@@ -197,9 +200,6 @@ CSV_REFUSALS = [
      r": line 3 \(2021-03-02\), column 'value': 'x' is not a finite number$"),
     ("column_without_values", "date,ALDER,BIRCH\n2021-03-01,1,\n2021-03-02,2,\n",
      r": column 'BIRCH' has no values$"),
-    ("single_row", "date,ALDER\n2021-03-01,1\n",
-     r": a single row; at least two dates are needed$"),
-    ("single_date_twice", "date,ALDER\n2021-03-01,1\n2021-03-01,1\n", r": a single row"),
     ("unnamed_column", "date,ALDER,\n2021-03-01,1,2\n2021-03-02,2,3\n",
      r": column 3 has no name in the header$"),
     ("duplicate_column", "date,ALDER,ALDER\n2021-03-01,1,2\n2021-03-02,2,3\n",
@@ -301,7 +301,7 @@ def _dates(n: int = 3) -> pd.DatetimeIndex:
     (pd.DataFrame({"date": _dates(), "ALDER": [np.nan] * 3, "BIRCH": [1.0, 2.0, 3.0]}),
      r": column 'ALDER' has no values$"),
     (pd.DataFrame({"when": _dates(), "ALDER": [1.0, 2.0, 3.0]}),
-     r": no 'date' column \(columns: when, ALDER\)$"),
+     r": no 'date' column \(columns: when, ALDER\); give --columns date=when"),
 ], ids=["inf", "text", "bool", "bad_date", "missing_date", "empty_column", "no_date"])
 def test_parquet_refusals_name_file_row_and_column(tmp_path, frame, message):
     path = tmp_path / "bad.parquet"
