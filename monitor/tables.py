@@ -536,11 +536,12 @@ def tidy_frame(frame: pd.DataFrame, path: str | Path, lines: np.ndarray | None =
         if not cols:
             raise InputError(f"{path}: no asset columns besides 'date'")
         data = {}
+        date_name = dict(options.columns).get("date", lower["date"])
         for c in cols:
             others = [n for n in cols if n != c]
             long_hint = None if not others else (
                 "if the file is long (one row per date and asset), give "
-                + options.suggest("columns", f"date={lower['date']},asset={c},value={others[-1]}"))
+                + options.suggest("columns", f"date={date_name},asset={c},value={others[-1]}"))
             data[c] = _parse_numbers(frame[c], str(path), c, dates, lines, options, long_hint)
         wide = pd.DataFrame(data, index=dates)
         dup = wide.index.duplicated(keep=False)
