@@ -332,3 +332,42 @@ def test_update_with_too_little_history_says_how_much_each_asset_needs(tmp_path,
     assert "1 of 1 pair(s) updated, 9 new window end(s)" in out
     assert ("  too little history for a first window yet: CEDAR 39 returns (each needs 251 "
             "(filter warm-up: 250 returns and 1 lag) + 60 (window) = 311)") in out.splitlines()
+
+
+def test_step_progress_writes_plain_lines_with_elapsed_time_when_not_a_terminal():
+    from monitor.progress import StepProgress
+
+    times = iter([0.0, 0.5, 1.5, 2.0, 14.0, 15.0, 30.0])
+    stream = io.StringIO()  # not a TTY, as a log file
+    with StepProgress("rolling", 40, "pair", stream=stream, clock=lambda: next(times)) as bar:
+        bar.update(2)   # 0.5 s: 5%, nothing due
+        bar.update(3)   # 1.5 s: 12%, a new tenth -> a line
+        bar.update(1)   # 2.0 s: 15%, same tenth, nothing
+        bar.update(1)   # 14.0 s: ten seconds since the last line -> a line
+        bar.update(33)  # 15.0 s: done, the closing line says it
+    assert stream.getvalue().splitlines() == [
+        "rolling: 5 of 40 pairs (12%), 1.5 s",
+        "rolling: 7 of 40 pairs (17%), 14.0 s",
+        "rolling: 40 pairs in 30.0 s",
+    ]
+    quiet = io.StringIO()
+    with StepProgress("marginals", 3, "asset", stream=quiet, enabled=False) as bar:
+        bar.update(3)
+    assert quiet.getvalue() == ""
+
+
+def test_fit_reads_an_exported_file_with_the_same_options_as_ingest(tmp_path, capsys):
+    prices = _garch_prices(420, seed=5)
+    plain = _write(prices, tmp_path / "plain.csv")
+    exported = tmp_path / "export.csv"
+    text = prices.to_csv(sep=";", decimal=",", float_format="%.12g", date_format="%d/%m/%Y")
+    exported.write_text(text, encoding="utf-8")
+    args = ["--pair", "ALDER", "BIRCH", "--kind", "prices", "--filter", "none", "--families",
+            "gaussian", "frank", "--json"]
+    assert cli.main(["fit", plain, *args]) == 0
+    want = json.loads(capsys.readouterr().out)
+    assert cli.main(["fit", str(exported), *args, "--sep", ";", "--decimal", ",",
+                     "--date-format", "%d/%m/%Y"]) == 0
+    assert json.loads(capsys.readouterr().out) == want
+    assert cli.main(["fit", str(exported), *args]) == 2
+    assert "give --sep ';'" in capsys.readouterr().err
