@@ -120,7 +120,7 @@ def prepare_demo(folder: str | os.PathLike = DEMO_FOLDER, store_url: str | None 
         ingest_sources(store, [read_file_source(prices, "prices")])
         update_marginals(store, cfg, progress=progress)
         update_rolling(store, cfg, progress=progress)
-        update_signals(store, cfg)
+        update_signals(store, cfg, progress=progress)
     print(f"demo store ready in {time.perf_counter() - t0:.0f} s: {len(DEMO_ASSETS)} assets of "
           f"{DEMO_SCENARIO} (invented data) in {out}/", flush=True)
     return cfg

@@ -38,6 +38,33 @@ def _common(p: argparse.ArgumentParser) -> None:
                    help="store URL, overriding the config (default $COMOVE_STORE)")
 
 
+def _reading(p: argparse.ArgumentParser) -> None:
+    """The options that read files as spreadsheets and terminals export them."""
+    g = p.add_argument_group("reading CSV files exported by other programs")
+    g.add_argument("--sep", default=",", metavar="CHAR",
+                   help="field separator (default ','; e.g. ';' or '\\t')")
+    g.add_argument("--decimal", default=".", metavar="MARK",
+                   help="decimal mark of numbers: '.' (default) or ','")
+    g.add_argument("--thousands", default="", metavar="MARK",
+                   help="thousands separator inside numbers (default none; e.g. ',' or '.')")
+    g.add_argument("--date-format", default="", metavar="FORMAT",
+                   help="date layout as strftime codes, e.g. '%%d/%%m/%%Y' (default ISO "
+                        "YYYY-MM-DD; day-first or month-first dates are refused without it)")
+    g.add_argument("--columns", default="", metavar="ROLE=NAME,...",
+                   help="the file's columns for date, asset and value, e.g. "
+                        "date=Date,asset=Ticker,value=Close (a long file from those three "
+                        "columns) or date=Day (a wide file's date column)")
+
+
+def _read_options(args: argparse.Namespace):
+    """The reading options of the command line, checked."""
+    from .tables import parse_columns, read_options
+
+    columns = parse_columns(args.columns) if args.columns else None
+    return read_options(sep=args.sep, decimal=args.decimal, thousands=args.thousands,
+                        date_format=args.date_format, columns=columns)
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser with every subcommand of the contract."""
     parser = _Parser(
@@ -79,6 +106,7 @@ def build_parser() -> argparse.ArgumentParser:
     grp = p.add_mutually_exclusive_group()
     grp.add_argument("--table", help="with --sql: a table to read whole")
     grp.add_argument("--query", help="with --sql: a SELECT statement")
+    _reading(p)
 
     p = sub.add_parser("update", help="marginals, rolling metrics, signals, alert queue")
     _common(p)
@@ -110,6 +138,7 @@ def build_parser() -> argparse.ArgumentParser:
                         "intervals (0 skips; 200 is a good choice)")
     p.add_argument("--seed", type=int, default=0, help="seed of the bootstrap (default 0)")
     p.add_argument("--json", action="store_true", help="print one JSON object")
+    _reading(p)
 
     p = sub.add_parser("export", help="export stored data as CSV")
     _common(p)
@@ -157,7 +186,7 @@ def _cmd_fit(args: argparse.Namespace, cfg: Config) -> int:
     mode = args.filter or cfg.marginals.mode
     settings = None if mode == "none" else MarginalSettings(
         mode=mode, refit_every=cfg.marginals.refit_every)
-    frame = read_series(args.file)
+    frame = read_series(args.file, _read_options(args))
     series, info = filtered_pair(frame, args.pair[0], args.pair[1], kind=args.kind,
                                  end=args.end, settings=settings, source=args.file)
     study = study_window(
@@ -241,14 +270,18 @@ def _cmd_ingest(args: argparse.Namespace, cfg: Config) -> int:
     if args.sql:
         if not (args.table or args.query):
             raise InputError("--sql needs --table or --query")
+        if _read_options(args) != _read_options(build_parser().parse_args(["ingest"])):
+            raise InputError("--sep, --decimal, --thousands, --date-format and --columns go "
+                             "with files (a SQL source's cells are typed)")
         sources = [read_sql_table_source(args.sql, args.kind, query=args.query,
                                          table=args.table)]
     else:
         if not args.files:
             raise InputError("name at least one file (or --sql)")
+        options = _read_options(args)
         paths = [p for pattern in args.files for p in expand_paths(pattern)]
         # Every source is read and checked before the store is opened.
-        sources = [read_file_source(p, args.kind) for p in paths]
+        sources = [read_file_source(p, args.kind, options) for p in paths]
     with Store(cfg.store.url) as store:
         for report in ingest_sources(store, sources, accept_revisions=args.accept_revisions):
             print("\n".join(report.lines()))
@@ -289,7 +322,10 @@ def _cmd_update(args: argparse.Namespace, cfg: Config) -> int:
     from .pipeline import run_update
 
     summary = run_update(cfg, progress=True)
-    print("\n".join(summary.lines()))
+    print("\n".join(summary.lines()), flush=True)
+    problem = summary.shortfall()
+    if problem is not None:
+        raise InputError(problem)
     return 0
 
 

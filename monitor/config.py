@@ -17,6 +17,7 @@ from typing import Any
 
 from .copulas import FAMILY_NAMES
 from .errors import InputError
+from .tables import ReadOptions, read_options
 
 DEFAULT_STORE_URL = "sqlite:///comove-data/store.sqlite"
 
@@ -111,6 +112,16 @@ class AlertsConfig:
 
 
 @dataclass(frozen=True, slots=True)
+class ColumnsConfig:
+    """``columns = { date = "Date", asset = "Ticker", value = "Close" }`` of a source: the
+    file's columns holding each role (empty: the column is named after its role)."""
+
+    date: str = ""
+    asset: str = ""
+    value: str = ""
+
+
+@dataclass(frozen=True, slots=True)
 class SourceConfig:
     """One configured input pulled by ``comove update``: a file path or glob (``path``), or a
     SQL source (``url`` with ``table`` or ``query``); ``kind`` says prices or returns.
@@ -124,6 +135,22 @@ class SourceConfig:
     query: str = ""
     kind: str = "prices"
     accept_revisions: bool = False
+    #: Reading options of a file source (see :class:`monitor.tables.ReadOptions`).
+    sep: str = ","
+    decimal: str = "."
+    thousands: str = ""
+    date_format: str = ""
+    columns: ColumnsConfig = field(default_factory=ColumnsConfig)
+
+
+def source_read_options(src: SourceConfig, where: str) -> ReadOptions:
+    """The reading options of a ``[[sources]]`` entry, checked; messages name its keys
+    (``where`` is e.g. ``"comove.toml: sources[1]"``)."""
+    names = {k: f"{where}.{k}" for k in ("sep", "decimal", "thousands", "date_format",
+                                          "columns")}
+    cols = {"date": src.columns.date, "asset": src.columns.asset, "value": src.columns.value}
+    return read_options(sep=src.sep, decimal=src.decimal, thousands=src.thousands,
+                        date_format=src.date_format, columns=cols, names=names, style="key")
 
 
 @dataclass(frozen=True, slots=True)
@@ -215,6 +242,10 @@ def _sources(value: Any, path: str) -> tuple[SourceConfig, ...]:
         if src.kind not in ("prices", "returns"):
             raise InputError(f"{path}: {where}.kind must be \"prices\" or \"returns\", "
                              f"got {src.kind!r}")
+        options = source_read_options(src, f"{path}: {where}")
+        if not src.path and options != ReadOptions(style="key"):
+            raise InputError(f"{path}: {where}: sep, decimal, thousands, date_format and "
+                             "columns go with path (a SQL source's cells are typed)")
         out.append(src)
     return tuple(out)
 

@@ -6,6 +6,11 @@ a refusal anywhere leaves the store exactly as it was. Values that differ from s
 for the same asset and date are refused unless revisions are accepted, in which case the old
 values go to the ``revisions`` audit table and results derived from them are dropped for
 recomputation. Sources that add nothing (the same file again) write nothing.
+
+A file of a single day (one row wide, or one date long) is what the daily job feeds: its
+prices are accepted whenever the store already holds an earlier price of each asset (a
+return needs the previous close), and refused whole, naming the asset and the date, when
+some asset has none. A source of several days goes through the same checks.
 """
 
 from __future__ import annotations
@@ -30,7 +35,7 @@ from .store import (
     returns,
     values_differ,
 )
-from .tables import log_returns, read_series, read_sql_source
+from .tables import ReadOptions, log_returns, read_series, read_sql_source
 
 KINDS = ("prices", "returns")
 
@@ -113,12 +118,14 @@ class IngestReport:
         return [head, *self.coverage.lines()]
 
 
-def read_file_source(path: str | Path, kind: str) -> Source:
-    """Read and fully validate one file (nothing is stored yet)."""
+def read_file_source(path: str | Path, kind: str, options: ReadOptions | None = None
+                     ) -> Source:
+    """Read and fully validate one file (nothing is stored yet); ``options`` as in
+    :func:`monitor.tables.read_series`."""
     if kind not in KINDS:
         raise InputError(f"--kind must be prices or returns, got {kind!r}")
     path = Path(path)
-    frame = read_series(path)
+    frame = read_series(path, options)
     if kind == "prices":
         log_returns(frame, str(path))  # refuses zero, negative and non-finite prices
     return Source(str(path), checksum_bytes(path.read_bytes()), kind, frame)
@@ -205,7 +212,10 @@ def _ingest_one(store: Store, conn, src: Source, accept: bool) -> IngestReport:
                             new, revised, cov, ingest_id)
 
     table = prices if src.kind == "prices" else returns
-    new_rows, changed = _compare(store.stored_values(conn, table, assets), tidy)
+    stored = store.stored_values(conn, table, assets)
+    new_rows, changed = _compare(stored, tidy)
+    if src.kind == "prices":
+        _refuse_lone_prices(src, tidy, stored, new_rows)
     if len(changed) and not accept:
         _refuse_revision(src, changed, "price" if src.kind == "prices" else "return")
     if new_rows.empty and changed.empty:
@@ -236,6 +246,36 @@ def _ingest_one(store: Store, conn, src: Source, accept: bool) -> IngestReport:
     for asset, day in revised_returns.groupby("asset")["date"].min().items():
         store.invalidate_from(conn, asset, pd.Timestamp(day).date())
     return report("stored", len(new_rows), len(changed), ingest_id)
+
+
+def _refuse_lone_prices(src: Source, tidy: pd.DataFrame, stored: pd.DataFrame,
+                        new_rows: pd.DataFrame) -> None:
+    """Refuse a source in which a new price of some asset can give no return: the asset's only
+    price in the source, with no earlier price of it stored (a new asset in a one-day file).
+
+    Notes
+    -----
+    A log return ln(P_t / P_s) needs the asset's previous price P_s: in the source, or
+    stored. A price already stored with the same value changes nothing and is not checked
+    (the same day's file again is idempotent).
+    """
+    if new_rows.empty:
+        return
+    counts = tidy.groupby("asset")["date"].agg(["count", "min"])
+    lone = counts[counts["count"] == 1]
+    lone = lone[lone.index.isin(new_rows["asset"].unique())]
+    if lone.empty:
+        return
+    earliest = stored.groupby("asset")["date"].min()
+    for asset, row in lone.sort_values("min").iterrows():
+        before = earliest.get(asset)
+        if before is None or before >= row["min"]:
+            when = "" if before is None else f" before {pd.Timestamp(before).date()}"
+            days = "a one-day file" if src.frame.shape[0] == 1 else "the file"
+            raise InputError(
+                f"{src.name}: {row['min'].date()}, column {asset!r}: the store holds no earlier "
+                f"price of {asset!r}{when}, so this price gives no return ({days} of closes "
+                "needs each asset's previous close); a new asset needs a history file first")
 
 
 def _derive_returns(store: Store, conn, src: Source, touched: pd.Series, accept: bool):

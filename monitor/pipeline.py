@@ -16,10 +16,9 @@ from itertools import combinations
 
 import numpy as np
 import pandas as pd
-from tqdm import tqdm
 
 from . import alerts
-from .config import Config, SourceConfig
+from .config import Config, SourceConfig, source_read_options
 from .errors import InputError
 from .ingest import (
     IngestReport,
@@ -30,6 +29,7 @@ from .ingest import (
     read_sql_table_source,
 )
 from .marginals import FilteredSeries, MarginalSettings, extend_series, filter_series
+from .progress import StepProgress
 from .rolling import CHAIN_FROM, PairWindows, RollingSettings, batch_metrics, window_end_positions
 from .signals import TAILS, PairSignals, Resume, SignalSettings, context_rows, pair_signals
 from .store import Store, outbox
@@ -50,7 +50,8 @@ def read_configured_sources(cfg: Config) -> list[Source]:
 
 def _read_source(src: SourceConfig, i: int) -> list[Source]:
     if src.path:
-        return [read_file_source(p, src.kind) for p in expand_paths(src.path)]
+        options = source_read_options(src, f"sources[{i}]")
+        return [read_file_source(p, src.kind, options) for p in expand_paths(src.path)]
     url = src.url or os.environ.get(src.url_env, "")
     if not url:
         raise InputError(f"sources[{i}]: environment variable {src.url_env} is not set")
@@ -68,6 +69,8 @@ class MarginalSummary:
     recomputed: tuple[str, ...]
     fallbacks: dict[str, int]
     skipped: dict[str, str] = field(default_factory=dict)
+    #: Stored returns per asset (every asset, filtered or not).
+    held: dict[str, int] = field(default_factory=dict)
 
     def lines(self) -> list[str]:
         out = [(f"marginals ({self.settings_key}): {self.filtered} asset(s) filtered, "
@@ -111,19 +114,18 @@ def update_marginals(store: Store, cfg: Config, *, progress: bool = True) -> Mar
     settings = marginal_settings(cfg)
     key = settings.key
     returns = store.read_returns()
-    todo, skipped = [], {}
+    todo, skipped, held = [], {}, {}
     for asset in returns.columns:
         series = returns[asset].dropna()
         series.name = asset
+        held[str(asset)] = len(series)
         if len(series) < settings.min_returns:
             skipped[asset] = (f"{len(series)} returns, the filter needs {settings.min_returns}")
             continue
         todo.append((key, asset, series, settings))
     results: list[tuple[str, FilteredSeries, bool, FilteredSeries | None]] = []
     workers = min(_workers(cfg), max(len(todo), 1))
-    bar = tqdm(total=len(todo), desc="marginals", unit="asset", disable=not progress or None,
-               leave=False)
-    try:
+    with StepProgress("marginals", len(todo), "asset", enabled=progress) as bar:
         if workers > 1 and len(todo) > 1:
             with ProcessPoolExecutor(workers, initializer=_open_worker_store,
                                      initargs=(store.url,)) as pool:
@@ -134,8 +136,6 @@ def update_marginals(store: Store, cfg: Config, *, progress: bool = True) -> Mar
             for args in todo:
                 results.append(_filter_one(store, *args))
                 bar.update()
-    finally:
-        bar.close()
     results = [r for r in results if r is not None]
     written = 0
     with store.transaction() as conn:
@@ -145,7 +145,7 @@ def update_marginals(store: Store, cfg: Config, *, progress: bool = True) -> Mar
         settings_key=key, filtered=len(results), new_residuals=written,
         recomputed=tuple(sorted(a for a, _, redone, _ in results if redone)),
         fallbacks={a: fs.n_fallback for a, fs, _, _ in results if fs.n_fallback},
-        skipped=skipped)
+        skipped=skipped, held=held)
 
 
 def _workers(cfg: Config) -> int:
@@ -312,9 +312,7 @@ def _run_tasks(tasks: list[_PairTask], settings: RollingSettings, cfg: Config,
     configured backend."""
     workers = _workers(cfg)
     batches = _batches(tasks, 1 if cfg.compute.backend == "dask" else workers)
-    bar = tqdm(total=len(tasks), desc="rolling", unit="pair", disable=not progress or None,
-               leave=False)
-    try:
+    with StepProgress("rolling", len(tasks), "pair", enabled=progress) as bar:
         if cfg.compute.backend == "dask":
             from distributed import Client
             from distributed import as_completed as dask_completed
@@ -338,8 +336,6 @@ def _run_tasks(tasks: list[_PairTask], settings: RollingSettings, cfg: Config,
                 done = _pair_batch(b, settings)
                 yield done
                 bar.update(len(done))
-    finally:
-        bar.close()
 
 
 def update_rolling(store: Store, cfg: Config, *, progress: bool = True) -> RollingSummary:
@@ -562,8 +558,8 @@ def _signals_task(job: _SignalJob) -> _PairSignalsOut | None:
 SIGNAL_CHUNK = 32
 
 
-def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | None = None
-                   ) -> SignalSummary:
+def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | None = None,
+                   *, progress: bool = False) -> SignalSummary:
     """Bring every pair's signals up to its stored timeline and store its episodes, state
     runs and alert messages, in transactions of up to :data:`SIGNAL_CHUNK` pairs; then
     complete the stored universe summary.
@@ -598,11 +594,13 @@ def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | Non
     pool = (ProcessPoolExecutor(workers, initializer=_open_worker_store,
                                 initargs=(store.url,))
             if workers > 1 and len(todo) > 1 else None)
+    bar = StepProgress("signals", len(jobs), "pair", enabled=progress)
     try:
         results = (pool.map(_signals_task, jobs, chunksize=8) if pool
                    else (_pair_signals_job(store, j) for j in jobs))
         chunk: list[_PairSignalsOut] = []
         for out in results:
+            bar.update()
             if out is None:
                 continue
             if out.alert_tails:
@@ -613,9 +611,13 @@ def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | Non
                 chunk = []
         if chunk:
             counts = _add(counts, _store_signals(store, cfg, r_key, key, chunk))
+    except BaseException:
+        bar.close(failed=True)
+        raise
     finally:
         if pool is not None:
             pool.shutdown()
+    bar.close()
     new_n, ended_n, queued = counts
     stored = store.universe_range(key)
     stored_to = None if stored is None else stored[1]
@@ -662,12 +664,71 @@ def read_universe_summary(store: Store, cfg: Config) -> pd.DataFrame:
 
 
 @dataclass(frozen=True, slots=True)
+class HistoryNeed:
+    """How many returns an asset needs before its pairs have a first full window.
+
+    ``warmup`` returns go to the marginal filter before its first residual (real-time: the
+    first estimation sample ``min_obs`` plus the return held back as the AR lag; in-sample:
+    the lag alone, with at least ``min_obs + 1`` returns in all), then ``window`` residuals
+    fill the first window; ``total`` is what an asset needs in all.
+    """
+
+    mode: str
+    warmup: int
+    window: int
+    total: int
+
+    def explain(self) -> str:
+        if self.mode == "real-time":
+            return (f"{self.warmup} (filter warm-up: {self.warmup - 1} returns and 1 lag) + "
+                    f"{self.window} (window) = {self.total}")
+        if self.total == self.window + 1:
+            return f"1 (lag) + {self.window} (window) = {self.total}"
+        return (f"{self.total} (the in-sample filter's least; a window needs "
+                f"1 (lag) + {self.window})")
+
+
+def history_need(cfg: Config) -> HistoryNeed:
+    """Returns an asset needs for a first window under the configuration (see
+    :class:`HistoryNeed`; :mod:`monitor.marginals` gives the residual schedule)."""
+    m = marginal_settings(cfg)
+    window = cfg.rolling.window
+    if m.mode == "real-time":
+        return HistoryNeed(m.mode, m.min_returns, window, m.min_returns + window)
+    return HistoryNeed(m.mode, 1, window, max(m.min_returns, window + 1))
+
+
+@dataclass(frozen=True, slots=True)
 class UpdateSummary:
     ingested: tuple[IngestReport, ...]
     marginals: MarginalSummary
     rolling: RollingSummary
     signals: SignalSummary
     seconds: float
+    #: Returns an asset needs for a first window, and whether any window end is stored.
+    need: HistoryNeed | None = None
+    has_windows: bool = True
+
+    def short_assets(self) -> dict[str, int]:
+        """Assets with fewer returns than a first window needs (their returns held)."""
+        if self.need is None:
+            return {}
+        return {a: n for a, n in sorted(self.marginals.held.items()) if n < self.need.total}
+
+    def shortfall(self) -> str | None:
+        """Why the update computed no window end at all (None when some are stored)."""
+        if self.has_windows or self.need is None:
+            return None
+        held = sorted(self.marginals.held.items())
+        shown = ", ".join(f"{a} {n}" if k else f"{a} has {n} returns"
+                          for k, (a, n) in enumerate(held[:12]))
+        more = f" and {len(held) - 12} more" if len(held) > 12 else ""
+        if self.short_assets():
+            return (f"no pair has a full window yet: {shown}{more}; each needs "
+                    f"{self.need.explain()}")
+        return (f"no pair has a full window yet: {shown}{more}, but no pair has "
+                f"{self.need.window} common dates of residuals (the assets trade on different "
+                "days); see the Inputs page or 'comove export returns'")
 
     def lines(self) -> list[str]:
         out = []
@@ -675,19 +736,61 @@ class UpdateSummary:
             out.extend(rep.lines())
         out.extend(self.marginals.lines())
         out.extend(self.rolling.lines())
+        short = self.short_assets()
+        if short and self.has_windows:
+            out.append("  too little history for a first window yet: "
+                       + ", ".join(f"{a} {n} returns" for a, n in short.items())
+                       + f" (each needs {self.need.explain()})")
         out.extend(self.signals.lines())
         out.append(f"update finished in {self.seconds:.1f} s")
         return out
 
 
+def _open_store(cfg: Config, create: bool) -> Store:
+    """The configured store; a missing or empty one names the working directory, since a
+    relative SQLite path (the default) is read from there."""
+    try:
+        store = Store(cfg.store.url, create=create)
+    except InputError as exc:
+        raise InputError(f"{exc}; is this the right working directory ({os.getcwd()})?"
+                         ) from None
+    if not store.assets():
+        shown = store.shown_url
+        store.close()
+        raise InputError(f"store {shown} holds no returns: ingest a history file first (is "
+                         f"this the right working directory? it is {os.getcwd()})")
+    return store
+
+
 def run_update(cfg: Config, *, progress: bool = True) -> UpdateSummary:
     """The whole daily job: configured sources, marginals, the rolling engine, signals (then,
-    as it arrives, the alert queue)."""
+    as it arrives, the alert queue).
+
+    Raises
+    ------
+    InputError
+        No store at the configured URL (and no ``[[sources]]`` to fill one), or a store
+        holding no returns: the job would do nothing (a wrong working directory, say).
+
+    Notes
+    -----
+    A universe with too little history for any window is not an error here: the summary's
+    :meth:`UpdateSummary.shortfall` says how many returns each asset has and needs (the
+    ``comove update`` command exits 2 with it).
+    """
     t0 = time.perf_counter()
     sources = read_configured_sources(cfg)
-    with Store(cfg.store.url) as store:
-        ingested = tuple(ingest_sources(store, sources)) if sources else ()
+    if sources:
+        with Store(cfg.store.url) as store, StepProgress("sources", len(sources), "source",
+                                                         enabled=progress) as bar:
+            ingested = tuple(ingest_sources(store, sources))
+            bar.update(len(sources))
+    else:
+        ingested = ()
+    with _open_store(cfg, create=False) as store:
         marg = update_marginals(store, cfg, progress=progress)
         roll = update_rolling(store, cfg, progress=progress)
-        sig = update_signals(store, cfg)
-    return UpdateSummary(ingested, marg, roll, sig, time.perf_counter() - t0)
+        sig = update_signals(store, cfg, progress=progress)
+        has_windows = store.latest_window_end(rolling_key(cfg)) is not None
+    return UpdateSummary(ingested, marg, roll, sig, time.perf_counter() - t0,
+                         history_need(cfg), has_windows)

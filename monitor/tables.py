@@ -5,13 +5,22 @@ columns ``date, asset, value``. Column names are matched case-insensitively for 
 ``asset`` and ``value``. An empty cell means the asset has no value on that date (holidays
 and gaps are normal); anything else that is not a finite number refuses the whole file with
 an :class:`~monitor.errors.InputError` naming file, line, date and column.
+
+Files as spreadsheets and terminals export them are read with :class:`ReadOptions`: another
+field separator, a decimal comma, a thousands separator, a date layout other than ISO 8601,
+and the names of a long file's date, asset and value columns. Nothing is guessed: a file that
+looks like one of these is refused with a message naming the option that reads it (a
+day-first date such as 03/04/2020 is ambiguous until a date format is given).
 """
 
 from __future__ import annotations
 
 import csv
+import datetime as dt
 import io
 import re
+from collections.abc import Mapping
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -20,6 +29,140 @@ import pandas as pd
 from .errors import InputError
 
 _PARQUET_MAGIC = b"PAR1"
+#: An OLE2 compound file (legacy .xls) and the zip container of .xlsx/.xlsm/.ods.
+_OLE_MAGIC = b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1"
+_ZIP_MAGIC = b"PK\x03\x04"
+_SPREADSHEET_SUFFIXES = (".xlsx", ".xlsm", ".xls", ".xlsb", ".ods")
+
+#: Field separators a header is checked for when it reads as a single column.
+_SEPARATORS = (";", "\t", "|", ",")
+#: Thousands separators accepted (none, comma, point, space, apostrophe, underscore).
+_THOUSANDS = ("", ",", ".", " ", "'", "_")
+_ROLES = ("date", "asset", "value")
+
+
+@dataclass(frozen=True, slots=True)
+class ReadOptions:
+    """How to read a CSV file's cells (build with :func:`read_options`, which checks them).
+
+    Parameters
+    ----------
+    sep : str
+        Field separator, one character (default ``","``).
+    decimal : str
+        Decimal mark of numbers, ``"."`` (default) or ``","``.
+    thousands : str
+        Thousands separator inside numbers, ``""`` (none, default), ``","``, ``"."``, ``" "``,
+        ``"'"`` or ``"_"``; digits must then come in groups of three.
+    date_format : str
+        A ``strftime`` layout such as ``"%d/%m/%Y"``; empty (default) reads ISO 8601 dates.
+    columns : tuple of (role, name)
+        File columns holding the ``date``, ``asset`` and ``value`` roles: ``date`` alone
+        renames a wide file's date column, ``asset`` with ``value`` reads a long file from
+        those three columns (any other column is left out by this choice).
+    style : {"option", "key"}
+        How messages name a suggested setting: ``--sep ';'`` (command line) or ``sep = ';'``
+        (a ``[[sources]]`` entry).
+    """
+
+    sep: str = ","
+    decimal: str = "."
+    thousands: str = ""
+    date_format: str = ""
+    columns: tuple[tuple[str, str], ...] = ()
+    style: str = "option"
+
+    def suggest(self, name: str, value: str) -> str:
+        """A setting as the user writes it: ``--date-format '%d/%m/%Y'`` or
+        ``date_format = '%d/%m/%Y'``."""
+        if self.style == "key":
+            return f"{name} = {value!r}"
+        shown = "'\\t'" if value == "\t" else (
+            value if re.fullmatch(r"[\w.,=%/-]+", value) and "%" not in value else f"'{value}'")
+        return f"--{name.replace('_', '-')} {shown}"
+
+
+def parse_columns(text: str, where: str = "--columns") -> dict[str, str]:
+    """``"date=Date,asset=Ticker,value=Close"`` as ``{"date": "Date", ...}`` (checked by
+    :func:`read_options`)."""
+    out: dict[str, str] = {}
+    for part in (p.strip() for p in text.split(",")):
+        role, eq, name = part.partition("=")
+        if not eq or not role.strip() or not name.strip():
+            raise InputError(f"{where}: {part!r} is not of the form ROLE=COLUMN (e.g. "
+                             "date=Date,asset=Ticker,value=Close)")
+        role = role.strip().lower()
+        if role in out:
+            raise InputError(f"{where}: {role!r} is given twice")
+        out[role] = name.strip()
+    return out
+
+
+def read_options(*, sep: str = ",", decimal: str = ".", thousands: str = "",
+                 date_format: str = "", columns: Mapping[str, str] | None = None,
+                 names: Mapping[str, str] | None = None, style: str = "option"
+                 ) -> ReadOptions:
+    """Check reading options and return them as :class:`ReadOptions`.
+
+    Parameters
+    ----------
+    sep, decimal, thousands, date_format
+        As :class:`ReadOptions`; ``sep`` may also be written ``"\\t"`` or ``"tab"``.
+    columns : mapping, optional
+        Role (``date``, ``asset``, ``value``) to file column name.
+    names : mapping, optional
+        How messages name each setting (default the command-line options, ``--sep`` ...).
+    style : {"option", "key"}
+        See :class:`ReadOptions`.
+
+    Raises
+    ------
+    InputError
+        A separator that is not one plain character, an unknown decimal mark or thousands
+        separator, equal decimal and thousands marks, a date format without year, month and
+        day, an unknown column role, or ``asset`` without ``value``.
+    """
+    label = {k: f"--{k.replace('_', '-')}" for k in ("sep", "decimal", "thousands",
+                                                    "date_format", "columns")}
+    label.update(names or {})
+    if sep in ("\\t", "tab"):
+        sep = "\t"
+    if len(sep) != 1 or sep in "\"'\r\n" or sep.isalnum() or sep in ".":
+        raise InputError(f"{label['sep']}: {sep!r} is not a field separator (one character "
+                         "such as ',' ';' '|' or tab)")
+    if decimal not in (".", ","):
+        raise InputError(f"{label['decimal']} must be '.' or ',', got {decimal!r}")
+    if thousands not in _THOUSANDS:
+        raise InputError(f"{label['thousands']} must be one of "
+                         f"{', '.join(repr(t) for t in _THOUSANDS if t)}, got {thousands!r}")
+    if thousands == decimal:
+        raise InputError(f"{label['thousands']} {thousands!r} is also the decimal mark")
+    if date_format:
+        probe = dt.date(2001, 12, 25)
+        try:
+            back = dt.datetime.strptime(probe.strftime(date_format), date_format).date()
+        except ValueError:
+            back = None
+        if back != probe:
+            raise InputError(f"{label['date_format']}: {date_format!r} is not a date layout "
+                             "with year, month and day (e.g. '%d/%m/%Y')")
+    pairs: list[tuple[str, str]] = []
+    for role, name in (columns or {}).items():
+        if role not in _ROLES:
+            raise InputError(f"{label['columns']}: unknown role {role!r}; roles: "
+                             f"{', '.join(_ROLES)}")
+        if name:
+            pairs.append((role, name))
+    given = {r for r, _ in pairs}
+    if ("asset" in given) != ("value" in given):
+        raise InputError(f"{label['columns']}: a long file needs both asset and value "
+                         "(and date unless its date column is named date)")
+    if len({n for _, n in pairs}) != len(pairs):
+        raise InputError(f"{label['columns']}: one column is given two roles")
+    return ReadOptions(sep, decimal, thousands, date_format, tuple(pairs), style)
+
+
+DEFAULT_OPTIONS = ReadOptions()
 
 
 def _where(i: int, lines: np.ndarray | None) -> str:
@@ -33,7 +176,31 @@ def _show(cell: object, limit: int = 40) -> str:
     return repr(text if len(text) <= limit else text[:limit - 3] + "...")
 
 
-def _parse_dates(raw: pd.Series, path: str, lines: np.ndarray | None) -> pd.DatetimeIndex:
+_SLASHED = re.compile(r"^(\d{1,2})([/.-])(\d{1,2})\2(\d{4}|\d{2})$")
+
+
+def _date_layout_hint(text: pd.Series, example: str, options: ReadOptions) -> str | None:
+    """For a date like 03/04/2020: which ``--date-format`` reads the file, never a guess."""
+    m = _SLASHED.match(example)
+    if m is None:
+        return None
+    sep, year = m.group(2), "%Y" if len(m.group(4)) == 4 else "%y"
+    found = text.str.extract(_SLASHED.pattern).dropna()
+    first, second = found[0].astype(int), found[2].astype(int)
+    day_first = f"%d{sep}%m{sep}{year}"
+    month_first = f"%m{sep}%d{sep}{year}"
+    if (first > 12).any() and (second <= 12).all():
+        return (f"dates like {example} are day-first: give "
+                f"{options.suggest('date_format', day_first)}")
+    if (second > 12).any() and (first <= 12).all():
+        return (f"dates like {example} are month-first: give "
+                f"{options.suggest('date_format', month_first)}")
+    return (f"dates like {example} could be day-first or month-first; give "
+            f"{options.suggest('date_format', day_first)} or '{month_first}'")
+
+
+def _parse_dates(raw: pd.Series, path: str, lines: np.ndarray | None,
+                 options: ReadOptions = DEFAULT_OPTIONS) -> pd.DatetimeIndex:
     if pd.api.types.is_datetime64_any_dtype(raw):
         dates = pd.DatetimeIndex(raw)
         bad = np.flatnonzero(dates.isna())
@@ -41,8 +208,9 @@ def _parse_dates(raw: pd.Series, path: str, lines: np.ndarray | None) -> pd.Date
             raise InputError(f"{path}: {_where(int(bad[0]), lines)}: the date is missing")
     else:
         text = raw.astype("string").str.strip()
+        fmt = options.date_format or "ISO8601"
         try:
-            parsed = pd.to_datetime(text, format="ISO8601", errors="coerce")
+            parsed = pd.to_datetime(text, format=fmt, errors="coerce")
         except ValueError:
             # errors="coerce" does not cover dates that mix time zones (or a zone and none).
             raise InputError(f"{path}: the dates mix time zones; give plain YYYY-MM-DD "
@@ -51,26 +219,84 @@ def _parse_dates(raw: pd.Series, path: str, lines: np.ndarray | None) -> pd.Date
         bad = np.flatnonzero(dates.isna())
         if bad.size:
             i = int(bad[0])
-            raise InputError(f"{path}: {_where(i, lines)}: cannot read date "
-                             f"{_show(raw.iloc[i])} (expected YYYY-MM-DD)")
+            where = f"{path}: {_where(i, lines)}"
+            if options.date_format:
+                raise InputError(f"{where}: cannot read date {_show(raw.iloc[i])} (expected "
+                                 f"{options.suggest('date_format', options.date_format)})")
+            example = str(text.iloc[i]) if pd.notna(text.iloc[i]) else ""
+            hint = _date_layout_hint(text.fillna(""), example, options)
+            if hint is not None:
+                raise InputError(f"{where}: {hint}")
+            tail = "" if not example or re.match(r"^\d{4}", example) else (
+                ", or give the layout, e.g. " + options.suggest("date_format", "%d.%m.%Y"))
+            raise InputError(f"{where}: cannot read date {_show(raw.iloc[i])} "
+                             f"(expected YYYY-MM-DD{tail})")
     if dates.tz is not None:
         dates = dates.tz_localize(None)
     return dates.normalize()
 
 
+def _number_hint(cell: str, options: ReadOptions) -> str | None:
+    """The option that would read a number written with other marks, e.g. ``1.234,56``."""
+    sign = r"[+-]?"
+    if options.decimal == ".":
+        if re.fullmatch(sign + r"\d{1,3}(\.\d{3})+,\d*", cell) or (
+                re.fullmatch(sign + r"\d{1,3}(\.\d{3}){2,}", cell)):
+            return (f"give {options.suggest('decimal', ',')} "
+                    f"{options.suggest('thousands', '.')}")
+        if options.thousands != "," and re.fullmatch(sign + r"\d{1,3}(,\d{3})+(\.\d*)?", cell):
+            if re.fullmatch(sign + r"\d{1,3},\d{3}", cell):
+                return (f"give {options.suggest('decimal', ',')} if ',' is the decimal mark, "
+                        f"or {options.suggest('thousands', ',')} if it separates thousands")
+            return f"give {options.suggest('thousands', ',')}"
+        if re.fullmatch(sign + r"\d*,\d+", cell):
+            return f"give {options.suggest('decimal', ',')}"
+    else:
+        if options.thousands != "." and re.fullmatch(sign + r"\d{1,3}(\.\d{3})+(,\d*)?", cell):
+            return f"give {options.suggest('thousands', '.')}"
+        if options.thousands != "," and re.fullmatch(sign + r"\d*\.\d+", cell):
+            return f"'.' is not the decimal mark given ({options.suggest('decimal', ',')})"
+    if options.thousands and options.thousands in cell:
+        return f"digits must come in groups of three around the thousands separator " \
+               f"{options.thousands!r}"
+    return None
+
+
+def _normalise_numbers(text: pd.Series, options: ReadOptions) -> tuple[pd.Series, np.ndarray]:
+    """Text of numbers with the file's marks rewritten to plain ``1234.5``; also a mask of
+    cells whose marks do not fit the options (thousands not in groups of three, a point
+    where the decimal mark is a comma)."""
+    bad = np.zeros(len(text), dtype=bool)
+    if options.thousands:
+        t = re.escape(options.thousands)
+        d = re.escape(options.decimal)
+        has = text.str.contains(t, regex=True).to_numpy(dtype=bool)
+        grouped = text.str.fullmatch(rf"[+-]?\d{{1,3}}({t}\d{{3}})+({d}\d*)?").to_numpy(
+            dtype=bool)
+        bad |= has & ~grouped
+        text = text.str.replace(options.thousands, "", regex=False)
+    if options.decimal != ".":
+        bad |= text.str.contains(".", regex=False).to_numpy(dtype=bool)
+        text = text.str.replace(options.decimal, ".", regex=False)
+    return text, bad
+
+
 def _parse_numbers(raw: pd.Series, path: str, column: str, dates: pd.DatetimeIndex,
-                   lines: np.ndarray | None) -> np.ndarray:
+                   lines: np.ndarray | None, options: ReadOptions = DEFAULT_OPTIONS,
+                   long_hint: str | None = None) -> np.ndarray:
     """Numbers of one column; empty cells become NaN (= no value on that date)."""
     if pd.api.types.is_numeric_dtype(raw) and not pd.api.types.is_bool_dtype(raw):
         values = raw.to_numpy(dtype=float, na_value=np.nan)
         text_bad = np.zeros(values.size, dtype=bool)
         nonfinite = np.isinf(values)
+        text = None
     else:
         text = raw.astype("string").str.strip().fillna("")
         empty = (text == "").to_numpy()
-        values = pd.to_numeric(text.where(~empty, None), errors="coerce").to_numpy(
+        plain, marks_bad = _normalise_numbers(text, options)
+        values = pd.to_numeric(plain.where(~empty, None), errors="coerce").to_numpy(
             dtype=float, na_value=np.nan)
-        text_bad = np.isnan(values) & ~empty
+        text_bad = (np.isnan(values) & ~empty) | marks_bad
         # "nan" and "inf" parse as numbers; they are not data.
         lowered = text.str.lower()
         text_bad |= lowered.isin(["nan", "+nan", "-nan"]).to_numpy()
@@ -78,12 +304,19 @@ def _parse_numbers(raw: pd.Series, path: str, column: str, dates: pd.DatetimeInd
     bad = np.flatnonzero(text_bad | nonfinite)
     if bad.size:
         i = int(bad[0])
-        raise InputError(f"{path}: {_where(i, lines)} ({dates[i].date()}), column {column!r}: "
-                         f"{_show(raw.iloc[i])} is not a finite number")
+        message = (f"{path}: {_where(i, lines)} ({dates[i].date()}), column {column!r}: "
+                   f"{_show(raw.iloc[i])} is not a finite number")
+        hint = None if text is None else _number_hint(str(text.iloc[i]), options)
+        if hint is None and long_hint is not None and text is not None and not nonfinite[i]:
+            filled = ~empty
+            if filled.any() and text_bad[filled].all():
+                hint = long_hint  # a whole column of text: a long file's asset names
+        raise InputError(message + (f"; {hint}" if hint else ""))
     return values
 
 
-def _read_csv(path: Path, data: bytes) -> tuple[pd.DataFrame, np.ndarray]:
+def _read_csv(path: Path, data: bytes, options: ReadOptions = DEFAULT_OPTIONS
+              ) -> tuple[pd.DataFrame, np.ndarray]:
     """Cells of a CSV file as text, with the file line of every data row.
 
     The csv module rather than pandas' reader, because pandas renames a repeated header name
@@ -97,7 +330,8 @@ def _read_csv(path: Path, data: bytes) -> tuple[pd.DataFrame, np.ndarray]:
         line = data[:exc.start].count(b"\n") + 1
         raise InputError(f"{path}: line {line}: not UTF-8 text, expected CSV or "
                          "Parquet") from None
-    reader = csv.reader(io.StringIO(text, newline=""), skipinitialspace=True, strict=True)
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=options.sep,
+                        skipinitialspace=options.sep != " ", strict=True)
     header: list[str] | None = None
     rows: list[list[str]] = []
     lines: list[int] = []
@@ -109,6 +343,7 @@ def _read_csv(path: Path, data: bytes) -> tuple[pd.DataFrame, np.ndarray]:
                 continue  # a blank line (or only separators) holds no data to lose
             if header is None:
                 header = row
+                _check_separator(path, first, header, options)
                 continue
             if len(row) != len(header):
                 raise InputError(f"{path}: line {first}: {len(row)} fields where the header "
@@ -124,7 +359,20 @@ def _read_csv(path: Path, data: bytes) -> tuple[pd.DataFrame, np.ndarray]:
     return frame, np.asarray(lines, dtype=int)
 
 
-def _read_raw(path: Path) -> tuple[pd.DataFrame, np.ndarray | None]:
+def _check_separator(path: Path, line: int, header: list[str], options: ReadOptions) -> None:
+    """A header read as one column that holds another separator: name the option."""
+    if len(header) != 1:
+        return
+    for sep in _SEPARATORS:
+        if sep != options.sep and sep in header[0]:
+            shown = "tab" if sep == "\t" else repr(sep)
+            raise InputError(f"{path}: line {line}: the header {_show(header[0])} reads as one "
+                             f"column; its fields look separated by {shown}: give "
+                             f"{options.suggest('sep', sep)}")
+
+
+def _read_raw(path: Path, options: ReadOptions = DEFAULT_OPTIONS
+              ) -> tuple[pd.DataFrame, np.ndarray | None]:
     """The file's cells and, for a CSV, the file line of each row (None for Parquet)."""
     if not path.exists():
         raise InputError(f"{path}: file not found")
@@ -133,6 +381,10 @@ def _read_raw(path: Path) -> tuple[pd.DataFrame, np.ndarray | None]:
     data = path.read_bytes()
     if not data:
         raise InputError(f"{path}: file is empty")
+    if (path.suffix.lower() in _SPREADSHEET_SUFFIXES or data.startswith(_OLE_MAGIC)
+            or (data.startswith(_ZIP_MAGIC) and (b"xl/" in data[:4096]
+                                                 or b"opendocument.spreadsheet" in data[:4096]))):
+        raise InputError(f"{path}: Excel files are not read; save the sheet as CSV")
     if data.startswith(_PARQUET_MAGIC):
         try:
             frame = pd.read_parquet(path)
@@ -144,7 +396,7 @@ def _read_raw(path: Path) -> tuple[pd.DataFrame, np.ndarray | None]:
         return frame, None
     if b"\x00" in data:
         raise InputError(f"{path}: binary file, expected CSV or Parquet")
-    return _read_csv(path, data)
+    return _read_csv(path, data, options)
 
 
 def _check_header(names: list[str], path: Path) -> None:
@@ -161,13 +413,17 @@ def _check_header(names: list[str], path: Path) -> None:
         seen[key] = k
 
 
-def read_series(path: str | Path) -> pd.DataFrame:
+def read_series(path: str | Path, options: ReadOptions | None = None) -> pd.DataFrame:
     """Read a wide or long series file into a wide frame.
 
     Parameters
     ----------
     path : str or Path
         CSV or Parquet file.
+    options : ReadOptions, optional
+        Separator, decimal and thousands marks, date layout, column roles (default: comma,
+        point, none, ISO 8601, columns named ``date`` / ``asset`` / ``value``). Parquet cells
+        are typed, so only ``date_format`` (for text dates) and ``columns`` apply to them.
 
     Returns
     -------
@@ -181,36 +437,86 @@ def read_series(path: str | Path) -> pd.DataFrame:
         Missing, empty, binary or unreadable file; header only; a header column without a
         name or named twice; a row with more or fewer fields than the header; no date column;
         an unparseable date; text or a non-finite number in a value column; a duplicated date
-        (or date and asset) with different values; a column with no values; a single row.
+        (or date and asset) with different values; a column with no values; an Excel file.
+        Where another option would read the file (a separator, decimal or thousands mark,
+        date layout, long-file columns), the message names it.
+
+    Notes
+    -----
+    A single row (one date) is a valid file: whether it gives returns depends on what is
+    already stored (see :func:`monitor.ingest.ingest_sources`).
     """
     path = Path(path)
-    frame, lines = _read_raw(path)
-    return tidy_frame(frame, path, lines)
+    options = options or DEFAULT_OPTIONS
+    frame, lines = _read_raw(path, options)
+    return tidy_frame(frame, path, lines, options)
 
 
-def tidy_frame(frame: pd.DataFrame, path: str | Path, lines: np.ndarray | None = None
-               ) -> pd.DataFrame:
+def _map_columns(frame: pd.DataFrame, names: list[str], path: str | Path,
+                 options: ReadOptions) -> tuple[pd.DataFrame, list[str]]:
+    """Apply ``options.columns``: rename the date column, or pick a long file's three."""
+    if not options.columns:
+        return frame, names
+    exact = {n: k for k, n in enumerate(names)}
+    folded = {n.lower(): k for k, n in enumerate(names)}
+    picked: dict[str, int] = {}
+    for role, name in options.columns:
+        k = exact.get(name, folded.get(name.lower()))
+        if k is None:
+            raise InputError(f"{path}: {options.suggest('columns', f'{role}={name}')}: no "
+                             f"column {name!r} (columns: {', '.join(names)})")
+        picked[role] = k
+    if "asset" in picked:
+        if "date" not in picked:
+            k = folded.get("date")
+            if k is None:
+                raise InputError(f"{path}: no 'date' column (columns: {', '.join(names)}); "
+                                 "name it in the column roles, e.g. "
+                                 f"{options.suggest('columns', 'date=Date,asset=..,value=..')}")
+            picked["date"] = k
+        order = [picked[r] for r in _ROLES]
+        out = frame.iloc[:, order].copy()
+        out.columns = list(_ROLES)
+        return out, list(_ROLES)
+    k = picked["date"]
+    renamed = [("date" if j == k else n) for j, n in enumerate(names)]
+    for j, n in enumerate(names):
+        if j != k and n.lower() == "date":
+            raise InputError(f"{path}: column {j + 1} is also named {n!r}; only the column "
+                             f"{names[k]!r} holds the dates")
+    frame.columns = renamed
+    return frame, renamed
+
+
+def tidy_frame(frame: pd.DataFrame, path: str | Path, lines: np.ndarray | None = None,
+               options: ReadOptions | None = None) -> pd.DataFrame:
     """Check a raw table of cells (wide or long, as read from a file or a SQL query) and
     return the wide frame :func:`read_series` describes; ``path`` names the source in
-    messages and ``lines`` gives each row's file line (None: rows are numbered from 1)."""
+    messages and ``lines`` gives each row's file line (None: rows are numbered from 1);
+    ``options`` as in :func:`read_series`."""
+    options = options or DEFAULT_OPTIONS
     if frame.shape[1] == 0:
         raise InputError(f"{path}: file is empty")
     if frame.shape[0] == 0:
         raise InputError(f"{path}: header only, no data rows")
     names = [str(c).strip() for c in frame.columns]
+    frame, names = _map_columns(frame, names, path, options)
     _check_header(names, path)
     frame.columns = names
     lower = {n.lower(): n for n in names}
     if "date" not in lower:
-        raise InputError(f"{path}: no 'date' column (columns: {', '.join(names)})")
-    dates = _parse_dates(frame[lower["date"]], str(path), lines)
+        raise InputError(f"{path}: no 'date' column (columns: {', '.join(names)}); give "
+                         f"{options.suggest('columns', 'date=' + names[0])} if {names[0]!r} "
+                         "holds the dates")
+    dates = _parse_dates(frame[lower["date"]], str(path), lines, options)
     long = set(lower) == {"date", "asset", "value"} and len(names) == 3
     if long:
         assets = frame[lower["asset"]].astype("string").str.strip().fillna("")
         blank = np.flatnonzero((assets == "").to_numpy())
         if blank.size:
             raise InputError(f"{path}: {_where(int(blank[0]), lines)}: empty asset name")
-        values = _parse_numbers(frame[lower["value"]], str(path), "value", dates, lines)
+        values = _parse_numbers(frame[lower["value"]], str(path), "value", dates, lines,
+                                options)
         tidy = pd.DataFrame({"date": dates, "asset": assets.to_numpy(dtype=object),
                              "value": values})
         tidy = tidy.dropna(subset=["value"])
@@ -229,7 +535,14 @@ def tidy_frame(frame: pd.DataFrame, path: str | Path, lines: np.ndarray | None =
         cols = [c for c in names if c != lower["date"]]
         if not cols:
             raise InputError(f"{path}: no asset columns besides 'date'")
-        data = {c: _parse_numbers(frame[c], str(path), c, dates, lines) for c in cols}
+        data = {}
+        date_name = dict(options.columns).get("date", lower["date"])
+        for c in cols:
+            others = [n for n in cols if n != c]
+            long_hint = None if not others else (
+                "if the file is long (one row per date and asset), give "
+                + options.suggest("columns", f"date={date_name},asset={c},value={others[-1]}"))
+            data[c] = _parse_numbers(frame[c], str(path), c, dates, lines, options, long_hint)
         wide = pd.DataFrame(data, index=dates)
         dup = wide.index.duplicated(keep=False)
         if dup.any():
@@ -245,8 +558,6 @@ def tidy_frame(frame: pd.DataFrame, path: str | Path, lines: np.ndarray | None =
     empty = [c for c in wide.columns if wide[c].notna().sum() == 0]
     if empty:
         raise InputError(f"{path}: column {empty[0]!r} has no values")
-    if len(wide) < 2:
-        raise InputError(f"{path}: a single row; at least two dates are needed")
     return wide.astype(float)
 
 

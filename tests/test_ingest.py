@@ -181,7 +181,8 @@ REFUSALS = [
     ("empty", "", r": file is empty$"),
     ("header_only", "date,ALDER,BIRCH\n", r": header only, no data rows$"),
     ("no_date_column", _csv("day,ALDER", "2021-03-08,1.0", "2021-03-09,2.0"),
-     r": no 'date' column \(columns: day, ALDER\)$"),
+     (r": no 'date' column \(columns: day, ALDER\); give --columns date=day if 'day' holds "
+     r"the dates$")),
     ("duplicate_date", _csv("date,ALDER", "2021-03-08,1.0", "2021-03-08,2.0", "2021-03-09,3.0"),
      r": date 2021-03-08 appears more than once with different values$"),
     ("text_in_number", _csv("date,ALDER", "2021-03-08,1.0", "2021-03-09,abc"),
@@ -196,8 +197,14 @@ REFUSALS = [
      r": line 3 \(2021-03-09\), column 'ALDER': 'NaN' is not a finite number$"),
     ("unparseable_date", _csv("date,ALDER", "2021-03-08,1.0", "2021-13-45,2.0"),
      r": line 3: cannot read date '2021-13-45' \(expected YYYY-MM-DD\)$"),
-    ("single_row", _csv("date,ALDER", "2021-03-08,1.0"),
-     r": a single row; at least two dates are needed$"),
+    # One day of closes is refused only when an asset has no earlier stored price (issue 12).
+    ("one_day_new_asset", _csv("date,ALDER,CEDAR", "2021-03-08,104.0,1.0"),
+     (r": 2021-03-08, column 'CEDAR': the store holds no earlier price of 'CEDAR', so this price "
+     r"gives no return \(a one-day file of closes needs each asset's previous close\); a new "
+     r"asset needs a history file first$")),
+    ("one_day_before_the_history", _csv("date,asset,value", "2021-02-26,ALDER,99.0"),
+     (r": 2021-02-26, column 'ALDER': the store holds no earlier price of 'ALDER' before "
+     r"2021-03-01, so this price gives no return .*")),
     ("column_without_values", _csv("date,ALDER,BIRCH", "2021-03-08,1.0,", "2021-03-09,2.0,"),
      r": column 'BIRCH' has no values$"),
     ("binary", b"\x89PNG\r\n\x1a\n\x00\x00\x00\rIHDR\x00\x00",
@@ -844,6 +851,15 @@ GOOD_SOURCE = '[[sources]]\npath = "feeds/*.csv"\n\n[[sources]]\n'
     ('path = "a.csv"\naccept_revisions = "yes"',
      r"sources\[2\]\.accept_revisions must be true or false"),
     ("path = 3", r"sources\[2\]\.path must be a string"),
+    ('path = "a.csv"\nsep = ";;"', r"sources\[2\]\.sep: ';;' is not a field separator"),
+    ('path = "a.csv"\ndecimal = ";"', r"sources\[2\]\.decimal must be '\.' or ','"),
+    ('path = "a.csv"\ndate_format = "%Y"', r"sources\[2\]\.date_format: '%Y' is not a date "),
+    ('path = "a.csv"\ncolumns = { asset = "Ticker" }',
+     r"sources\[2\]\.columns: a long file needs both asset and value"),
+    ('path = "a.csv"\ncolumns = { ticker = "T" }', r"unknown key sources\[2\]\.columns\.ticker"),
+    ('path = "a.csv"\ncolumns = "date=Day"', r"\[sources\[2\]\.columns\] must be a table"),
+    ('url = "sqlite:///s.sqlite"\ntable = "t"\nsep = ";"',
+     r"sources\[2\]: sep, decimal, thousands, date_format and columns go with path"),
 ])
 def test_invalid_sources_name_the_entry(tmp_path, entry, message):
     path = config(tmp_path, GOOD_SOURCE + entry + "\n")
@@ -857,3 +873,99 @@ def test_sources_must_be_an_array_of_tables(tmp_path, text):
     path = config(tmp_path, text + "\n")
     with pytest.raises(InputError, match=r"sources must be an array of tables \(\[\[sources\]\]\)"):
         load_config(path)
+
+
+# ----------------------------------------------------------------------------- exported files
+# BASE as a spreadsheet with a German locale exports it: semicolons, decimal commas, a
+# thousands point, day-first dates, a long layout with its own column names.
+EXPORTED = ("Datum;Symbol;Schluss;Volumen\n"
+            + "".join(f"{d};{a};{v};1.000\n" for d, a, v in (
+                ("01.03.2021", "ALDER", "1.100,0"), ("01.03.2021", "BIRCH", "50,0"),
+                ("02.03.2021", "ALDER", "1.101,5"), ("03.03.2021", "ALDER", "1.099,25"),
+                ("03.03.2021", "BIRCH", "50,5"), ("04.03.2021", "ALDER", "1.102,0"),
+                ("04.03.2021", "BIRCH", "51,25"), ("05.03.2021", "ALDER", "1.103,5"),
+                ("05.03.2021", "BIRCH", "50,75"))))
+EXPORTED_OPTIONS = ("--sep", ";", "--decimal", ",", "--thousands", ".", "--date-format",
+                    "%d.%m.%Y", "--columns", "date=Datum,asset=Symbol,value=Schluss")
+# The same prices as a plain wide CSV (BASE with ALDER + 1000).
+EXPORTED_PLAIN = BASE.replace("100.0,", "1100.0,").replace("101.5,", "1101.5,").replace(
+    "99.25,", "1099.25,").replace("102.0,", "1102.0,").replace("103.5,", "1103.5,")
+
+
+def test_exported_file_is_read_with_its_options(store_url, tmp_path, run):
+    path = write(tmp_path, "export.csv", EXPORTED)
+    code, out, err = run("ingest", path, "--store", store_url, *EXPORTED_OPTIONS)
+    assert code == 0, err
+    assert "stored 9 new value(s) (prices) for 2 asset(s), 2021-03-01 to 2021-03-05" in out
+    assert_returns_equal(stored(store_url, returns_table), expected_returns(EXPORTED_PLAIN))
+    # The plain file of the same prices is the same data: nothing new.
+    code, out, _ = run("ingest", write(tmp_path, "plain.csv", EXPORTED_PLAIN), "--store",
+                       store_url)
+    assert code == 0 and "nothing new" in out
+
+
+@pytest.mark.parametrize(("drop", "needle"), [
+    ("--sep", "give --sep ';'"),
+    ("--date-format", ("dates like 01.03.2021 could be day-first or month-first; give "
+                      "--date-format '%d.%m.%Y' or '%m.%d.%Y'")),
+    ("--decimal", "'1.100,0' is not a finite number; give --decimal , --thousands ."),
+    ("--columns", ("if the file is long (one row per date and asset), give --columns "
+                  "date=Datum,asset=Symbol,value=Volumen")),
+])
+def test_exported_file_without_an_option_is_refused_naming_it(store_url, tmp_path, run,
+                                                              store_snapshot, drop, needle):
+    ingest(store_url, write(tmp_path, "base.csv", BASE))
+    before = store_snapshot(store_url)
+    k = EXPORTED_OPTIONS.index(drop)
+    options = EXPORTED_OPTIONS[:k] + EXPORTED_OPTIONS[k + 2:]
+    if drop == "--decimal":  # the thousands point alone would be the decimal mark
+        options = options[:2] + options[4:]
+    if drop == "--columns":
+        options = ("--sep", ";", "--decimal", ",", "--thousands", ".", "--date-format",
+                   "%d.%m.%Y", "--columns", "date=Datum")
+    path = write(tmp_path, "export.csv", EXPORTED)
+    code, out, err = run("ingest", path, "--store", store_url, *options)
+    assert (code, out) == (2, "")
+    assert one_error_line(err, str(path), needle)
+    assert store_snapshot(store_url) == before
+
+
+def test_excel_file_is_refused_and_the_store_unchanged(store_url, tmp_path, run, store_snapshot):
+    ingest(store_url, write(tmp_path, "base.csv", BASE))
+    before = store_snapshot(store_url)
+    book = write(tmp_path, "closes.xlsx", b"PK\x03\x04" + b"xl/workbook.xml" + b"\x00" * 32)
+    code, out, err = run("ingest", book, "--store", store_url)
+    assert (code, out) == (2, "")
+    assert one_error_line(err) == f"error: {book}: Excel files are not read; save the sheet as CSV"
+    assert store_snapshot(store_url) == before
+
+
+def test_reading_options_refused_with_sql(tmp_path, run):
+    code, _, err = run("ingest", "--sql", "sqlite:///x.sqlite", "--table", "t", "--sep", ";")
+    assert code == 2
+    assert one_error_line(err, "--sep, --decimal, --thousands, --date-format and --columns go "
+                               "with files")
+
+
+def test_configured_source_with_reading_options(tmp_path, monkeypatch, capsys):
+    from monitor.pipeline import read_configured_sources
+
+    write(tmp_path, "feeds/export.csv", EXPORTED)
+    path = config(tmp_path, """
+[[sources]]
+path = "feeds/*.csv"
+sep = ";"
+decimal = ","
+thousands = "."
+date_format = "%d.%m.%Y"
+columns = { date = "Datum", asset = "Symbol", value = "Schluss" }
+""")
+    cfg = load_config(path)
+    (src,) = read_configured_sources(cfg)
+    want = frame_of(EXPORTED_PLAIN)
+    np.testing.assert_array_equal(src.frame[["ALDER", "BIRCH"]].to_numpy(), want.to_numpy())
+    # Without the decimal mark the refusal names the key to set in the entry.
+    config(tmp_path, path.read_text().replace('decimal = ","\nthousands = "."\n', ""))
+    with pytest.raises(InputError, match=r"'1\.100,0' is not a finite number; give "
+                                         r"decimal = ',' thousands = '\.'$"):
+        read_configured_sources(load_config(path))

@@ -163,17 +163,20 @@ CSV_REFUSALS = [
     ("blank_lines_only", "\n\n  \n", r": file is empty$"),
     ("header_only", "date,ALDER,BIRCH\n", r": header only, no data rows$"),
     ("no_date_column", "day,ALDER\n2021-03-01,1\n2021-03-02,2\n",
-     r": no 'date' column \(columns: day, ALDER\)$"),
+     (r": no 'date' column \(columns: day, ALDER\); give --columns date=day if 'day' holds "
+     r"the dates$")),
     ("only_date_column", "date\n2021-03-01\n2021-03-02\n", r": no asset columns besides 'date'"),
     ("bad_date", "date,ALDER\n2021-03-01,1\n2021-13-45,2\n",
      r": line 3: cannot read date '2021-13-45' \(expected YYYY-MM-DD\)$"),
     ("day_first_date", "date,ALDER\n01/03/2021,1\n02/03/2021,2\n",
-     r": line 2: cannot read date '01/03/2021'"),
+     (r": line 2: dates like 01/03/2021 could be day-first or month-first; give "
+     r"--date-format '%d/%m/%Y' or '%m/%d/%Y'$")),
     ("blank_date", "date,ALDER\n2021-03-01,1\n,2\n", r": line 3: cannot read date ''"),
     ("text_in_number", "date,ALDER,BIRCH\n2021-03-01,1,2\n2021-03-02,1,2\n2021-03-03,3,n/a\n",
      r": line 4 \(2021-03-03\), column 'BIRCH': 'n/a' is not a finite number$"),
     ("decimal_comma", 'date,ALDER\n2021-03-01,"1,5"\n2021-03-02,2\n',
-     r": line 2 \(2021-03-01\), column 'ALDER': '1,5' is not a finite number$"),
+     (r": line 2 \(2021-03-01\), column 'ALDER': '1,5' is not a finite number; give "
+     r"--decimal ,$")),
     ("literal_NaN", "date,ALDER\n2021-03-01,1\n2021-03-02,NaN\n",
      r": line 3 \(2021-03-02\), column 'ALDER': 'NaN' is not a finite number$"),
     ("literal_nan_lower", "date,ALDER\n2021-03-01,nan\n2021-03-02,1\n",
@@ -197,9 +200,6 @@ CSV_REFUSALS = [
      r": line 3 \(2021-03-02\), column 'value': 'x' is not a finite number$"),
     ("column_without_values", "date,ALDER,BIRCH\n2021-03-01,1,\n2021-03-02,2,\n",
      r": column 'BIRCH' has no values$"),
-    ("single_row", "date,ALDER\n2021-03-01,1\n",
-     r": a single row; at least two dates are needed$"),
-    ("single_date_twice", "date,ALDER\n2021-03-01,1\n2021-03-01,1\n", r": a single row"),
     ("unnamed_column", "date,ALDER,\n2021-03-01,1,2\n2021-03-02,2,3\n",
      r": column 3 has no name in the header$"),
     ("duplicate_column", "date,ALDER,ALDER\n2021-03-01,1,2\n2021-03-02,2,3\n",
@@ -301,7 +301,7 @@ def _dates(n: int = 3) -> pd.DatetimeIndex:
     (pd.DataFrame({"date": _dates(), "ALDER": [np.nan] * 3, "BIRCH": [1.0, 2.0, 3.0]}),
      r": column 'ALDER' has no values$"),
     (pd.DataFrame({"when": _dates(), "ALDER": [1.0, 2.0, 3.0]}),
-     r": no 'date' column \(columns: when, ALDER\)$"),
+     r": no 'date' column \(columns: when, ALDER\); give --columns date=when"),
 ], ids=["inf", "text", "bool", "bad_date", "missing_date", "empty_column", "no_date"])
 def test_parquet_refusals_name_file_row_and_column(tmp_path, frame, message):
     path = tmp_path / "bad.parquet"
@@ -357,3 +357,144 @@ def test_log_returns_refuse_non_positive_prices(price, shown):
     with pytest.raises(InputError, match=rf"^prices\.csv: price {re.escape(shown)} on "
                                          r"2021-03-02 in column 'BIRCH' is not a positive"):
         log_returns(prices, source="prices.csv")
+
+
+# --------------------------------------------------------------------------- exported files
+# The same prices as WIDE_CSV, written as spreadsheets in other locales export them.
+def read_with(tmp_path: Path, name: str, content: str | bytes, **options) -> pd.DataFrame:
+    from monitor.tables import parse_columns, read_options
+
+    if "columns" in options:
+        options["columns"] = parse_columns(options["columns"])
+    return read_series(write(tmp_path, name, content), read_options(**options))
+
+
+def test_semicolon_decimal_comma_and_day_first_dates(tmp_path):
+    text = ("Date;ALDER;BIRCH\n03/03/2021;101,5;52,25\n01/03/2021;100,0;50\n"
+            "02/03/2021;;51,0\n04/03/2021;102;53,5\n")
+    got = read_with(tmp_path, "de.csv", text, sep=";", decimal=",", date_format="%d/%m/%Y")
+    assert_same_frame(got, expected_frame())
+
+
+def test_thousands_separators_give_the_plain_numbers(tmp_path):
+    text = ('date,ALDER,BIRCH\n2021-03-01,"1,234.5","1,000,000"\n2021-03-02,987.25,"12,345"\n')
+    got = read_with(tmp_path, "us.csv", text, thousands=",")
+    np.testing.assert_array_equal(got.to_numpy(), [[1234.5, 1e6], [987.25, 12345.0]])
+    text = "date;ALDER\n2021-03-01;1.234,56\n2021-03-02;-1.000.000,5\n2021-03-03;7,25\n"
+    got = read_with(tmp_path, "eu.csv", text, sep=";", decimal=",", thousands=".")
+    # float("1234.56") is the binary64 value nearest 1234.56, as for any plain CSV.
+    np.testing.assert_array_equal(got["ALDER"].to_numpy(), [1234.56, -1000000.5, 7.25])
+    text = "date\tALDER\n2021-03-01\t1 234,5\n2021-03-02\t2 000\n"
+    got = read_with(tmp_path, "fr.tsv", text, sep="\\t", decimal=",", thousands=" ")
+    np.testing.assert_array_equal(got["ALDER"].to_numpy(), [1234.5, 2000.0])
+
+
+def test_long_file_with_other_column_names_and_extra_columns(tmp_path):
+    text = ("Ticker,Day,Open,Close,Volume\n"
+            + "".join(f"{a},{d},0,{v},9\n" for d, a, v in (
+                ("2021-03-04", "BIRCH", 53.5), ("2021-03-01", "ALDER", 100.0),
+                ("2021-03-03", "ALDER", 101.5), ("2021-03-01", "BIRCH", 50.0),
+                ("2021-03-02", "BIRCH", 51.0), ("2021-03-03", "BIRCH", 52.25),
+                ("2021-03-04", "ALDER", 102.0))))
+    got = read_with(tmp_path, "long.csv", text, columns="date=Day,asset=Ticker,value=close")
+    assert_same_frame(got, expected_frame())
+    wide = WIDE_CSV.replace("date,", "Datum,", 1)
+    assert_same_frame(read_with(tmp_path, "w.csv", wide, columns="date=Datum"),
+                      expected_frame())
+
+
+def test_month_first_dates_with_their_format(tmp_path):
+    text = "date,ALDER\n03/13/2021,1\n03/14/2021,2\n"
+    got = read_with(tmp_path, "m.csv", text, date_format="%m/%d/%Y")
+    assert list(got.index) == list(pd.to_datetime(["2021-03-13", "2021-03-14"]))
+
+
+def test_one_row_is_a_valid_file(tmp_path):
+    # A day of closes (issue 12): whether it gives returns depends on the store (ingest).
+    got = read_series(write(tmp_path, "day.csv", "date,ALDER,BIRCH\n2021-03-05,103.5,50.75\n"))
+    assert got.shape == (1, 2) and got.index[0] == pd.Timestamp("2021-03-05")
+
+
+EXPORT_REFUSALS = [
+    ("semicolons", "date;ALDER\n2021-03-01;1\n2021-03-02;2\n", {},
+     (r": line 1: the header 'date;ALDER' reads as one column; its fields look separated by "
+     r"';': give --sep ';'$")),
+    ("tabs", "date\tALDER\n2021-03-01\t1\n", {},
+     (r": line 1: the header 'date\\tALDER' reads as one column; its fields look separated by "
+     r"tab: give --sep '\\t'$")),
+    ("decimal_comma_and_thousands_point", "date;ALDER\n2021-03-01;1.234,56\n", {"sep": ";"},
+     (r": line 2 \(2021-03-01\), column 'ALDER': '1\.234,56' is not a finite number; give "
+     r"--decimal , --thousands \.$")),
+    ("thousands_comma", 'date,ALDER\n2021-03-01,"1,234.5"\n', {},
+     (r": line 2 \(2021-03-01\), column 'ALDER': '1,234\.5' is not a finite number; give "
+     r"--thousands ,$")),
+    ("comma_or_thousands", 'date,ALDER\n2021-03-01,"1,234"\n', {},
+     (r".*'1,234' is not a finite number; give --decimal , if ',' is the decimal mark, or "
+     r"--thousands , if it separates thousands$")),
+    ("point_with_decimal_comma", "date;ALDER\n2021-03-01;1,5\n2021-03-02;1.5\n",
+     {"sep": ";", "decimal": ","},
+     (r": line 3 \(2021-03-02\), column 'ALDER': '1\.5' is not a finite number; '\.' is not the "
+     r"decimal mark given \(--decimal ,\)$")),
+    ("bad_grouping", 'date,ALDER\n2021-03-01,"12,34.5"\n', {"thousands": ","},
+     (r".*'12,34\.5' is not a finite number; digits must come in groups of three around the "
+     r"thousands separator ','$")),
+    ("day_first", "date,ALDER\n25/03/2021,1\n26/03/2021,2\n", {},
+     r": line 2: dates like 25/03/2021 are day-first: give --date-format '%d/%m/%Y'$"),
+    ("month_first", "date,ALDER\n03.25.21,1\n", {},
+     r": line 2: dates like 03\.25\.21 are month-first: give --date-format '%m\.%d\.%y'$"),
+    ("ambiguous", "date,ALDER\n03/04/2020,1\n04/04/2020,2\n", {},
+     (r": line 2: dates like 03/04/2020 could be day-first or month-first; give "
+     r"--date-format '%d/%m/%Y' or '%m/%d/%Y'$")),
+    ("wrong_format", "date,ALDER\n03/04/2020,1\n2020-04-05,2\n", {"date_format": "%d/%m/%Y"},
+     r": line 3: cannot read date '2020-04-05' \(expected --date-format '%d/%m/%Y'\)$"),
+    ("words", "date,ALDER\nMar 3 2021,1\n", {},
+     (r": line 2: cannot read date 'Mar 3 2021' \(expected YYYY-MM-DD, or give the layout, "
+     r"e\.g\. --date-format '%d\.%m\.%Y'\)$")),
+    ("long_without_columns", "Date,Ticker,Close\n2021-03-01,ALDER,1\n2021-03-01,BIRCH,2\n", {},
+     (r": line 2 \(2021-03-01\), column 'Ticker': 'ALDER' is not a finite number; if the file "
+     r"is long \(one row per date and asset\), give --columns "
+     r"date=Date,asset=Ticker,value=Close$")),
+    ("mapped_column_missing", "Date,Ticker,Close\n2021-03-01,ALDER,1\n",
+     {"columns": "date=Date,asset=Symbol,value=Close"},
+     r": --columns asset=Symbol: no column 'Symbol' \(columns: Date, Ticker, Close\)$"),
+]
+
+
+@pytest.mark.parametrize(("name", "content", "options", "message"), EXPORT_REFUSALS,
+                         ids=[c[0] for c in EXPORT_REFUSALS])
+def test_exported_files_are_refused_naming_the_option_that_reads_them(tmp_path, name, content,
+                                                                      options, message):
+    path = tmp_path / f"{name}.csv"
+    with pytest.raises(InputError, match=at(path, message)):
+        read_with(tmp_path, path.name, content, **options)
+
+
+def test_excel_files_are_refused(tmp_path):
+    import zipfile
+
+    book = tmp_path / "closes.xlsx"
+    with zipfile.ZipFile(book, "w") as z:
+        z.writestr("[Content_Types].xml", "<Types/>")
+        z.writestr("xl/workbook.xml", "<workbook/>")
+    renamed = write(tmp_path, "closes.csv", book.read_bytes())
+    legacy = write(tmp_path, "old.xls", b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1" + b"\x00" * 64)
+    for path in (book, renamed, legacy):
+        with pytest.raises(InputError, match=at(path, r": Excel files are not read; save the "
+                                                      r"sheet as CSV$")):
+            read_series(path)
+
+
+@pytest.mark.parametrize(("options", "message"), [
+    ({"sep": ";;"}, r"^--sep: ';;' is not a field separator"),
+    ({"decimal": ";"}, r"^--decimal must be '\.' or ',', got ';'$"),
+    ({"thousands": "x"}, r"^--thousands must be one of"),
+    ({"decimal": ",", "thousands": ","}, r"^--thousands ',' is also the decimal mark$"),
+    ({"date_format": "%d/%m"}, r"^--date-format: '%d/%m' is not a date layout with year, "),
+    ({"columns": {"asset": "Ticker"}}, r"^--columns: a long file needs both asset and value"),
+    ({"columns": {"ticker": "T"}}, r"^--columns: unknown role 'ticker'; roles: date, asset, "),
+])
+def test_bad_reading_options_name_the_option(options, message):
+    from monitor.tables import read_options
+
+    with pytest.raises(InputError, match=message):
+        read_options(**options)
