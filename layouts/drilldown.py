@@ -227,13 +227,14 @@ def _column(study: PairStudy, res: WindowResult) -> html.Div:
               note=(f"P(both at or below their q-quantile). Gaussian with the selected "
                     f"copula's tau {res.gaussian_tau:.3f} (rho {res.gaussian_rho:.3f}); "
                     "Fréchet–Hoeffding bounds max(2q−1, 0) and q; empirical with a Wilson "
-                    "95% interval.")),
+                    "95% interval, cut at q where it would pass it (no copula puts more than q "
+                    "on both assets being below their q-quantile).")),
         panel("Tail dependence, empirical against model",
               table(_id(ids.STUDY_TABLE_TYPE, role, "tails"), tail_table(res)),
               graph(_id(ids.STUDY_FIGURE_TYPE, role, "tails"), tail_figure(study, res),
                     filename=_slug(study, role, "tails")),
               note="Finite-level tail concordance over q; the band is a pointwise binomial "
-                   "95% band of the empirical curve."),
+                   "(Wilson) 95% band of the empirical curve, kept inside [0, 1]."),
         panel("Pseudo-observations",
               graph(_id(ids.STUDY_FIGURE_TYPE, role, "scatter"), scatter_figure(study, res),
                     filename=_slug(study, role, "scatter")),

@@ -30,7 +30,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from .arrays import read_only
 from .copulas import family
-from .empirical import empirical_copula, tail_dependence, wilson_interval
+from .empirical import empirical_copula, tail_dependence, tail_share_interval
 from .errors import InputError
 from .fitting import CopulaFit, Selection, candidate_slots
 from .inference import FitUncertainty, GoodnessOfFit, Interval
@@ -227,8 +227,8 @@ def joint_crash_probabilities(u: ArrayLike, v: ArrayLike, fit: CopulaFit,
     same day. Gaussian: rho = sin(pi tau / 2) with tau the fitted copula's Kendall's tau
     (:func:`gaussian_rho_from_tau`), so the two copulas share their central dependence and
     differ only in shape. Empirical: C_n(q, q) = #{i : U_i <= q, V_i <= q} / n (Deheuvels
-    1979), with a Wilson 95% interval (:func:`wilson_interval`). Bounds: Nelsen (2006),
-    Theorem 2.2.3.
+    1979), with a Wilson 95% interval kept inside [0, q], since C(q, q) <= q
+    (:func:`monitor.empirical.tail_share_interval`). Bounds: Nelsen (2006), Theorem 2.2.3.
     """
     u = np.asarray(u, dtype=float)
     v = np.asarray(v, dtype=float)
@@ -239,7 +239,7 @@ def joint_crash_probabilities(u: ArrayLike, v: ArrayLike, fit: CopulaFit,
     rho = gaussian_rho_from_tau(fit.kendall_tau)
     gauss = np.asarray(family("gaussian").cdf(q, q, (rho,)), dtype=float)
     share = np.asarray(empirical_copula(u, v, q, q), dtype=float)
-    lo, hi = wilson_interval(share, n)
+    lo, hi = tail_share_interval(share, n, q)
     w, m = frechet_hoeffding_bounds(q, q)
     return tuple(
         CrashProbability(q=float(q[i]), fitted=float(fitted[i]), gaussian=float(gauss[i]),
@@ -273,8 +273,9 @@ def tail_concordance(u: ArrayLike, v: ArrayLike, fit: CopulaFit, tail: str = "lo
     lambda_L(q) = C(q, q)/q and lambda_U(q) = [1 - 2(1 - q) + C(1 - q, 1 - q)]/q, the
     finite-level forms whose limits q -> 0 are the tail-dependence coefficients (Joe 1997,
     section 2.1.10); the empirical ones are :func:`monitor.empirical.tail_dependence`. The band
-    treats q lambda(q) as a binomial share of n days (Wilson 95% interval): a pointwise band
-    that ignores the rank step and the overlap between levels.
+    treats q lambda(q) as a binomial share of n days (Wilson 95% interval, kept inside
+    [0, q] by :func:`monitor.empirical.tail_share_interval`, so the band of lambda lies in
+    [0, 1]): a pointwise band that ignores the rank step and the overlap between levels.
     """
     if tail not in ("lower", "upper"):
         raise ValueError(f"tail must be 'lower' or 'upper'; got {tail!r}")
@@ -283,7 +284,7 @@ def tail_concordance(u: ArrayLike, v: ArrayLike, fit: CopulaFit, tail: str = "lo
     q = np.asarray(levels, dtype=float)
     emp = tail_dependence(u, v, q)
     empirical = np.asarray(emp.lower if tail == "lower" else emp.upper, dtype=float)
-    lo, hi = wilson_interval(empirical * q, u.size)
+    lo, hi = tail_share_interval(empirical * q, u.size, q)
     at = q if tail == "lower" else 1.0 - q
     rho = gaussian_rho_from_tau(fit.kendall_tau)
 
@@ -603,7 +604,7 @@ def tail_table(result: WindowResult) -> pd.DataFrame:
     rows = []
     for tail, emp, curve in (("lower", w.tail_lower_emp, result.lower_curve),
                              ("upper", w.tail_upper_emp, result.upper_curve)):
-        lo, hi = wilson_interval(emp * q, w.n)
+        lo, hi = tail_share_interval(emp * q, w.n, q)
         model_q = float(np.interp(q, curve.q, curve.model))
         gauss_q = float(np.interp(q, curve.q, curve.gaussian))
         limit = sel.tail_lower if tail == "lower" else sel.tail_upper

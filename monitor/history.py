@@ -30,7 +30,7 @@ from plotly.subplots import make_subplots
 from scipy import stats
 
 from .arrays import read_only
-from .empirical import wilson_interval
+from .empirical import tail_share_interval
 from .errors import InputError
 from .palette import (
     FAMILY_COLOURS,
@@ -131,12 +131,13 @@ def binomial_band(tail: ArrayLike, n: ArrayLike, q: float, level: float = LEVEL
     .. math:: \\frac{p + z^2 / 2m \\pm z \\sqrt{p(1-p)/m + z^2 / 4m^2}}{1 + z^2/m}
 
     (Wilson 1927, "Probable inference, the law of succession, and statistical inference",
-    *J. Amer. Statist. Assoc.* 22, 209-212), divided by ``q``.
+    *J. Amer. Statist. Assoc.* 22, 209-212), kept inside [0, q] because ``C(q, q) <= q``
+    (:func:`monitor.empirical.tail_share_interval`), divided by ``q``.
     """
     if not 0 < q < 1:
         raise ValueError(f"q must lie in (0, 1), got {q!r}")
-    lo, hi = wilson_interval(np.asarray(tail, dtype=float) * q, n, level)
-    return read_only(np.clip(lo / q, 0.0, 1.0)), read_only(np.clip(hi / q, 0.0, 1.0))
+    lo, hi = tail_share_interval(np.asarray(tail, dtype=float) * q, n, q, level)
+    return read_only(lo / q), read_only(hi / q)
 
 
 def parse_pair(text: str | None, pairs: list[tuple[str, str]]) -> tuple[str, str]:

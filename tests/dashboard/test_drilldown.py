@@ -27,9 +27,9 @@ from monitor.drilldown import (
     parse_pair,
     study_pair,
     tail_concordance,
-    wilson_interval,
+    tail_table,
 )
-from monitor.empirical import pseudo_observations
+from monitor.empirical import pseudo_observations, tail_share_interval, wilson_interval
 from monitor.errors import InputError
 from monitor.fitting import CopulaFit, fit_batched
 from monitor.inference import (
@@ -107,9 +107,11 @@ def test_empirical_crash_share_counted_by_hand_with_wilson_interval():
         count = sum(1 for a, b in zip(u, v, strict=True) if a <= c.q and b <= c.q)
         assert c.empirical_count == count
         assert c.empirical == count / 400
-        # Wilson (1927) score interval, as statsmodels computes it.
+        # Wilson (1927) score interval, as statsmodels computes it, cut at q (issue 12:
+        # C(q,q) <= q, Nelsen 2006, Theorem 2.2.3)
         lo, hi = proportion_confint(count, 400, alpha=0.05, method="wilson")
-        assert (c.empirical_lower, c.empirical_upper) == pytest.approx((lo, hi), abs=1e-12)
+        assert (c.empirical_lower, c.empirical_upper) == pytest.approx((lo, min(hi, c.q)),
+                                                                       abs=1e-12)
 
 
 def test_wilson_interval_and_bounds_helpers():
@@ -118,6 +120,36 @@ def test_wilson_interval_and_bounds_helpers():
     assert lo == pytest.approx([r[0] for r in ref]) and hi == pytest.approx([r[1] for r in ref])
     w, m = frechet_hoeffding_bounds([0.3, 0.8], [0.9, 0.7])
     assert w == pytest.approx([0.2, 0.5]) and m == pytest.approx([0.3, 0.7])
+
+
+def test_tail_share_interval_stays_in_zero_to_q_and_is_wilson_inside():
+    n, q = 250, 0.1
+    counts = np.array([0, 1, 5, 12, 20, 24, 25])  # 25 = q * n: every tail day is a joint one
+    lo, hi = tail_share_interval(counts / n, n, q)
+    # Wilson (1927) score interval, as statsmodels computes it, cut at q (C(q,q) <= q,
+    # Nelsen 2006, Theorem 2.2.3).
+    ref_lo, ref_hi = proportion_confint(counts, n, alpha=0.05, method="wilson")
+    np.testing.assert_allclose(lo, np.minimum(ref_lo, q), rtol=1e-12, atol=1e-15)
+    np.testing.assert_allclose(hi, np.minimum(ref_hi, q), rtol=1e-12)
+    assert lo[0] == pytest.approx(0.0, abs=1e-15) and hi[0] > 0
+    assert ref_hi[-1] > q and hi[-1] == q  # the raw Wilson end would pass q
+    assert ref_hi[-1] == pytest.approx(0.14345, abs=1e-5)  # by hand from Wilson's formula
+    assert np.all((0 <= lo) & (lo <= hi) & (hi <= q))
+    assert np.all((0 <= lo / q) & (hi / q <= 1))  # C(q,q)/q in [0, 1]
+    with pytest.raises(ValueError, match="q must lie"):
+        tail_share_interval(0.1, 10, 0.0)
+
+
+def test_drilldown_intervals_lie_on_their_scales():
+    # A comonotone-ish sample: every lower-tail day of u is one of v, so the share reaches q.
+    u = pseudo_observations(np.arange(200.0))
+    fit = _fit("clayton", (8.0,), n=200)
+    for c in joint_crash_probabilities(u, u, fit, levels=(0.01, 0.05)):
+        assert 0 <= c.empirical_lower <= c.empirical_upper <= c.q
+        assert c.empirical_upper == c.q  # clipped: raw Wilson would exceed q
+    curve = tail_concordance(u, u, fit, "lower")
+    assert np.all((curve.empirical_lower >= 0) & (curve.empirical_upper <= 1 + 1e-12))
+    assert curve.empirical_upper.max() == pytest.approx(1.0)
 
 
 def test_tail_curves_against_closed_forms_and_counts():
