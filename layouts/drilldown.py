@@ -212,9 +212,11 @@ def _column(study: PairStudy, res: WindowResult) -> html.Div:
     role = res.role
     w = res.window
     heading = "Study window" if role == "study" else "Reference window"
+    chosen = ([html.P(f"Reference chosen by: {study.reference_rule}.", style=NOTE_STYLE)]
+              if role == "reference" else [])
     return html.Div([
         panel(f"{heading}: {w.start.date()} to {w.end.date()} (n = {w.n})",
-              _key_numbers(res), note=provenance_line(study, res)),
+              *chosen, _key_numbers(res), note=provenance_line(study, res)),
         panel("Every candidate copula",
               table(_id(ids.STUDY_TABLE_TYPE, role, "candidates"), candidate_table(res),
                     page_size=20, style_data_conditional=_CANDIDATE_STYLE),
@@ -252,7 +254,7 @@ def results(study: PairStudy) -> html.Div:
         "Both windows at a glance",
         table(_id(ids.STUDY_TABLE_TYPE, "both", "summary"), summary_table(study),
               page_size=30),
-        html.P(f"Reference: {study.reference_rule}. {boot}. Columns: stored "
+        html.P(f"Reference chosen by: {study.reference_rule}. {boot}. Columns: stored "
                f"{study.marginal_mode} GARCH-filtered residuals ranked within each window. "
                f"Computed in {study.seconds:.1f} s."
                + ("".join(f" Note: {n}." for n in study.notes)),

@@ -78,7 +78,7 @@ def provenance_table(study: PairStudy) -> pd.DataFrame:
         rows.append((f"{res.role} window", (f"{w.start.date()} to {w.end.date()} "
                                            f"(n = {w.n} common dates)")))
     rows += [
-        ("reference window rule", study.reference_rule),
+        ("reference chosen by", study.reference_rule),
         ("columns", (f"stored standardised residuals of the GARCH-type marginal model, "
                     f"{study.marginal_mode} mode (settings {study.marginal_key}), ranked within "
                     "each window into pseudo-observations R/(n+1)")),

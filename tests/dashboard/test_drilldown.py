@@ -21,13 +21,14 @@ from layouts.drilldown import layout, results
 from monitor.copulas import family
 from monitor.drilldown import (
     PairStudy,
+    choose_reference,
     frechet_hoeffding_bounds,
     gaussian_rho_from_tau,
     joint_crash_probabilities,
     parse_pair,
     study_pair,
     tail_concordance,
-    tail_table,
+    tail_excess,
 )
 from monitor.empirical import pseudo_observations, tail_share_interval, wilson_interval
 from monitor.errors import InputError
@@ -267,18 +268,73 @@ def test_study_of_the_clayton_regime_picks_lower_tail_and_crash_ratio_above_one(
 
 def test_default_reference_is_the_calmest_stored_window_apart_from_the_study(view, pair,
                                                                               shifted):
+    # issue 12: the calmest window among those with a tau close to the study window's
     study, _, (start, end) = shifted
     timeline = view.store.read_timeline(view.rolling_key, *pair)
     apart = timeline[(timeline["date"] < start) | (timeline["start"] > end)]
-    calmest = apart["tail_lower_emp"].min()
+    tau_study = stats.kendalltau(study.study.window.u, study.study.window.v).statistic
+    close = apart[(apart["kendall_tau"] - tau_study).abs() <= 0.1]
+    assert len(close) > 0
+    excess = np.fmax(close["tail_lower_emp"], close["tail_upper_emp"]) - close["gauss_tail_q"]
     ref = study.reference.window
     row = timeline[timeline["date"] == ref.end].iloc[0]
-    assert row["start"] == ref.start and row["tail_lower_emp"] == calmest
+    assert row["start"] == ref.start
+    assert max(row["tail_lower_emp"], row["tail_upper_emp"]) - row["gauss_tail_q"] == \
+        pytest.approx(excess.min(), abs=1e-12)
+    assert abs(row["kendall_tau"] - tau_study) <= 0.1
     assert ref.end < start
     assert ref.n == view.rolling.window
     # The rolling engine's empirical tail at q is the reference window's own.
     assert ref.tail_lower_emp == pytest.approx(row["tail_lower_emp"], abs=1e-12)
-    assert "calmest stored 120-day window" in study.reference_rule
+    assert "calmest stored 120-day window with Kendall's tau within 0.1" in study.reference_rule
+    assert f"{len(close)} of {len(timeline)} stored windows qualified" in study.reference_rule
+
+
+def _timeline(rows):
+    frame = pd.DataFrame(rows, columns=["end", "kendall_tau", "tail_lower_emp",
+                                        "tail_upper_emp", "gauss_tail_q"])
+    frame["date"] = pd.to_datetime(frame.pop("end"))
+    frame["start"] = frame["date"] - pd.Timedelta(days=100)
+    return frame
+
+
+def test_reference_rule_on_a_constructed_timeline():
+    study_start, study_end = pd.Timestamp("2021-01-01"), pd.Timestamp("2021-06-30")
+    rows = [  # end, tau, lower, upper, Gaussian at the same tau -> excess
+        ("2019-01-31", 0.40, 0.30, 0.25, 0.28),  # +0.02, |dtau| 0
+        ("2019-06-30", 0.45, 0.26, 0.20, 0.30),  # -0.04, |dtau| 0.05: the calmest close one
+        ("2019-12-31", 0.10, 0.05, 0.05, 0.15),  # -0.10, |dtau| 0.30
+        ("2020-06-30", 0.55, 0.20, 0.20, 0.35),  # -0.15, |dtau| 0.15
+        ("2021-03-31", 0.40, 0.00, 0.00, 0.30),  # -0.30, overlaps the study window
+    ]
+    kw = {"window": 120, "tail_q": 0.1}
+    got = choose_reference(_timeline(rows), study_start, study_end, 0.40, **kw)
+    assert (got.end, got.start) == (pd.Timestamp("2019-06-30"), pd.Timestamp("2019-03-22"))
+    assert (got.tolerance, got.candidates) == (0.1, 2)
+    assert got.kendall_tau == 0.45 and got.tail_excess == pytest.approx(-0.04)
+    assert got.rule.startswith("calmest stored 120-day window with Kendall's tau within 0.1 "
+                               "of the study window's (0.400)")
+    assert got.rule.endswith("tau 0.450, tail excess -0.040; 2 of 5 stored windows qualified")
+    # none within 0.1 -> widened to 0.2
+    got = choose_reference(_timeline(rows[2:]), study_start, study_end, 0.40, **kw)
+    assert got.end == pd.Timestamp("2020-06-30") and got.tolerance == 0.2
+    assert "within 0.2 of the study window's (0.400; none within 0.1)" in got.rule
+    # none within 0.2 -> the calmest apart from the study window, saying the taus differ
+    got = choose_reference(_timeline(rows[2:3] + rows[4:]), study_start, study_end, 0.40, **kw)
+    assert got.end == pd.Timestamp("2019-12-31") and got.tolerance is None
+    assert "so the taus differ" in got.rule
+    # every stored window overlaps: the calmest of them, saying so
+    got = choose_reference(_timeline(rows[4:]), study_start, study_end, 0.40, **kw)
+    assert got.end == pd.Timestamp("2021-03-31")
+    assert "every stored window overlaps the study window" in got.rule
+    # ties of the excess go to the closer tau, then to the later window
+    tied = [("2019-01-31", 0.40, 0.2, 0.2, 0.2), ("2019-06-30", 0.38, 0.2, 0.2, 0.2),
+            ("2019-09-30", 0.38, 0.2, 0.2, 0.2)]
+    got = choose_reference(_timeline(tied), study_start, study_end, 0.40, **kw)
+    assert got.end == pd.Timestamp("2019-01-31")  # the closest tau
+    got = choose_reference(_timeline(tied[1:]), study_start, study_end, 0.40, **kw)
+    assert got.end == pd.Timestamp("2019-09-30")  # same tau: the later window
+    assert tail_excess(_timeline(tied)).tolist() == pytest.approx([0.0, 0.0, 0.0])
 
 
 def test_progress_is_monotone_and_ends_at_the_total(shifted):
