@@ -201,6 +201,9 @@ def _key_numbers(res: WindowResult) -> html.Ul:
                                                        "fontSize": "0.9rem"})
 
 
+#: Crash-table columns hidden at first (the figure beside the table draws them).
+CRASH_SECONDARY = ("independence q² %", "lower bound max(2q-1,0) %", "upper bound q %")
+
 _CANDIDATE_STYLE = [
     {"if": {"filter_query": '{selected} = "yes"'}, "fontWeight": 700,
      "backgroundColor": "#EAF3FA"},
@@ -219,11 +222,14 @@ def _column(study: PairStudy, res: WindowResult) -> html.Div:
               *chosen, _key_numbers(res), note=provenance_line(study, res)),
         panel("Every candidate copula",
               table(_id(ids.STUDY_TABLE_TYPE, role, "candidates"), candidate_table(res),
-                    page_size=20, style_data_conditional=_CANDIDATE_STYLE),
+                    page_size=20, style_data_conditional=_CANDIDATE_STYLE,
+                    secondary=("loglik", "BIC" if res.window.selection.criterion == "aic"
+                               else "AIC")),
               note="Best first by the criterion; bold: selected; red: did not converge "
                    "(kept as estimated). GoF p: Cramér–von Mises, parametric bootstrap."),
         panel("Joint-crash probability",
-              table(_id(ids.STUDY_TABLE_TYPE, role, "crash"), crash_table(res)),
+              table(_id(ids.STUDY_TABLE_TYPE, role, "crash"), crash_table(res),
+                    secondary=CRASH_SECONDARY),
               graph(_id(ids.STUDY_FIGURE_TYPE, role, "crash"), crash_figure(study, res),
                     filename=_slug(study, role, "crash")),
               note=(f"P(both at or below their q-quantile). Gaussian with the selected "
