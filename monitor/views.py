@@ -32,7 +32,7 @@ _SIGNALS = re.compile(
 #: What a stored settings key looks like in text (marginal, rolling or signal part): no page
 #: may show one (tests search every page for it).
 SETTINGS_KEY_PATTERN = re.compile(
-    r"cusum[0-9.e+-]+:|(?:real-time|in-sample)/(?:refit|min)\d+|\|w\d+/s\d+/|/v\d+\b")
+    r"cusum[0-9.e+-]+:|(?:real-time|in-sample)/(?:refit|min)\d+|\bw\d+/s\d+/[a-z]+/q")
 
 
 def _marginal_words(key: str) -> str:
