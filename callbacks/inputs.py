@@ -18,6 +18,7 @@ from monitor.inputs_view import (
     residuals_figure,
 )
 from monitor.palette import figure_layout
+from monitor.views import settings_words
 
 
 def _blank(text: str) -> dict:
@@ -42,8 +43,8 @@ def show_diagnostics(view, asset: str | None, lags):
     data, columns = table_frame(tests).to_dict("records"), typed_columns(tests)
     fit = diag.latest
     params = ", ".join(f"{k} = {v:.4g}" for k, v in fit.params.items())
-    note = (f"{asset}: {len(diag.residuals)} filtered days, {diag.mode} marginals "
-            f"({diag.settings_key}); latest refit {fit.spec.label} on data to "
+    note = (f"{asset}: {len(diag.residuals)} filtered days; "
+            f"{settings_words(diag.settings_key)}; latest refit {fit.spec.label} on data to "
             f"{fit.sample_end} ({params}; percent scale)"
             + (f", EWMA fallback: {'; '.join(fit.problems)}" if fit.fallback else "") + ".")
     return (residuals_figure(diag), acf_figure(diag), qq_figure(diag), data, columns, note)

@@ -5,6 +5,11 @@ Security: the server binds 127.0.0.1 unless told otherwise; any other address ne
 secret in the environment variable :data:`callbacks.app.SECRET_ENV` (HTTP basic
 authentication, any user name), and the server refuses to start without it. Debug mode is
 never on.
+
+Serving: the dashboard runs on waitress, a production WSGI server in pure Python (several
+threads, so that the board, a figure and a running window study are served side by side), not
+on Flask's development server. Behind a reverse proxy (TLS, a team's host name), keep
+``comove serve`` on 127.0.0.1 and let the proxy forward to it.
 """
 
 from __future__ import annotations
@@ -25,6 +30,8 @@ from monitor.errors import InputError
 
 from .app import SECRET_ENV, create_app
 
+#: Worker threads of the WSGI server (waitress's default is 4).
+SERVER_THREADS = 8
 #: Shortest access secret accepted.
 MIN_SECRET = 12
 LOOPBACK_NAMES = ("localhost",)
@@ -89,12 +96,18 @@ def serve(cfg: Config, host: str = "127.0.0.1", port: int = 8050, *,
     store = Store(cfg.store.url, create=False)
     app = create_app(cfg, store=store, secret=secret)
     url = f"http://{'127.0.0.1' if host in ('0.0.0.0', '::') else host}:{port}/"
-    print(f"dashboard on {url} (store {store.shown_url}; Ctrl+C stops it)", flush=True)
+    print(f"dashboard on {url} (store {store.shown_url}; waitress, {SERVER_THREADS} threads; "
+          "Ctrl+C stops it)", flush=True)
     if open_browser:
         threading.Timer(1.0, webbrowser.open, args=(url,)).start()
+    from waitress import create_server
+
+    server = create_server(app.server, host=host, port=port, threads=SERVER_THREADS,
+                           ident="comove")
     try:
-        app.run(host=host, port=port, debug=False)
+        server.run()
     finally:
+        server.close()
         store.close()
 
 

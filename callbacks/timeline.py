@@ -11,7 +11,7 @@ import plotly.graph_objects as go
 from dash import Input, Output, no_update
 
 from layouts import ids
-from layouts.components import message, records
+from layouts.components import filter_action, message, records
 from monitor.errors import InputError
 from monitor.history import (
     episodes_table,
@@ -26,7 +26,7 @@ from monitor.palette import figure_layout
 OUTPUTS = ((ids.TIMELINE_FIGURE, "figure"), (ids.TIMELINE_NOTE, "children"),
            (ids.TIMELINE_EPISODES, "data"), (ids.TIMELINE_EPISODES, "columns"),
            (ids.TIMELINE_MESSAGE, "children"), (ids.TIMELINE_RANGE, "min_date_allowed"),
-           (ids.TIMELINE_RANGE, "max_date_allowed"))
+           (ids.TIMELINE_RANGE, "max_date_allowed"), (ids.TIMELINE_EPISODES, "filter_action"))
 
 _RANGE_KEY = re.compile(r"^xaxis\d*\.range\[([01])\]$")
 
@@ -37,12 +37,12 @@ def show_pair(view, pair_text: str | None) -> tuple:
     blank = go.Figure(layout=figure_layout(height=200, xaxis={"visible": False},
                                            yaxis={"visible": False}))
     if not pair_text:
-        return blank, "", [], [], message("Choose a pair above."), None, None
+        return blank, "", [], [], message("Choose a pair above."), None, None, "none"
     try:
         a, b = parse_pair(pair_text, view.store.monitored_pairs(view.rolling_key))
         history = pair_history(view, a, b)
     except InputError as exc:
-        return blank, "", [], [], message(str(exc), kind="problem"), None, None
+        return blank, "", [], [], message(str(exc), kind="problem"), None, None, "none"
     f = history.frame
     last = f.iloc[-1]
     state = "/".join(str(last[f"state_{t}"]) if pd.notna(last[f"state_{t}"]) else "no state"
@@ -55,7 +55,8 @@ def show_pair(view, pair_text: str | None) -> tuple:
             "converge are shown as estimated.")
     data, columns = records(episodes_table(history))
     first, end = (d.strftime("%Y-%m-%d") for d in (f["date"].iloc[0], f["date"].iloc[-1]))
-    return timeline_figure(history), note, data, columns, "", first, end
+    return (timeline_figure(history), note, data, columns, "", first, end,
+            filter_action(len(data)))
 
 
 def _day(value) -> str | None:

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import pandas as pd
 from dash import dash_table, dcc, html
+from dash.dash_table import FormatTemplate
 
 from monitor.palette import FONT, GROUND, INK, MUTED, RULE, VERMILION
 
@@ -31,23 +32,66 @@ def graph(component_id, figure=None, *, filename: str, height: int | None = None
                          "modeBarButtonsToRemove": ["lasso2d"]}, **props)
 
 
+#: Fewest rows for which a table shows its per-column filter row (below that the rows are
+#: all in view, and the row only costs space).
+FILTER_MIN_ROWS = 20
+
+
+def filter_action(rows: int | None) -> str:
+    """``"native"`` (a filter row under the headers) for ``rows >= FILTER_MIN_ROWS`` or an
+    unknown count (None: filled later by a callback), else ``"none"``."""
+    return "native" if rows is None or rows >= FILTER_MIN_ROWS else "none"
+
+
+def percent_column(spec: dict, digits: int = 1) -> dict:
+    """A DataTable column spec whose values (fractions, 0.25) show as percentages (25.0%)."""
+    return {**spec, "type": "numeric", "format": FormatTemplate.percentage(digits)}
+
+
+def shape_columns(columns: list[dict], *, percent=(), secondary=()
+                  ) -> tuple[list[dict], list[str]]:
+    """(columns, hidden_columns) of a DataTable: ids in ``percent`` formatted as percentages,
+    ids in ``secondary`` hidden at first (every column then hideable)."""
+    columns = [percent_column(c) if c["id"] in percent else c for c in columns]
+    hidden = [c["id"] for c in columns if c["id"] in secondary]
+    if hidden:
+        columns = [{**c, "hideable": True} for c in columns]
+    return columns, hidden
+
+
 def table(component_id, frame: pd.DataFrame | None = None, *, page_size: int = 15,
-          **props) -> dash_table.DataTable:
-    """A sortable, filterable table with an Export button that downloads CSV."""
-    frame = frame if frame is not None else pd.DataFrame()
+          rows: int | None = None, percent: tuple[str, ...] = (),
+          secondary: tuple[str, ...] = (), **props) -> dash_table.DataTable:
+    """A sortable table with an Export button that downloads CSV.
+
+    ``rows`` (default: the frame's length, or unknown without a frame) decides the filter
+    row (:func:`filter_action`). Columns named in ``percent`` hold fractions shown as
+    percentages; columns in ``secondary`` start hidden (the "Toggle Columns" button shows
+    them; the CSV export always has every column). Headers wrap and cells wrap at word
+    boundaries, so that the main columns fit a 1600-pixel-wide screen without a horizontal
+    scroll bar (a scroll bar remains the fallback on narrow screens).
+    """
+    if rows is None and frame is not None:
+        rows = len(frame)
+    columns = [] if frame is None else [{"name": str(c), "id": str(c)} for c in frame.columns]
+    columns, hidden = shape_columns(columns, percent=percent, secondary=secondary)
     return dash_table.DataTable(
         id=component_id,
-        data=frame.to_dict("records"),
-        columns=[{"name": str(c), "id": str(c)} for c in frame.columns],
-        page_size=page_size, sort_action="native", filter_action="native",
-        export_format="csv", export_headers="display",
+        data=[] if frame is None else frame.to_dict("records"),
+        columns=columns, hidden_columns=hidden,
+        page_size=page_size, sort_action="native", filter_action=filter_action(rows),
+        export_format="csv", export_headers="display", export_columns="all",
         style_table={"overflowX": "auto"},
-        style_cell={"fontFamily": FONT, "fontSize": "0.85rem", "padding": "4px 8px",
-                    "color": INK, "textAlign": "right", "maxWidth": "260px",
-                    "overflow": "hidden", "textOverflow": "ellipsis"},
-        style_header={"backgroundColor": GROUND, "fontWeight": 600,
+        style_cell={"fontFamily": FONT, "fontSize": "0.85rem", "padding": "4px 6px",
+                    "color": INK, "textAlign": "right", "maxWidth": "240px",
+                    "whiteSpace": "normal", "height": "auto", "overflow": "hidden",
+                    "textOverflow": "ellipsis"},
+        style_header={"backgroundColor": GROUND, "fontWeight": 600, "whiteSpace": "normal",
+                      "height": "auto", "lineHeight": "1.15", "verticalAlign": "bottom",
                       "borderBottom": f"2px solid {RULE}"},
         style_data={"borderBottom": f"1px solid {RULE}"},
+        css=[{"selector": ".show-hide", "rule": "font-size: 0.8rem; margin-left: 6px"},
+             *props.pop("css", [])],
         **props)
 
 

@@ -201,6 +201,9 @@ def _key_numbers(res: WindowResult) -> html.Ul:
                                                        "fontSize": "0.9rem"})
 
 
+#: Crash-table columns hidden at first (the figure beside the table draws them).
+CRASH_SECONDARY = ("independence q² %", "lower bound max(2q-1,0) %", "upper bound q %")
+
 _CANDIDATE_STYLE = [
     {"if": {"filter_query": '{selected} = "yes"'}, "fontWeight": 700,
      "backgroundColor": "#EAF3FA"},
@@ -212,28 +215,34 @@ def _column(study: PairStudy, res: WindowResult) -> html.Div:
     role = res.role
     w = res.window
     heading = "Study window" if role == "study" else "Reference window"
+    chosen = ([html.P(f"Reference chosen by: {study.reference_rule}.", style=NOTE_STYLE)]
+              if role == "reference" else [])
     return html.Div([
         panel(f"{heading}: {w.start.date()} to {w.end.date()} (n = {w.n})",
-              _key_numbers(res), note=provenance_line(study, res)),
+              *chosen, _key_numbers(res), note=provenance_line(study, res)),
         panel("Every candidate copula",
               table(_id(ids.STUDY_TABLE_TYPE, role, "candidates"), candidate_table(res),
-                    page_size=20, style_data_conditional=_CANDIDATE_STYLE),
+                    page_size=20, style_data_conditional=_CANDIDATE_STYLE,
+                    secondary=("loglik", "BIC" if res.window.selection.criterion == "aic"
+                               else "AIC")),
               note="Best first by the criterion; bold: selected; red: did not converge "
                    "(kept as estimated). GoF p: Cramér–von Mises, parametric bootstrap."),
         panel("Joint-crash probability",
-              table(_id(ids.STUDY_TABLE_TYPE, role, "crash"), crash_table(res)),
+              table(_id(ids.STUDY_TABLE_TYPE, role, "crash"), crash_table(res),
+                    secondary=CRASH_SECONDARY),
               graph(_id(ids.STUDY_FIGURE_TYPE, role, "crash"), crash_figure(study, res),
                     filename=_slug(study, role, "crash")),
               note=(f"P(both at or below their q-quantile). Gaussian with the selected "
                     f"copula's tau {res.gaussian_tau:.3f} (rho {res.gaussian_rho:.3f}); "
                     "Fréchet–Hoeffding bounds max(2q−1, 0) and q; empirical with a Wilson "
-                    "95% interval.")),
+                    "95% interval, cut at q where it would pass it (no copula puts more than q "
+                    "on both assets being below their q-quantile).")),
         panel("Tail dependence, empirical against model",
               table(_id(ids.STUDY_TABLE_TYPE, role, "tails"), tail_table(res)),
               graph(_id(ids.STUDY_FIGURE_TYPE, role, "tails"), tail_figure(study, res),
                     filename=_slug(study, role, "tails")),
               note="Finite-level tail concordance over q; the band is a pointwise binomial "
-                   "95% band of the empirical curve."),
+                   "(Wilson) 95% band of the empirical curve, kept inside [0, 1]."),
         panel("Pseudo-observations",
               graph(_id(ids.STUDY_FIGURE_TYPE, role, "scatter"), scatter_figure(study, res),
                     filename=_slug(study, role, "scatter")),
@@ -251,7 +260,7 @@ def results(study: PairStudy) -> html.Div:
         "Both windows at a glance",
         table(_id(ids.STUDY_TABLE_TYPE, "both", "summary"), summary_table(study),
               page_size=30),
-        html.P(f"Reference: {study.reference_rule}. {boot}. Columns: stored "
+        html.P(f"Reference chosen by: {study.reference_rule}. {boot}. Columns: stored "
                f"{study.marginal_mode} GARCH-filtered residuals ranked within each window. "
                f"Computed in {study.seconds:.1f} s."
                + ("".join(f" Note: {n}." for n in study.notes)),

@@ -27,9 +27,10 @@ from monitor.episodes_view import (
 )
 from monitor.errors import InputError
 from monitor.signals import CAUSES, TAILS, SignalSettings
+from monitor.views import settings_words
 
 from . import ids
-from .components import graph, message, panel, table
+from .components import graph, message, panel, shape_columns, table
 from .theme import NOTE_STYLE
 
 TITLE = "Episodes"
@@ -53,6 +54,10 @@ HISTORY_COLUMNS = ("pair", "tail", "status", "cause", "statistic", "onset", "sta
                     "peak_kendall_tau_se", "peak_tail_emp", "peak_tail_emp_se",
                     "peak_tail_model", "peak_gauss_tail")
 LINK = "Timeline"
+#: Episode columns hidden at first ("Toggle Columns" shows them; the CSV has them all): the
+#: standard errors, which the chart's hover also gives as a 95% margin, and the last day
+#: (the as-of date while an episode is open).
+SECONDARY_COLUMNS = ("last_day", "peak_kendall_tau_se", "peak_tail_emp_se")
 
 
 def table_frame(frame: pd.DataFrame, digits: int = 4) -> pd.DataFrame:
@@ -97,10 +102,16 @@ def typed_columns(frame: pd.DataFrame, labels: Mapping[str, str] | None = None) 
 
 
 def typed_table(component_id: str, frame: pd.DataFrame, *,
-                labels: Mapping[str, str] | None = None, **props):
-    """:func:`layouts.components.table` of ``frame`` with typed columns and shown labels."""
-    component = table(component_id, table_frame(frame).rename(columns=labels or {}), **props)
-    component.columns = typed_columns(frame, labels)
+                labels: Mapping[str, str] | None = None, percent: tuple[str, ...] = (),
+                secondary: tuple[str, ...] = (), **props):
+    """:func:`layouts.components.table` of ``frame`` with typed columns and shown labels;
+    ``percent`` and ``secondary`` name columns of ``frame`` (before relabelling) shown as
+    percentages and hidden at first."""
+    labels = labels or {}
+    component = table(component_id, table_frame(frame).rename(columns=labels), **props)
+    component.columns, component.hidden_columns = shape_columns(
+        typed_columns(frame, labels), percent=tuple(labels.get(c, c) for c in percent),
+        secondary=tuple(labels.get(c, c) for c in secondary))
     return component
 
 
@@ -113,17 +124,23 @@ def episode_records(frame: pd.DataFrame, columns) -> tuple[list[dict], list[dict
     shown.insert(1, LINK, [f"[open]({timeline_link(p)})" for p in frame["pair"]])
     typed = typed_columns(part, EPISODE_LABELS)
     cols = [typed[0], {"name": LINK, "id": LINK, "presentation": "markdown"}, *typed[1:]]
+    cols, _ = shape_columns(cols, secondary=_secondary(columns))
     return shown.to_dict("records"), cols
+
+
+def _secondary(columns) -> tuple[str, ...]:
+    return tuple(EPISODE_LABELS[c] for c in SECONDARY_COLUMNS if c in columns)
 
 
 def episode_table(component_id: str, frame: pd.DataFrame, columns, *, page_size: int = 15):
     """An episode table (sortable, filterable, CSV export) whose second column links each
     row to the pair's Timeline page."""
     data, cols = episode_records(frame, columns)
-    component = table(component_id, page_size=page_size,
+    component = table(component_id, page_size=page_size, rows=len(data),
                       markdown_options={"link_target": "_self"},
                       css=[{"selector": ".dash-cell-value p", "rule": "margin: 0"}])
     component.data, component.columns = data, cols
+    component.hidden_columns = list(_secondary(columns))
     return component
 
 
@@ -131,8 +148,8 @@ def _provenance(view) -> str:
     r = view.rolling
     return (f"Signals of the rolling metrics (window {r.window} days, step {r.step}, selection "
             f"by {r.criterion.upper()}, tail level q = {r.tail_q:g}) on "
-            f"{view.cfg.marginals.mode} GARCH-filtered residuals; signal settings key "
-            f"{view.signals_key.rsplit('|', 1)[-1]}.")
+            f"{view.cfg.marginals.mode} GARCH-filtered residuals; "
+            f"{settings_words(view.signals_key).rsplit('; ', 1)[-1]}.")
 
 
 def layout(view, query: dict[str, str]) -> html.Div:
@@ -146,7 +163,8 @@ def layout(view, query: dict[str, str]) -> html.Div:
         problem, flt = str(exc), EpisodeFilter()
     open_now = frame[frame["status"] == "open"]
     shown = filter_episodes(frame, flt)
-    as_of = pd.to_datetime(frame["last_day"]).max() if len(frame) else None
+    newest = view.store.latest_window_end(view.rolling_key)
+    as_of = pd.Timestamp(newest) if newest is not None else None  # the store's, not an episode's
     return html.Div([
         html.H2("Episodes", style={"margin": "4px 0"}),
         html.P(_provenance(view), style=NOTE_STYLE),
@@ -189,9 +207,7 @@ def layout(view, query: dict[str, str]) -> html.Div:
 
 
 def short_provenance(view) -> str:
-    r = view.rolling
-    return (f"window {r.window}, {view.cfg.marginals.mode} marginals, signal key "
-            f"{view.signals_key.rsplit('|', 1)[-1][:48]}...")
+    return settings_words(view.signals_key, short=True)
 
 
 def _open_panel(open_now: pd.DataFrame, pairs: list[str], as_of) -> html.Div:
@@ -200,8 +216,10 @@ def _open_panel(open_now: pd.DataFrame, pairs: list[str], as_of) -> html.Div:
         return message(f"No pair is in an alert episode{when} ({len(pairs)} pairs monitored).")
     n_pairs = open_now["pair"].nunique()
     by_tail = ", ".join(f"{int((open_now['tail'] == t).sum())} {t}" for t in TAILS)
+    when = f" as of {as_of:%Y-%m-%d}" if as_of is not None else ""
     return html.Div([
-        html.P(f"{n_pairs} of {len(pairs)} pairs in alert (open episodes: {by_tail} tail).",
+        html.P(f"{n_pairs} of {len(pairs)} pairs in alert{when} (open episodes: {by_tail} "
+               "tail).",
                style={"margin": "2px 0 6px 0", "fontWeight": 600}),
         episode_table(ids.EPISODES_ACTIVE, open_now, OPEN_COLUMNS, page_size=10),
     ])

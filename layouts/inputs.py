@@ -12,6 +12,7 @@ from dash import dcc, html
 
 from monitor.errors import InputError
 from monitor.inputs_view import (
+    PARAMETER_NAMES,
     coverage_figure,
     coverage_table,
     ingest_table,
@@ -22,6 +23,7 @@ from monitor.inputs_view import (
     read_presence,
     revision_table,
 )
+from monitor.views import settings_words
 
 from . import ids
 from .components import graph, message, panel, table
@@ -46,6 +48,11 @@ MARGINAL_LABELS = MappingProxyType({
 })
 
 
+#: Marginal-table columns hidden at first ("Toggle Columns" shows them; the CSV has all):
+#: the parameters (percent scale) and the residuals' date range.
+MARGINAL_SECONDARY = (*PARAMETER_NAMES, "lb_lags", "first_residual", "last_residual")
+
+
 def layout(view, query: dict[str, str]) -> html.Div:
     """The page for ``view``; ``query`` may name the asset whose diagnostics open."""
     store, key = view.store, view.marginal_key
@@ -64,15 +71,16 @@ def layout(view, query: dict[str, str]) -> html.Div:
     mode = mode_label(key)
     return html.Div([
         html.H2("Inputs", style={"margin": "4px 0"}),
-        html.P(f"Stored returns and their marginal models; marginal settings {key} "
-               f"({mode}).", style=NOTE_STYLE),
+        html.P(f"Stored returns and their marginal models; {settings_words(key)}.",
+               style=NOTE_STYLE),
         message(problem, kind="problem") if problem else None,
         panel("Coverage", _coverage(coverage, presence),
               note="Per asset: first and last stored log return, their number, and the dates "
                    "of the union calendar (every date on which some asset has a return) "
                    "between the two without a return: holidays of the asset's market or gaps "
                    "of the feed, kept as such, never filled."),
-        panel("Ingests", typed_table(ids.INPUTS_INGESTS, ingest_table(store), page_size=10),
+        panel("Ingests", typed_table(ids.INPUTS_INGESTS, ingest_table(store), page_size=10,
+                                     secondary=("id", "checksum")),
               note="Every storing ingest, newest first (outcome, rows, values, checksum and "
                    "the gaps it found). A refused file changes nothing in the store; "
                    "'comove ingest' prints the reason, naming file, row or date and column."),
@@ -107,7 +115,8 @@ def _coverage(coverage, presence) -> html.Div:
     if coverage.empty:
         return message("No returns stored yet: run 'comove ingest' first.")
     return html.Div([
-        typed_table(ids.INPUTS_COVERAGE, coverage, labels=COVERAGE_LABELS, page_size=12),
+        typed_table(ids.INPUTS_COVERAGE, coverage, labels=COVERAGE_LABELS, page_size=12,
+                    percent=("missing_share",)),
         graph(ids.INPUTS_COVERAGE_FIGURE, coverage_figure(monthly_coverage(presence)),
               filename="comove-coverage"),
     ])
@@ -123,7 +132,10 @@ def _models(models) -> html.Div:
     if models.empty:
         return message("No asset has been filtered under these settings yet: run "
                        "'comove update'.")
-    return typed_table(ids.INPUTS_MARGINAL, models, labels=MARGINAL_LABELS, page_size=12)
+    # the settings are named in words above the page; the spec key repeats the model's name
+    shown = models.drop(columns=[c for c in ("settings", "spec") if c in models.columns])
+    return typed_table(ids.INPUTS_MARGINAL, shown, labels=MARGINAL_LABELS, page_size=12,
+                       secondary=MARGINAL_SECONDARY)
 
 
 def _diagnostics_controls(assets: list[str], asset: str | None) -> html.Div:

@@ -13,8 +13,9 @@ window and on a calm reference window, and adds what a risk analyst asks next:
   tail) over a grid of q, empirical (with a binomial band) against the model and against the
   Gaussian with the same tau.
 
-The reference window is, by default, the calmest stored rolling window of the pair (see
-:func:`calm_reference`); a range may be given instead.
+The reference window is, by default, the calmest stored rolling window of the pair whose
+Kendall's tau is within 0.1 of the study window's, so that the comparison isolates the tails
+(see :func:`choose_reference`); a range may be given instead.
 """
 
 from __future__ import annotations
@@ -30,7 +31,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from .arrays import read_only
 from .copulas import family
-from .empirical import empirical_copula, tail_dependence, wilson_interval
+from .empirical import empirical_copula, kendall_tau, tail_dependence, tail_share_interval
 from .errors import InputError
 from .fitting import CopulaFit, Selection, candidate_slots
 from .inference import FitUncertainty, GoodnessOfFit, Interval
@@ -227,8 +228,8 @@ def joint_crash_probabilities(u: ArrayLike, v: ArrayLike, fit: CopulaFit,
     same day. Gaussian: rho = sin(pi tau / 2) with tau the fitted copula's Kendall's tau
     (:func:`gaussian_rho_from_tau`), so the two copulas share their central dependence and
     differ only in shape. Empirical: C_n(q, q) = #{i : U_i <= q, V_i <= q} / n (Deheuvels
-    1979), with a Wilson 95% interval (:func:`wilson_interval`). Bounds: Nelsen (2006),
-    Theorem 2.2.3.
+    1979), with a Wilson 95% interval kept inside [0, q], since C(q, q) <= q
+    (:func:`monitor.empirical.tail_share_interval`). Bounds: Nelsen (2006), Theorem 2.2.3.
     """
     u = np.asarray(u, dtype=float)
     v = np.asarray(v, dtype=float)
@@ -239,7 +240,7 @@ def joint_crash_probabilities(u: ArrayLike, v: ArrayLike, fit: CopulaFit,
     rho = gaussian_rho_from_tau(fit.kendall_tau)
     gauss = np.asarray(family("gaussian").cdf(q, q, (rho,)), dtype=float)
     share = np.asarray(empirical_copula(u, v, q, q), dtype=float)
-    lo, hi = wilson_interval(share, n)
+    lo, hi = tail_share_interval(share, n, q)
     w, m = frechet_hoeffding_bounds(q, q)
     return tuple(
         CrashProbability(q=float(q[i]), fitted=float(fitted[i]), gaussian=float(gauss[i]),
@@ -273,8 +274,9 @@ def tail_concordance(u: ArrayLike, v: ArrayLike, fit: CopulaFit, tail: str = "lo
     lambda_L(q) = C(q, q)/q and lambda_U(q) = [1 - 2(1 - q) + C(1 - q, 1 - q)]/q, the
     finite-level forms whose limits q -> 0 are the tail-dependence coefficients (Joe 1997,
     section 2.1.10); the empirical ones are :func:`monitor.empirical.tail_dependence`. The band
-    treats q lambda(q) as a binomial share of n days (Wilson 95% interval): a pointwise band
-    that ignores the rank step and the overlap between levels.
+    treats q lambda(q) as a binomial share of n days (Wilson 95% interval, kept inside
+    [0, q] by :func:`monitor.empirical.tail_share_interval`, so the band of lambda lies in
+    [0, 1]): a pointwise band that ignores the rank step and the overlap between levels.
     """
     if tail not in ("lower", "upper"):
         raise ValueError(f"tail must be 'lower' or 'upper'; got {tail!r}")
@@ -283,7 +285,7 @@ def tail_concordance(u: ArrayLike, v: ArrayLike, fit: CopulaFit, tail: str = "lo
     q = np.asarray(levels, dtype=float)
     emp = tail_dependence(u, v, q)
     empirical = np.asarray(emp.lower if tail == "lower" else emp.upper, dtype=float)
-    lo, hi = wilson_interval(empirical * q, u.size)
+    lo, hi = tail_share_interval(empirical * q, u.size, q)
     at = q if tail == "lower" else 1.0 - q
     rho = gaussian_rho_from_tau(fit.kendall_tau)
 
@@ -362,8 +364,142 @@ def _stored_order(view, a: str, b: str) -> tuple[str, str] | None:
     return None
 
 
+#: Largest |tau_reference - tau_study| of a default reference window, widened in this order
+#: when no stored window qualifies.
+TAU_TOLERANCES = (0.1, 0.2)
+
+
+@dataclass(frozen=True, slots=True)
+class ReferenceChoice:
+    """The default reference window and why it was chosen.
+
+    ``start`` and ``end`` bound the window; ``rule`` is the sentence the page and the report
+    show after "reference chosen by:"; ``kendall_tau`` and ``tail_excess`` are the stored
+    window's values (NaN for the fallback without stored windows); ``tolerance`` the tau
+    tolerance that found it (None when tau was not matched); ``candidates`` how many stored
+    windows qualified under that rule.
+    """
+
+    start: pd.Timestamp
+    end: pd.Timestamp
+    rule: str
+    kendall_tau: float
+    tail_excess: float
+    tolerance: float | None
+    candidates: int
+
+
+def tail_excess(timeline: pd.DataFrame) -> NDArray[np.float64]:
+    """How far each stored window's tails stand above what its Kendall's tau implies.
+
+    Parameters
+    ----------
+    timeline : DataFrame
+        Stored metrics rows (:meth:`monitor.store.Store.read_timeline`) with
+        ``tail_lower_emp``, ``tail_upper_emp`` and ``gauss_tail_q``.
+
+    Returns
+    -------
+    ndarray
+        ``max(lambda_L(q) - g, lambda_U(q) - g)`` per row, with ``lambda(q)`` the
+        nonparametric tail concordance at the stored level q and ``g`` the Gaussian copula's
+        C(q, q)/q at the window's tau (the same for both tails: the Gaussian copula is
+        radially symmetric). Where ``g`` is missing the excess over zero is used.
+    """
+    g = pd.to_numeric(timeline["gauss_tail_q"], errors="coerce").fillna(0.0).to_numpy(float)
+    lower = pd.to_numeric(timeline["tail_lower_emp"], errors="coerce").to_numpy(float)
+    upper = pd.to_numeric(timeline["tail_upper_emp"], errors="coerce").to_numpy(float)
+    return np.fmax(lower - g, upper - g)
+
+
+def choose_reference(timeline: pd.DataFrame, start: pd.Timestamp, end: pd.Timestamp,
+                     study_tau: float, *, window: int, tail_q: float,
+                     tolerances: tuple[float, ...] = TAU_TOLERANCES) -> ReferenceChoice | None:
+    """The calmest stored window whose Kendall's tau is close to the study window's.
+
+    Parameters
+    ----------
+    timeline : DataFrame
+        The pair's stored metrics (one row per window end: ``date``, ``start``,
+        ``kendall_tau``, ``tail_lower_emp``, ``tail_upper_emp``, ``gauss_tail_q``).
+    start, end : Timestamp
+        The study window.
+    study_tau : float
+        Sample Kendall's tau of the study window.
+    window : int
+        Stored window length (days), for the rule's wording.
+    tail_q : float
+        Stored tail level q, for the rule's wording.
+    tolerances : tuple of float
+        Tau tolerances tried in order.
+
+    Returns
+    -------
+    ReferenceChoice or None
+        None when no stored window has a tail value.
+
+    Notes
+    -----
+    The comparison should isolate the tails: two windows with the same Kendall's tau share
+    their central dependence, so what differs between them is the shape of the copula in the
+    corners. Hence the rule, in order:
+
+    1. windows not overlapping the study window with ``|tau - tau_study| <= 0.1``;
+    2. the same with the tolerance widened to 0.2;
+    3. every window not overlapping the study window (tau not matched, said so);
+    4. every stored window (all overlap the study window, said so).
+
+    Among the candidates of the first rule that has any, the *calmest* is the one with the
+    smallest :func:`tail_excess`, the larger of the two tails' nonparametric C(q,q)/q above
+    the Gaussian copula's value at the window's own tau. Calm thus means "the tails look
+    the way the central dependence alone implies" -- the null of the tail-divergence
+    signals -- rather than "few joint crashes", which at a matched tau would favour windows
+    that merely drew fewer tail days (a noisy low count) and, with tau unmatched, windows of
+    weak overall dependence. Realised volatility is not used: the pseudo-observations are
+    ranks of GARCH-filtered residuals, from which volatility has been taken out. Ties go to
+    the closer tau, then to the latest window.
+    """
+    rows = timeline.dropna(subset=["tail_lower_emp"]).reset_index(drop=True)
+    if rows.empty:
+        return None
+    dates = pd.to_datetime(rows["date"])
+    starts = pd.to_datetime(rows["start"])
+    tau = pd.to_numeric(rows["kendall_tau"], errors="coerce").to_numpy(float)
+    excess = tail_excess(rows)
+    distance = np.abs(tau - float(study_tau))
+    apart = ((dates < start) | (starts > end)).to_numpy()
+    what = f"calmest stored {window}-day window"
+    calm = (f"smallest tail excess (larger of the two tails' empirical C(q,q)/q above the "
+            f"Gaussian copula's at the window's tau, q = {tail_q:g})")
+    pools = []
+    for i, tol in enumerate(tolerances):
+        none_closer = f"; none within {tolerances[i - 1]:g}" if i else ""
+        pools.append((apart & (distance <= tol), tol,
+                      (f"{what} with Kendall's tau within {tol:g} of the study window's "
+                       f"({study_tau:.3f}{none_closer}), not overlapping it, by {calm}")))
+    pools.append((apart, None,
+                  (f"{what} not overlapping the study window, by {calm}; no stored window "
+                   f"has Kendall's tau within {tolerances[-1]:g} of the study window's "
+                   f"({study_tau:.3f}), so the taus differ")))
+    pools.append((np.ones(len(rows), bool), None,
+                  f"{what} by {calm}; every stored window overlaps the study window"))
+    for mask, tol, text in pools:
+        if not mask.any():
+            continue
+        idx = np.flatnonzero(mask)
+        order = np.lexsort((-dates.to_numpy()[idx].astype("datetime64[ns]").astype(np.int64),
+                            distance[idx], np.nan_to_num(excess[idx], nan=np.inf)))
+        best = int(idx[order[0]])
+        text += (f": tau {tau[best]:.3f}, tail excess {excess[best]:+.3f}; "
+                 f"{idx.size} of {len(rows)} stored windows qualified")
+        return ReferenceChoice(pd.Timestamp(starts.iloc[best]), pd.Timestamp(dates.iloc[best]),
+                               text, float(tau[best]), float(excess[best]), tol, int(idx.size))
+    return None  # pragma: no cover - the last pool always has rows
+
+
 def calm_reference(view, a: str, b: str, start: pd.Timestamp, end: pd.Timestamp,
-                   common: pd.DatetimeIndex, n: int) -> tuple[pd.Timestamp, pd.Timestamp, str]:
+                   common: pd.DatetimeIndex, n: int, study_tau: float | None = None
+                   ) -> tuple[pd.Timestamp, pd.Timestamp, str]:
     """The default reference window of a pair, and the rule that chose it.
 
     Parameters
@@ -376,6 +512,9 @@ def calm_reference(view, a: str, b: str, start: pd.Timestamp, end: pd.Timestamp,
         The pair's common dates.
     n : int
         The study window's number of common dates.
+    study_tau : float, optional
+        Sample Kendall's tau of the study window (computed from the stored residuals when
+        not given).
 
     Returns
     -------
@@ -383,29 +522,22 @@ def calm_reference(view, a: str, b: str, start: pd.Timestamp, end: pd.Timestamp,
 
     Notes
     -----
-    The calmest stored rolling window: among the pair's stored windows that do not overlap
-    the study window (all of them if every one overlaps), the one with the lowest empirical
-    lower-tail dependence C_n(q, q)/q at the configured level q (ties: the lower upper-tail
-    value, then the earliest). Joint crashes are what the study is about, so "calm" means
-    "fewest joint lower-tail days". Without stored windows: the earliest ``n`` common dates.
+    :func:`choose_reference` on the pair's stored timeline: the calmest stored window with
+    a Kendall's tau within 0.1 of the study window's (then 0.2, then any), not overlapping
+    it. Without stored windows: the earliest ``n`` common dates.
     """
     order = _stored_order(view, a, b)
     timeline = (view.store.read_timeline(view.rolling_key, *order) if order is not None
                 else pd.DataFrame())
     if not timeline.empty:
-        rows = timeline.dropna(subset=["tail_lower_emp"])
-        if not rows.empty:
-            apart = rows[(rows["date"] < start) | (rows["start"] > end)]
-            pool = apart if not apart.empty else rows
-            best = pool.sort_values(["tail_lower_emp", "tail_upper_emp", "date"],
-                                    kind="stable").iloc[0]
-            where = ("not overlapping the study window" if not apart.empty
-                     else "(every stored window overlaps the study window)")
-            rule = (f"calmest stored {view.rolling.window}-day window: lowest empirical "
-                    f"lower-tail dependence C_n(q,q)/q at q = {view.rolling.tail_q:g} "
-                    f"({float(best['tail_lower_emp']):.3f}) among the pair's stored windows "
-                    f"{where}")
-            return pd.Timestamp(best["start"]), pd.Timestamp(best["date"]), rule
+        if study_tau is None:
+            frame = pair_residuals(view, a, b).dropna()
+            part = frame[(frame.index >= start) & (frame.index <= end)]
+            study_tau = float(kendall_tau(part[a].to_numpy(), part[b].to_numpy()))
+        choice = choose_reference(timeline, start, end, study_tau, window=view.rolling.window,
+                                  tail_q=view.rolling.tail_q)
+        if choice is not None:
+            return choice.start, choice.end, choice.rule
     lo, hi = common[0], common[min(n, len(common)) - 1]
     return lo, hi, (f"no stored rolling windows for this pair: the earliest {n} common dates "
                     "(the study window's length)")
@@ -504,7 +636,9 @@ def study_pair(view, a: str, b: str, start, end, *, reference=None, replicates: 
     lo, hi, dates = _checked_window(frame, a, b, start, end, "study window")
     common = frame.dropna().index
     if reference is None or (isinstance(reference, str) and reference == "calmest"):
-        r_lo, r_hi, rule = calm_reference(view, a, b, lo, hi, common, len(dates))
+        part = frame.loc[dates]
+        study_tau = float(kendall_tau(part[a].to_numpy(), part[b].to_numpy()))
+        r_lo, r_hi, rule = calm_reference(view, a, b, lo, hi, common, len(dates), study_tau)
         r_lo, r_hi, r_dates = _checked_window(frame, a, b, r_lo, r_hi, "reference window")
     elif isinstance(reference, str) and reference == "none":
         r_dates, rule = None, "no reference window"
@@ -603,7 +737,7 @@ def tail_table(result: WindowResult) -> pd.DataFrame:
     rows = []
     for tail, emp, curve in (("lower", w.tail_lower_emp, result.lower_curve),
                              ("upper", w.tail_upper_emp, result.upper_curve)):
-        lo, hi = wilson_interval(emp * q, w.n)
+        lo, hi = tail_share_interval(emp * q, w.n, q)
         model_q = float(np.interp(q, curve.q, curve.model))
         gauss_q = float(np.interp(q, curve.q, curve.gaussian))
         limit = sel.tail_lower if tail == "lower" else sel.tail_upper

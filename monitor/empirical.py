@@ -42,6 +42,7 @@ __all__ = [
     "tail_dependence_cfg",
     "tail_dependence_plateau",
     "tail_dependence_rank",
+    "tail_share_interval",
     "wilson_interval",
 ]
 
@@ -1090,3 +1091,41 @@ def wilson_interval(share: ArrayLike, n: ArrayLike, level: float = 0.95
     half = z * np.sqrt(p * (1 - p) / m + z2n / (4 * m))
     return (np.clip((centre - half) / (1 + z2n), 0.0, 1.0),
             np.clip((centre + half) / (1 + z2n), 0.0, 1.0))
+
+
+def tail_share_interval(share: ArrayLike, n: ArrayLike, q: ArrayLike, level: float = 0.95
+                        ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Wilson interval of a joint tail share ``P(U <= q, V <= q)``, kept inside [0, q].
+
+    Parameters
+    ----------
+    share : array_like
+        Observed share of the ``n`` days with both pseudo-observations in the tail (lower:
+        both at or below ``q``; upper: both above ``1 - q``).
+    n : array_like
+        Days in the window.
+    q : array_like
+        Tail level(s) in (0, 1); broadcast against ``share``.
+    level : float
+        Coverage, in (0, 1).
+
+    Returns
+    -------
+    (ndarray, ndarray)
+        Lower and upper ends, in [0, q]. Dividing by ``q`` gives an interval of the tail
+        concordance ``C(q, q)/q`` in [0, 1].
+
+    Notes
+    -----
+    :func:`wilson_interval` treats the share as a binomial proportion on [0, 1] (Wilson 1927,
+    *J. Amer. Statist. Assoc.* 22, 209-212). A copula's diagonal cannot exceed either margin:
+    ``C(q, q) <= min(q, q) = q`` (the Frechet-Hoeffding upper bound, Nelsen 2006, *An
+    Introduction to Copulas*, Theorem 2.2.3), so the interval is clipped to [0, q]; the
+    clipping only ever acts on the upper end, when the sample share is close to ``q`` (every
+    tail day of one asset is a tail day of the other).
+    """
+    qq = np.asarray(q, dtype=float)
+    if np.any(~((qq > 0) & (qq < 1))):
+        raise ValueError(f"q must lie in (0, 1), got {q!r}")
+    lo, hi = wilson_interval(share, n, level)
+    return np.clip(lo, 0.0, qq), np.clip(hi, 0.0, qq)

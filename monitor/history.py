@@ -30,16 +30,15 @@ from plotly.subplots import make_subplots
 from scipy import stats
 
 from .arrays import read_only
-from .empirical import wilson_interval
+from .empirical import tail_share_interval
 from .errors import InputError
 from .palette import (
-    BLUE,
     FAMILY_COLOURS,
-    GREY,
     MUTED,
-    ORANGE,
     PURPLE,
+    ROTATION_SHADES,
     RULE,
+    SERIES_COLOURS,
     STATE_COLOURS,
     VERMILION,
     figure_layout,
@@ -60,6 +59,7 @@ __all__ = [
     "provenance_note",
     "rounded_for_plot",
     "study_link",
+    "tau_axis_range",
     "tau_band",
     "timeline_figure",
     "translucent",
@@ -131,12 +131,13 @@ def binomial_band(tail: ArrayLike, n: ArrayLike, q: float, level: float = LEVEL
     .. math:: \\frac{p + z^2 / 2m \\pm z \\sqrt{p(1-p)/m + z^2 / 4m^2}}{1 + z^2/m}
 
     (Wilson 1927, "Probable inference, the law of succession, and statistical inference",
-    *J. Amer. Statist. Assoc.* 22, 209-212), divided by ``q``.
+    *J. Amer. Statist. Assoc.* 22, 209-212), kept inside [0, q] because ``C(q, q) <= q``
+    (:func:`monitor.empirical.tail_share_interval`), divided by ``q``.
     """
     if not 0 < q < 1:
         raise ValueError(f"q must lie in (0, 1), got {q!r}")
-    lo, hi = wilson_interval(np.asarray(tail, dtype=float) * q, n, level)
-    return read_only(np.clip(lo / q, 0.0, 1.0)), read_only(np.clip(hi / q, 0.0, 1.0))
+    lo, hi = tail_share_interval(np.asarray(tail, dtype=float) * q, n, q, level)
+    return read_only(lo / q), read_only(hi / q)
 
 
 def parse_pair(text: str | None, pairs: list[tuple[str, str]]) -> tuple[str, str]:
@@ -396,16 +397,26 @@ def _band(fig: go.Figure, x, low, high, colour: str, name: str, row: int, group:
                              hoverinfo="skip"), row=row, col=1)
 
 
+#: Rows of the strip beneath the timeline, top to bottom.
+STRIP_ROWS = ("family", "rotation", "lower state", "upper state")
+
+
 def _strip(frame: pd.DataFrame) -> tuple[np.ndarray, list[str], list[list[float | str]],
                                           np.ndarray]:
-    """Codes, labels, a stepped colour scale and hover text of the family and state strips."""
+    """Codes, labels, a stepped colour scale and hover text of the strip: the selected family,
+    its rotation (shaded light to dark by angle) and each tail's state."""
     fams = list(FAMILY_COLOURS)
-    labels = [*fams, *STATES, "no state"]
-    colours = [*FAMILY_COLOURS.values(), *(STATE_COLOURS[s] for s in STATES), RULE]
+    rots = [f"rotated {r}°" for r in ROTATION_SHADES]
+    labels = [*fams, *rots, *STATES, "no state"]
+    colours = [*FAMILY_COLOURS.values(), *ROTATION_SHADES.values(),
+               *(STATE_COLOURS[s] for s in STATES), RULE]
     code = {name: i for i, name in enumerate(labels)}
     fam = frame["family"].astype(str).map(code).fillna(code["independence"]).to_numpy(float)
-    rows = [fam]
-    text = [(frame["family"].astype(str) + " " + frame["rotation"].astype(str) + "°").to_numpy()]
+    rot_deg = frame["rotation"].astype(int)
+    rot = ("rotated " + rot_deg.astype(str) + "°").map(code).to_numpy(float)
+    label = (frame["family"].astype(str) + " " + rot_deg.astype(str) + "°").to_numpy()
+    rows = [fam, rot]
+    text = [label, label]
     for tail in TAILS:
         st = frame[f"state_{tail}"].fillna("no state").astype(str)
         rows.append(st.map(code).to_numpy(float))
@@ -415,6 +426,48 @@ def _strip(frame: pd.DataFrame) -> tuple[np.ndarray, list[str], list[list[float 
     for i, c in enumerate(colours):
         scale += [[i / k, c], [(i + 1) / k, c]]
     return np.vstack(rows), labels, scale, np.vstack(text)
+
+
+def tau_axis_range(low: ArrayLike, high: ArrayLike, pad: float = 0.1,
+                   least: float = 0.2) -> tuple[float, float]:
+    """The tau axis of the timeline: the data's band with some room, inside [-1, 1].
+
+    Parameters
+    ----------
+    low, high : array_like
+        Lower and upper ends of the tau band of each window (NaN ignored).
+    pad : float
+        Share of the data's span added above and below.
+    least : float
+        Smallest span shown, so a flat series still shows its wiggles at a readable scale.
+
+    Returns
+    -------
+    (float, float)
+        ``(lo, hi)`` with ``-1 <= lo < hi <= 1``; ``(-1, 1)`` when no value is finite.
+
+    Notes
+    -----
+    The span is ``max(high) - min(low)``, widened by ``pad`` of itself on each side and to
+    at least ``least`` around its middle; zero is kept in view when the band comes within
+    ``least`` of it, so that the sign of the dependence stays readable.
+    """
+    lo_v = np.asarray(low, dtype=float)
+    hi_v = np.asarray(high, dtype=float)
+    finite = np.concatenate([lo_v[np.isfinite(lo_v)], hi_v[np.isfinite(hi_v)]])
+    if finite.size == 0:
+        return -1.0, 1.0
+    lo, hi = float(finite.min()), float(finite.max())
+    span = hi - lo
+    lo, hi = lo - pad * span, hi + pad * span
+    if hi - lo < least:
+        mid = (hi + lo) / 2
+        lo, hi = mid - least / 2, mid + least / 2
+    if 0 < lo <= least:
+        lo = 0.0
+    if -least <= hi < 0:
+        hi = 0.0
+    return max(-1.0, round(lo, 3)), min(1.0, round(hi, 3))
 
 
 def rounded_for_plot(frame: pd.DataFrame, digits: int = 4) -> pd.DataFrame:
@@ -447,9 +500,13 @@ def timeline_figure(history: PairHistory) -> go.Figure:
     Rows: Kendall's tau with its 95 % band; the lower and the upper tail, each with the
     nonparametric concordance ``C_n(q,q)/q`` and its Wilson band, the selected family's
     model-implied coefficient and the Gaussian copula's value at the window's tau; a strip
-    coloured by the selected family and by each tail's state. Alert episodes are shaded
-    (lower-tail episodes on the tau and lower rows, upper-tail ones on the tau and upper
-    rows). The y axes are fixed, so dragging selects a date range.
+    of four rows (:data:`STRIP_ROWS`): the selected family, its rotation (shaded light to
+    dark: 0, 90, 180, 270 degrees; the hover names both, e.g. "clayton 180°"), and each
+    tail's state. Family colours are never state colours, and tau (black) never shares a
+    colour with the tail series. The tau axis fits the band (:func:`tau_axis_range`); the
+    tail axes span [0, 1]. Alert episodes are shaded (lower-tail episodes on the tau and
+    lower rows, upper-tail ones on the tau and upper rows). The y axes are fixed, so
+    dragging selects a date range.
 
     Parameters
     ----------
@@ -460,47 +517,52 @@ def timeline_figure(history: PairHistory) -> go.Figure:
     plotly Figure
         Traces in order: tau band (two traces) and tau; per tail the Wilson band (two), the
         nonparametric line, the model-implied line and the Gaussian same-tau line; the
-        strip heatmap; legend-only markers for families, states and episode shading. One
+        strip heatmap; legend-only markers for families, rotations, states and episode
+        shading. One
         shaded rectangle per episode and row.
     """
     f = rounded_for_plot(history.frame)
     x = f["date"].dt.strftime("%Y-%m-%d").to_numpy()
     a, b = history.pair
     fig = make_subplots(rows=4, cols=1, shared_xaxes=True, vertical_spacing=0.035,
-                        row_heights=[0.3, 0.3, 0.3, 0.1], subplot_titles=(
+                        row_heights=[0.29, 0.29, 0.29, 0.13], subplot_titles=(
                             "Kendall's tau (95% band)",
                             f"Lower tail at q = {history.tail_q:g}",
                             f"Upper tail at q = {history.tail_q:g}",
-                            "Selected family and tail states"))
-    _band(fig, x, f["tau_low"], f["tau_high"], BLUE, "tau 95% band", 1, "tau")
+                            "Selected family, its rotation, and the tail states"))
+    tau_colour = SERIES_COLOURS["tau"]
+    emp_colour, model_colour = SERIES_COLOURS["tail_empirical"], SERIES_COLOURS["tail_model"]
+    _band(fig, x, f["tau_low"], f["tau_high"], tau_colour, "tau 95% band", 1, "tau")
     fig.add_trace(go.Scatter(x=x, y=f["kendall_tau"], mode="lines", name="Kendall's tau",
-                             line={"color": BLUE, "width": 1.5}, legendgroup="tau",
+                             line={"color": tau_colour, "width": 1.5}, legendgroup="tau",
                              customdata=np.c_[f["tau_low"], f["tau_high"]],
                              hovertemplate="tau %{y:.3f} (95%: %{customdata[0]:.3f} to "
                                            "%{customdata[1]:.3f})<extra></extra>"), row=1, col=1)
     for row, tail in ((2, "lower"), (3, "upper")):
         first = tail == "lower"
-        _band(fig, x, f[f"tail_{tail}_low"], f[f"tail_{tail}_high"], BLUE,
+        _band(fig, x, f[f"tail_{tail}_low"], f[f"tail_{tail}_high"], emp_colour,
               "nonparametric 95% band (Wilson)", row, "emp-band")
         fig.data[-1].showlegend = first
         fig.add_trace(go.Scatter(
             x=x, y=f[f"tail_{tail}_emp"], mode="lines", name="nonparametric C(q,q)/q",
-            line={"color": BLUE, "width": 1.2}, legendgroup="emp", showlegend=first,
+            line={"color": emp_colour, "width": 1.2}, legendgroup="emp", showlegend=first,
             customdata=np.c_[f[f"tail_{tail}_low"], f[f"tail_{tail}_high"]],
             hovertemplate=f"{tail} nonparametric %{{y:.3f}} (95%: %{{customdata[0]:.3f}} to "
                           "%{customdata[1]:.3f})<extra></extra>"), row=row, col=1)
         fig.add_trace(go.Scatter(
             x=x, y=f[f"tail_{tail}"], mode="lines", name="model-implied (selected family)",
-            line={"color": ORANGE, "width": 1.5}, legendgroup="model", showlegend=first,
+            line={"color": model_colour, "width": 1.5}, legendgroup="model",
+            showlegend=first,
             hovertemplate=f"{tail} model-implied %{{y:.3f}} (no stored s.e.)<extra></extra>"),
             row=row, col=1)
         fig.add_trace(go.Scatter(
             x=x, y=f["gauss_tail_q"], mode="lines", name="Gaussian at the same tau",
-            line={"color": GREY, "width": 1, "dash": "dot"}, legendgroup="gauss",
+            line={"color": SERIES_COLOURS["gaussian_same_tau"], "width": 1, "dash": "dot"},
+            legendgroup="gauss",
             showlegend=first, hovertemplate="Gaussian same-tau %{y:.3f}<extra></extra>"),
             row=row, col=1)
     z, labels, scale, text = _strip(f)
-    fig.add_trace(go.Heatmap(x=x, y=["family", "lower state", "upper state"], z=z, text=text,
+    fig.add_trace(go.Heatmap(x=x, y=list(STRIP_ROWS), z=z, text=text,
                              colorscale=scale, zmin=-0.5, zmax=len(labels) - 0.5,
                              showscale=False, hovertemplate="%{y}: %{text}<extra></extra>",
                              ygap=1), row=4, col=1)
@@ -512,6 +574,16 @@ def timeline_figure(history: PairHistory) -> go.Figure:
                                      f"({share:.0%} of windows)", legendgroup="families",
                                      legendgrouptitle_text="selected family",
                                      marker={"symbol": "square", "size": 11, "color": colour}),
+                          row=4, col=1)
+    seen_rot = set(f["rotation"].astype(int))
+    for rot, shade in ROTATION_SHADES.items():
+        if rot in seen_rot:
+            share = float((f["rotation"].astype(int) == rot).mean())
+            fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers",
+                                     name=f"{rot}° ({share:.0%})", legendgroup="rotations",
+                                     legendgrouptitle_text="rotation (counter-clockwise)",
+                                     marker={"symbol": "square", "size": 11, "color": shade,
+                                             "line": {"color": MUTED, "width": 1}}),
                           row=4, col=1)
     for state in STATES:
         fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name=state,
@@ -531,7 +603,8 @@ def timeline_figure(history: PairHistory) -> go.Figure:
             fig.add_vrect(x0=e.start, x1=e.end, row=row, col=1, layer="below", line_width=0,
                           fillcolor=translucent(EPISODE_COLOURS[e.tail], 0.14))
     fig.update_yaxes(fixedrange=True)
-    fig.update_yaxes(range=[-1, 1], row=1, col=1, zeroline=True, zerolinecolor=RULE)
+    fig.update_yaxes(range=list(tau_axis_range(f["tau_low"], f["tau_high"])), row=1, col=1,
+                     zeroline=True, zerolinecolor=RULE)
     fig.update_yaxes(range=[0, 1], row=2, col=1)
     fig.update_yaxes(range=[0, 1], row=3, col=1)
     fig.update_xaxes(showspikes=True, spikemode="across", spikecolor=MUTED, spikethickness=1)

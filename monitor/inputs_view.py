@@ -655,7 +655,7 @@ def ljung_box_table(diag: MarginalDiagnostics) -> pd.DataFrame:
 
 def _title(diag: MarginalDiagnostics, what: str) -> dict:
     return {"text": f"{diag.asset}: {what}<br><sup>{diag.latest.spec.label} at the latest refit"
-                    f"; {diag.mode} marginals ({diag.settings_key})</sup>",
+                    f"; {diag.mode} marginals</sup>",
             "x": 0, "font": {"size": 14}}
 
 

@@ -27,11 +27,23 @@ RULE = "#D9D4CC"
 #: The state colours (signals.STATES): calm, watch, alert.
 STATE_COLOURS = {"calm": GREEN, "watch": ORANGE, "alert": VERMILION}
 
-#: A colour per copula family, for the family band of the timeline.
+#: A colour per copula family, for the family band of the timeline. None of them is a state
+#: colour (a strip cell must never read as "alert" because Clayton was selected): the blues,
+#: yellow and reddish purple of Okabe-Ito, plus greys, a brown, a violet and a sand for the
+#: rest (checked distinct from every state colour in tests/dashboard/test_timeline.py).
 FAMILY_COLOURS = {
-    "independence": GREY, "gaussian": BLUE, "student_t": SKY, "clayton": VERMILION,
-    "gumbel": ORANGE, "frank": GREEN, "joe": YELLOW, "bb1": PURPLE, "bb7": BLACK,
+    "independence": "#D9D9D9", "gaussian": BLUE, "student_t": SKY, "clayton": PURPLE,
+    "gumbel": YELLOW, "frank": "#8C6D46", "joe": "#6A3D9A", "bb1": "#4D4D4D",
+    "bb7": "#E4C59E",
 }
+
+#: Shading of the rotation row beneath the family band: light to dark by angle.
+ROTATION_SHADES = {0: "#F2F2F2", 90: "#BDBDBD", 180: "#737373", 270: "#262626"}
+
+#: Line colours of the timeline's series: Kendall's tau is drawn in black so that it never
+#: shares a colour with the tail series (nonparametric in blue, model-implied in orange).
+SERIES_COLOURS = {"tau": BLACK, "tail_empirical": BLUE, "tail_model": ORANGE,
+                  "gaussian_same_tau": GREY}
 
 #: Diverging scale for signed quantities (tau): blue negative, white zero, vermilion positive.
 DIVERGING = [[0.0, BLUE], [0.5, "#F7F7F7"], [1.0, VERMILION]]

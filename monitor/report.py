@@ -18,6 +18,7 @@ from .drilldown import PairStudy, WindowResult, candidate_table, crash_table, su
 from .drilldown import tail_table as tail_dependence_table
 from .drilldown_figures import crash_figure, provenance_line, scatter_figure, tail_figure
 from .palette import FONT, GROUND, INK, MUTED, PANEL, RULE, VERMILION
+from .views import settings_words
 
 _STYLE = f"""
 body {{ font-family: {FONT}; color: {INK}; background: {GROUND}; margin: 0; padding: 18px 28px; }}
@@ -78,9 +79,10 @@ def provenance_table(study: PairStudy) -> pd.DataFrame:
         rows.append((f"{res.role} window", (f"{w.start.date()} to {w.end.date()} "
                                            f"(n = {w.n} common dates)")))
     rows += [
-        ("reference window rule", study.reference_rule),
+        ("reference chosen by", study.reference_rule),
         ("columns", (f"stored standardised residuals of the GARCH-type marginal model, "
-                    f"{study.marginal_mode} mode (settings {study.marginal_key}), ranked within "
+                    f"{study.marginal_mode} mode ({settings_words(study.marginal_key)}), "
+                    "ranked within "
                     "each window into pseudo-observations R/(n+1)")),
         ("candidate families", ", ".join(study.families)),
         ("selection criterion", study.criterion.upper()),

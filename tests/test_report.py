@@ -40,7 +40,7 @@ def study() -> PairStudy:
         out.append(window_result(w, inside, role))
     return PairStudy(pair=(a, b), study=out[0], reference=out[1],
                      reference_rule="the range chosen by the user", marginal_mode="in-sample",
-                     marginal_key="test-key", criterion="aic", families=("all",),
+                     marginal_key="in-sample/min250/all8/v1", criterion="aic", families=("all",),
                      replicates=20, seed=0, seconds=1.0, notes=("invented data",))
 
 
@@ -81,7 +81,11 @@ def test_report_carries_provenance_cautions_and_every_candidate(study, document)
     marked = re.findall(r'<tr class="selected( flagged)?">', text)
     assert len(marked) == 2
     assert "20 parametric-bootstrap replicates per candidate with re-ranking, seed 0" in text
-    assert "in-sample mode (settings test-key)" in text
+    # issue 12: the settings in words, never the stored key
+    assert ("in-sample mode (marginals: GARCH-type filter, in-sample mode (one fit on all "
+            "data, at least 250 observations), BIC choice among the 8 standard "
+            "specifications)") in text
+    assert "in-sample/min250" not in text
     assert "selection criterion</td><td class=\"text\">AIC" in text
     assert "2026-12-01 09:30 UTC" in text
     assert "invented data" in text

@@ -21,15 +21,16 @@ from layouts.drilldown import layout, results
 from monitor.copulas import family
 from monitor.drilldown import (
     PairStudy,
+    choose_reference,
     frechet_hoeffding_bounds,
     gaussian_rho_from_tau,
     joint_crash_probabilities,
     parse_pair,
     study_pair,
     tail_concordance,
-    wilson_interval,
+    tail_excess,
 )
-from monitor.empirical import pseudo_observations
+from monitor.empirical import pseudo_observations, tail_share_interval, wilson_interval
 from monitor.errors import InputError
 from monitor.fitting import CopulaFit, fit_batched
 from monitor.inference import (
@@ -107,9 +108,11 @@ def test_empirical_crash_share_counted_by_hand_with_wilson_interval():
         count = sum(1 for a, b in zip(u, v, strict=True) if a <= c.q and b <= c.q)
         assert c.empirical_count == count
         assert c.empirical == count / 400
-        # Wilson (1927) score interval, as statsmodels computes it.
+        # Wilson (1927) score interval, as statsmodels computes it, cut at q (issue 12:
+        # C(q,q) <= q, Nelsen 2006, Theorem 2.2.3)
         lo, hi = proportion_confint(count, 400, alpha=0.05, method="wilson")
-        assert (c.empirical_lower, c.empirical_upper) == pytest.approx((lo, hi), abs=1e-12)
+        assert (c.empirical_lower, c.empirical_upper) == pytest.approx((lo, min(hi, c.q)),
+                                                                       abs=1e-12)
 
 
 def test_wilson_interval_and_bounds_helpers():
@@ -118,6 +121,36 @@ def test_wilson_interval_and_bounds_helpers():
     assert lo == pytest.approx([r[0] for r in ref]) and hi == pytest.approx([r[1] for r in ref])
     w, m = frechet_hoeffding_bounds([0.3, 0.8], [0.9, 0.7])
     assert w == pytest.approx([0.2, 0.5]) and m == pytest.approx([0.3, 0.7])
+
+
+def test_tail_share_interval_stays_in_zero_to_q_and_is_wilson_inside():
+    n, q = 250, 0.1
+    counts = np.array([0, 1, 5, 12, 20, 24, 25])  # 25 = q * n: every tail day is a joint one
+    lo, hi = tail_share_interval(counts / n, n, q)
+    # Wilson (1927) score interval, as statsmodels computes it, cut at q (C(q,q) <= q,
+    # Nelsen 2006, Theorem 2.2.3).
+    ref_lo, ref_hi = proportion_confint(counts, n, alpha=0.05, method="wilson")
+    np.testing.assert_allclose(lo, np.minimum(ref_lo, q), rtol=1e-12, atol=1e-15)
+    np.testing.assert_allclose(hi, np.minimum(ref_hi, q), rtol=1e-12)
+    assert lo[0] == pytest.approx(0.0, abs=1e-15) and hi[0] > 0
+    assert ref_hi[-1] > q and hi[-1] == q  # the raw Wilson end would pass q
+    assert ref_hi[-1] == pytest.approx(0.14345, abs=1e-5)  # by hand from Wilson's formula
+    assert np.all((0 <= lo) & (lo <= hi) & (hi <= q))
+    assert np.all((0 <= lo / q) & (hi / q <= 1))  # C(q,q)/q in [0, 1]
+    with pytest.raises(ValueError, match="q must lie"):
+        tail_share_interval(0.1, 10, 0.0)
+
+
+def test_drilldown_intervals_lie_on_their_scales():
+    # A comonotone-ish sample: every lower-tail day of u is one of v, so the share reaches q.
+    u = pseudo_observations(np.arange(200.0))
+    fit = _fit("clayton", (8.0,), n=200)
+    for c in joint_crash_probabilities(u, u, fit, levels=(0.01, 0.05)):
+        assert 0 <= c.empirical_lower <= c.empirical_upper <= c.q
+        assert c.empirical_upper == c.q  # clipped: raw Wilson would exceed q
+    curve = tail_concordance(u, u, fit, "lower")
+    assert np.all((curve.empirical_lower >= 0) & (curve.empirical_upper <= 1 + 1e-12))
+    assert curve.empirical_upper.max() == pytest.approx(1.0)
 
 
 def test_tail_curves_against_closed_forms_and_counts():
@@ -235,18 +268,73 @@ def test_study_of_the_clayton_regime_picks_lower_tail_and_crash_ratio_above_one(
 
 def test_default_reference_is_the_calmest_stored_window_apart_from_the_study(view, pair,
                                                                               shifted):
+    # issue 12: the calmest window among those with a tau close to the study window's
     study, _, (start, end) = shifted
     timeline = view.store.read_timeline(view.rolling_key, *pair)
     apart = timeline[(timeline["date"] < start) | (timeline["start"] > end)]
-    calmest = apart["tail_lower_emp"].min()
+    tau_study = stats.kendalltau(study.study.window.u, study.study.window.v).statistic
+    close = apart[(apart["kendall_tau"] - tau_study).abs() <= 0.1]
+    assert len(close) > 0
+    excess = np.fmax(close["tail_lower_emp"], close["tail_upper_emp"]) - close["gauss_tail_q"]
     ref = study.reference.window
     row = timeline[timeline["date"] == ref.end].iloc[0]
-    assert row["start"] == ref.start and row["tail_lower_emp"] == calmest
+    assert row["start"] == ref.start
+    assert max(row["tail_lower_emp"], row["tail_upper_emp"]) - row["gauss_tail_q"] == \
+        pytest.approx(excess.min(), abs=1e-12)
+    assert abs(row["kendall_tau"] - tau_study) <= 0.1
     assert ref.end < start
     assert ref.n == view.rolling.window
     # The rolling engine's empirical tail at q is the reference window's own.
     assert ref.tail_lower_emp == pytest.approx(row["tail_lower_emp"], abs=1e-12)
-    assert "calmest stored 120-day window" in study.reference_rule
+    assert "calmest stored 120-day window with Kendall's tau within 0.1" in study.reference_rule
+    assert f"{len(close)} of {len(timeline)} stored windows qualified" in study.reference_rule
+
+
+def _timeline(rows):
+    frame = pd.DataFrame(rows, columns=["end", "kendall_tau", "tail_lower_emp",
+                                        "tail_upper_emp", "gauss_tail_q"])
+    frame["date"] = pd.to_datetime(frame.pop("end"))
+    frame["start"] = frame["date"] - pd.Timedelta(days=100)
+    return frame
+
+
+def test_reference_rule_on_a_constructed_timeline():
+    study_start, study_end = pd.Timestamp("2021-01-01"), pd.Timestamp("2021-06-30")
+    rows = [  # end, tau, lower, upper, Gaussian at the same tau -> excess
+        ("2019-01-31", 0.40, 0.30, 0.25, 0.28),  # +0.02, |dtau| 0
+        ("2019-06-30", 0.45, 0.26, 0.20, 0.30),  # -0.04, |dtau| 0.05: the calmest close one
+        ("2019-12-31", 0.10, 0.05, 0.05, 0.15),  # -0.10, |dtau| 0.30
+        ("2020-06-30", 0.55, 0.20, 0.20, 0.35),  # -0.15, |dtau| 0.15
+        ("2021-03-31", 0.40, 0.00, 0.00, 0.30),  # -0.30, overlaps the study window
+    ]
+    kw = {"window": 120, "tail_q": 0.1}
+    got = choose_reference(_timeline(rows), study_start, study_end, 0.40, **kw)
+    assert (got.end, got.start) == (pd.Timestamp("2019-06-30"), pd.Timestamp("2019-03-22"))
+    assert (got.tolerance, got.candidates) == (0.1, 2)
+    assert got.kendall_tau == 0.45 and got.tail_excess == pytest.approx(-0.04)
+    assert got.rule.startswith("calmest stored 120-day window with Kendall's tau within 0.1 "
+                               "of the study window's (0.400)")
+    assert got.rule.endswith("tau 0.450, tail excess -0.040; 2 of 5 stored windows qualified")
+    # none within 0.1 -> widened to 0.2
+    got = choose_reference(_timeline(rows[2:]), study_start, study_end, 0.40, **kw)
+    assert got.end == pd.Timestamp("2020-06-30") and got.tolerance == 0.2
+    assert "within 0.2 of the study window's (0.400; none within 0.1)" in got.rule
+    # none within 0.2 -> the calmest apart from the study window, saying the taus differ
+    got = choose_reference(_timeline(rows[2:3] + rows[4:]), study_start, study_end, 0.40, **kw)
+    assert got.end == pd.Timestamp("2019-12-31") and got.tolerance is None
+    assert "so the taus differ" in got.rule
+    # every stored window overlaps: the calmest of them, saying so
+    got = choose_reference(_timeline(rows[4:]), study_start, study_end, 0.40, **kw)
+    assert got.end == pd.Timestamp("2021-03-31")
+    assert "every stored window overlaps the study window" in got.rule
+    # ties of the excess go to the closer tau, then to the later window
+    tied = [("2019-01-31", 0.40, 0.2, 0.2, 0.2), ("2019-06-30", 0.38, 0.2, 0.2, 0.2),
+            ("2019-09-30", 0.38, 0.2, 0.2, 0.2)]
+    got = choose_reference(_timeline(tied), study_start, study_end, 0.40, **kw)
+    assert got.end == pd.Timestamp("2019-01-31")  # the closest tau
+    got = choose_reference(_timeline(tied[1:]), study_start, study_end, 0.40, **kw)
+    assert got.end == pd.Timestamp("2019-09-30")  # same tau: the later window
+    assert tail_excess(_timeline(tied)).tolist() == pytest.approx([0.0, 0.0, 0.0])
 
 
 def test_progress_is_monotone_and_ends_at_the_total(shifted):

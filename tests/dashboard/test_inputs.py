@@ -266,7 +266,10 @@ def test_layout_and_diagnostics_callback(view, dash_store):
     assert len(acf_fig.data[0].x) == 12
     assert [c["id"] for c in columns] == ["sample", "series", "lags", "statistic", "pvalue"]
     assert len(data) == 4 and note.startswith(f"{assets[2]}: ")
-    assert "real-time" in note and view.marginal_key in res.layout.title.text
+    # issue 12: the settings in words, never the stored key
+    assert "real-time mode (refit every 21 days" in note and view.marginal_key not in note
+    assert "real-time marginals" in res.layout.title.text
+    assert view.marginal_key not in res.layout.title.text
     assert qq.layout.xaxis.title.text == "N(0,1) quantile"
     *_, note = callback(assets[2], "many")
     assert note == "ACF lags: 'many' is not a number"

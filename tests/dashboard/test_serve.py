@@ -74,3 +74,51 @@ def test_loopback_app_serves_without_credentials(dash_store):
         assert client.get("/").status_code == 200
         layout = client.get("/_dash-layout").get_json()
         assert "statistical estimates with model risk" in str(layout)
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def test_comove_serve_answers_on_a_production_wsgi_server(dash_store):
+    """`comove serve` as a user starts it: a real process on a free port, HTTP 200 from the
+    page, and no Flask development-server warning (it runs on waitress)."""
+    import os
+    import subprocess
+    import sys
+    import time
+    import urllib.request
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[2]
+    port = _free_port()
+    env = {**os.environ, "PYTHONPATH": str(root), "PYTHONUNBUFFERED": "1"}
+    env.pop(SECRET_ENV, None)
+    proc = subprocess.Popen(
+        [sys.executable, "-c", "import sys; from monitor.cli import main; sys.exit(main())",
+         "serve", "--port", str(port), "--store", dash_store.url],
+        cwd=root, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+    try:
+        status, body, deadline = None, "", time.monotonic() + 60
+        while time.monotonic() < deadline and proc.poll() is None:
+            try:
+                with urllib.request.urlopen(f"http://127.0.0.1:{port}/", timeout=5) as r:
+                    status, body = r.status, r.read().decode()
+                with urllib.request.urlopen(f"http://127.0.0.1:{port}/_dash-layout",
+                                            timeout=10) as r:
+                    layout_status = r.status
+                break
+            except OSError:
+                time.sleep(0.3)
+        assert status == 200 and layout_status == 200, proc.poll()
+        assert "<title>comove</title>" in body or "comove" in body
+    finally:
+        proc.terminate()
+        out, _ = proc.communicate(timeout=30)
+    assert f"dashboard on http://127.0.0.1:{port}/" in out
+    assert "waitress" in out
+    # Flask's development server announces itself with this warning; waitress never does.
+    assert "development server" not in out.lower() and "WARNING: This is" not in out
+    assert "Traceback" not in out

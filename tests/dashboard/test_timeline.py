@@ -33,10 +33,11 @@ from monitor.history import (
     pair_history,
     parse_pair,
     study_link,
+    tau_axis_range,
     tau_band,
     timeline_figure,
 )
-from monitor.palette import FAMILY_COLOURS
+from monitor.palette import FAMILY_COLOURS, ROTATION_SHADES, SERIES_COLOURS, STATE_COLOURS
 from monitor.signals import pair_signals
 
 from .tree import find, text
@@ -123,7 +124,9 @@ def test_timeline_figure_traces(view):
     assert names.count("nonparametric C(q,q)/q") == 2  # lower and upper rows
     assert names.count("model-implied (selected family)") == 2
     heat = [t for t in fig.data if t.type == "heatmap"]
-    assert len(heat) == 1 and list(heat[0].y) == ["family", "lower state", "upper state"]
+    # issue 12: the strip gained a rotation row beneath the family row
+    assert len(heat) == 1 and list(heat[0].y) == ["family", "rotation", "lower state",
+                                                  "upper state"]
     for fam in set(history.frame["family"]):
         legend = [t for t in fig.data if t.name and t.name.startswith(f"{fam} (")]
         assert len(legend) == 1 and legend[0].marker.color == FAMILY_COLOURS[fam]
@@ -203,3 +206,61 @@ def test_family_runs_of_a_small_frame():
     assert runs[["family", "rotation", "windows"]].values.tolist() == [
         ["gaussian", 0, 2], ["clayton", 0, 1], ["clayton", 180, 1], ["gaussian", 0, 1]]
     assert runs["last_date"].iloc[0] == pd.Timestamp("2024-01-02")
+
+
+# ----------------------------------------------------------------------------- colours, axes
+def test_family_colours_are_not_state_colours_and_tau_is_not_a_tail_colour(view):
+    states = {c.upper() for c in STATE_COLOURS.values()}
+    assert not states & {c.upper() for c in FAMILY_COLOURS.values()}
+    assert len(set(FAMILY_COLOURS.values())) == len(FAMILY_COLOURS)  # one colour a family
+    a, b = min(view.store.stored_pairs(view.rolling_key))
+    fig = timeline_figure(pair_history(view, a, b))
+    by_name = {t.name: t for t in fig.data if t.name}
+    tau = by_name["Kendall's tau"].line.color
+    tails = {by_name["nonparametric C(q,q)/q"].line.color,
+             by_name["model-implied (selected family)"].line.color}
+    assert tau == SERIES_COLOURS["tau"] and tau not in tails and len(tails) == 2
+
+
+def test_tau_axis_fits_the_band():
+    # band 0.30..0.50: span 0.2, 10% room each side -> 0.28..0.52
+    assert tau_axis_range([0.30, 0.35], [0.45, 0.50]) == (0.28, 0.52)
+    # a band near zero keeps zero in view; a flat series still gets a span of 0.2
+    assert tau_axis_range([0.05], [0.09]) == (-0.03, 0.17)
+    assert tau_axis_range([0.12], [0.18]) == (0.0, 0.25)  # 0.05..0.25 pulled down to zero
+    assert tau_axis_range([-0.5, np.nan], [-0.3, np.nan]) == (-0.52, -0.28)
+    assert tau_axis_range([-0.98], [0.99]) == (-1.0, 1.0)  # never beyond [-1, 1]
+    assert tau_axis_range([np.nan], [np.nan]) == (-1.0, 1.0)
+
+
+def test_timeline_tau_axis_and_rotation_strip(view):
+    from dataclasses import replace
+
+    a, b = min(view.store.stored_pairs(view.rolling_key))
+    history = pair_history(view, a, b)
+    fig = timeline_figure(history)
+    f = history.frame
+    lo, hi = fig.layout.yaxis.range
+    assert (lo, hi) == tau_axis_range(f["tau_low"].round(4), f["tau_high"].round(4))
+    assert -1 < lo <= f["tau_low"].min() and f["tau_high"].max() <= hi < 1
+    # A constructed selection: clayton at 0 and 180 degrees, gumbel at 90.
+    frame = f.copy()
+    k = len(frame)
+    frame["family"] = np.where(np.arange(k) < k // 2, "clayton", "gumbel")
+    frame["rotation"] = np.select([np.arange(k) < k // 4, np.arange(k) < k // 2], [0, 180], 90)
+    fig = timeline_figure(replace(history, frame=frame))
+    heat = next(t for t in fig.data if t.type == "heatmap")
+    z = np.asarray(heat.z, dtype=float)
+    rot_codes = z[1]
+    assert len(set(rot_codes[: k // 4])) == 1 and len(set(rot_codes)) == 3
+    # each code reads its own shade from the stepped scale
+    n_labels = heat.zmax + 0.5
+    shade = {r: heat.colorscale[2 * int(c)][1] for r, c in
+             ((0, rot_codes[0]), (180, rot_codes[k // 4]), (90, rot_codes[-1]))}
+    assert shade == {r: ROTATION_SHADES[r] for r in (0, 180, 90)} and n_labels > 3
+    text = np.asarray(heat.text)
+    assert text[0][0] == "clayton 0°" and text[0][k // 4] == "clayton 180°"
+    assert text[1][-1] == "gumbel 90°"
+    legend = [t.name for t in fig.data if t.legendgroup == "rotations"]
+    shares = [(k // 4) / k, (k - k // 2) / k, (k // 2 - k // 4) / k]
+    assert legend == [f"{r}° ({p:.0%})" for r, p in zip((0, 90, 180), shares, strict=True)]
