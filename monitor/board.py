@@ -59,7 +59,7 @@ from .palette import (
     figure_layout,
 )
 from .pipeline import states_on
-from .signals import STATES, TAILS
+from .signals import STATES, TAILS, universe_key
 from .views import StoreView
 
 __all__ = [
@@ -312,7 +312,7 @@ def board_range(view: StoreView) -> tuple[pd.Timestamp, pd.Timestamp] | None:
         First and last date of the stored universe summary; None before the first
         ``comove update`` of the signals.
     """
-    got = view.store.universe_range(view.signals_key)
+    got = view.store.universe_range(universe_key(view.signals_key))
     return None if got is None else (pd.Timestamp(got[0]), pd.Timestamp(got[1]))
 
 
@@ -343,7 +343,7 @@ def board_data(view: StoreView, as_of: object = None) -> BoardData:
     ordering are in the module docstring.
     """
     store = view.store
-    summary = store.read_universe(view.signals_key)
+    summary = store.read_universe(universe_key(view.signals_key))
     latest = store.latest_window_end(view.rolling_key)
     if latest is None or summary.empty:
         raise InputError("board: no signals stored under the current settings yet "
