@@ -947,10 +947,13 @@ class Store:
         return frame
 
     def metrics_as_of(self, settings_key: str, as_of: dt.date,
-                      columns: Iterable[str]) -> pd.DataFrame:
+                      columns: Iterable[str], back: int = 0) -> pd.DataFrame:
         """For every pair with a stored rolling state, its latest metric row dated on or before
         ``as_of``: one query (columns ``asset_a, asset_b`` and ``columns``; ``date`` as a
         Timestamp when asked for). Pairs with no window end by then are left out.
+
+        With ``back`` > 0, the row ``back`` window ends before that one instead (the pair's
+        own window ends; pairs with fewer are left out).
 
         Notes
         -----
@@ -961,11 +964,17 @@ class Store:
         milliseconds for 435 pairs x 4750 windows).
         """
         columns = list(columns)
+        if isinstance(back, bool) or not isinstance(back, int) or back < 0:
+            raise ValueError(f"back must be an integer >= 0, got {back!r}")
         inner = metrics.alias("later")
-        latest = (sa.select(sa.func.max(inner.c.date)).where(
-            inner.c.settings == pair_state.c.settings, inner.c.asset_a == pair_state.c.asset_a,
-            inner.c.asset_b == pair_state.c.asset_b, inner.c.date <= as_of)
-            .scalar_subquery())
+        of_pair = (inner.c.settings == pair_state.c.settings,
+                   inner.c.asset_a == pair_state.c.asset_a,
+                   inner.c.asset_b == pair_state.c.asset_b, inner.c.date <= as_of)
+        if back == 0:
+            latest = sa.select(sa.func.max(inner.c.date)).where(*of_pair).scalar_subquery()
+        else:
+            latest = (sa.select(inner.c.date).where(*of_pair).order_by(inner.c.date.desc())
+                      .limit(1).offset(back).scalar_subquery())
         with self.engine.connect() as conn:
             ends = sa.select(pair_state.c.asset_a, pair_state.c.asset_b,
                              latest.label("last_end")).where(
@@ -985,6 +994,37 @@ class Store:
         for col in ("date", "start"):
             if col in frame.columns:
                 frame[col] = pd.to_datetime(frame[col])
+        return frame
+
+    def tail_level_counts(self, settings_key: str, first: dt.date, last: dt.date,
+                          level: float, columns: tuple[str, str] = ("tail_lower_avg",
+                                                                    "tail_upper_avg")
+                          ) -> pd.DataFrame:
+        """Per pair, how many of its window ends in ``[first, last]`` have each of two tail
+        columns at or above ``level``: one grouped query over those dates.
+
+        Returns
+        -------
+        DataFrame
+            ``asset_a, asset_b, n_ends`` (window ends with both columns computed: rows of
+            an older comove with NULL there are not counted) and ``n_<column>`` per column.
+        """
+        m = metrics.c
+        a, b = columns
+        known = sa.and_(m[a].is_not(None), m[b].is_not(None))
+
+        def above(col: str) -> sa.ColumnElement:
+            return sa.func.sum(sa.case((sa.and_(known, m[col] >= level), 1), else_=0))
+
+        stmt = (sa.select(m.asset_a, m.asset_b,
+                          sa.func.sum(sa.case((known, 1), else_=0)), above(a), above(b))
+                .where(m.settings == settings_key, m.date >= first, m.date <= last)
+                .group_by(m.asset_a, m.asset_b).order_by(m.asset_a, m.asset_b))
+        with self.engine.connect() as conn:
+            frame = _frame(conn.execute(stmt).all(),
+                           ["asset_a", "asset_b", "n_ends", f"n_{a}", f"n_{b}"])
+        for c in ("n_ends", f"n_{a}", f"n_{b}"):
+            frame[c] = pd.to_numeric(frame[c]).fillna(0).astype(np.int64)
         return frame
 
     def universe_after(self, rolling_settings_key: str, signals_settings_key: str,

@@ -259,8 +259,8 @@ def test_board_callback_returns_the_figures_and_the_table(dash_store, view):
     register(app, view)
     (key,) = app.callback_map
     assert all(f"{i}.{p}" in key for i, p in OUTPUTS)
-    assert [i["id"] for i in app.callback_map[key]["inputs"]] == [ids.BOARD_DATE,
-                                                                  ids.BOARD_TAIL_SOURCE]
+    assert [i["id"] for i in app.callback_map[key]["inputs"]] == [
+        ids.BOARD_DATE, ids.BOARD_TAIL_SOURCE, ids.BOARD_HORIZON]
     day = board_data(view).as_of.strftime("%Y-%m-%d")
     result = dict(zip([f"{i}.{p}" for i, p in OUTPUTS], show_board(view, day, "model"),
                       strict=True))
@@ -291,10 +291,13 @@ def test_board_callback_returns_the_figures_and_the_table(dash_store, view):
     columns = result[f"{ids.BOARD_RANKING}.columns"]
     assert columns[2] == {"name": "history", "id": "history", "presentation": "markdown"}
     summary = result[f"{ids.BOARD_SUMMARY}.figure"]
-    assert len(summary.data) == 7
+    # tau, three figures per tail, two alert shares, pairs counted and carried.
+    assert len(summary.data) == 11
     np.testing.assert_allclose(np.array(summary.data[0].y, float),
                                data.summary["kendall_tau"].to_numpy(), atol=5e-5)
-    assert len(summary.layout.shapes) == 2  # the date marker on both rows
+    counted = next(t for t in summary.data if t.name == "pairs counted")
+    np.testing.assert_array_equal(np.array(counted.y, float), data.summary["n_pairs"])
+    assert len(summary.layout.shapes) == 3  # the date marker on every row
     note = result[f"{ids.BOARD_NOTE}.children"]
     assert "window 120 days" in note and "real-time" in note and "6 pairs of 4 assets" in note
     assert result[f"{ids.BOARD_MESSAGE}.children"] == ""
@@ -317,15 +320,22 @@ def test_layout_reads_the_date_and_tail_source_from_the_address(view):
     picker = find(tree, ids.BOARD_DATE)
     assert picker.date == universe.index[-1].strftime("%Y-%m-%d")
     assert picker.min_date_allowed == universe.index[0].strftime("%Y-%m-%d")
-    assert find(tree, ids.BOARD_TAIL_SOURCE).value == "model"
-    day = universe.index[100].strftime("%Y-%m-%d")
-    tree = board_page.layout(view, {"date": day, "tails": "nonparametric"})
-    assert find(tree, ids.BOARD_DATE).date == day
+    # The default tail figure is the nonparametric one (issue 12; it was the selected
+    # family's), the default horizon one month.
     assert find(tree, ids.BOARD_TAIL_SOURCE).value == "nonparametric"
-    bad = board_page.layout(view, {"date": "yesterday", "tails": "best"})
+    assert find(tree, ids.BOARD_HORIZON).value == "1m"
+    day = universe.index[100].strftime("%Y-%m-%d")
+    tree = board_page.layout(view, {"date": day, "tails": "model", "horizon": "1y"})
+    assert find(tree, ids.BOARD_DATE).date == day
+    assert find(tree, ids.BOARD_TAIL_SOURCE).value == "model"
+    assert find(tree, ids.BOARD_HORIZON).value == "1y"
+    bad = board_page.layout(view, {"date": "yesterday", "tails": "best", "horizon": "2d"})
     assert "date in the address: 'yesterday' is not a date (YYYY-MM-DD)" in text(bad)
-    assert "tails in the address: 'best' is not one of model, nonparametric" in text(bad)
-    assert find(bad, ids.BOARD_TAIL_SOURCE).value == "model"
+    assert ("tails in the address: 'best' is not one of nonparametric, averaged, model"
+            in text(bad))
+    assert "horizon in the address: '2d' is not one of 1w, 1m, 3m, 1y" in text(bad)
+    assert find(bad, ids.BOARD_TAIL_SOURCE).value == "nonparametric"
+    assert find(bad, ids.BOARD_HORIZON).value == "1m"
     assert "in binomial standard errors" in text(bad)  # the ranking's definition is shown
 
 
