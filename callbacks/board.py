@@ -1,5 +1,6 @@
-"""Callbacks of the Board page: the date and the tail source in, matrices, ranking and the
-universe summary out (all computed by :func:`monitor.board.board_data`)."""
+"""Callbacks of the Board page: the date, the horizon and the tail source in; change,
+level and excess matrices, ranking and the universe summary out (all computed by
+:func:`monitor.board.board_data`)."""
 
 from __future__ import annotations
 
@@ -10,7 +11,19 @@ from dash import Input, Output
 
 from layouts import ids
 from layouts.components import message
-from monitor.board import QUANTITIES, board_data, matrix_figure, ranking_table, summary_figure
+from monitor.board import (
+    DEFAULT_HORIZON,
+    DEFAULT_TAIL_SOURCE,
+    HORIZONS,
+    QUANTITIES,
+    TAIL_SOURCES,
+    board_data,
+    change_figure,
+    excess_figure,
+    matrix_figure,
+    ranking_table,
+    summary_figure,
+)
 from monitor.errors import InputError
 from monitor.palette import figure_layout
 
@@ -18,6 +31,9 @@ from monitor.palette import figure_layout
 OUTPUTS = ((ids.BOARD_MATRIX_TAU, "figure"), (ids.BOARD_MATRIX_LOWER, "figure"),
            (ids.BOARD_MATRIX_UPPER, "figure"), (ids.BOARD_RANKING, "data"),
            (ids.BOARD_RANKING, "columns"), (ids.BOARD_SUMMARY, "figure"),
+           (ids.BOARD_CHANGE_TAU, "figure"), (ids.BOARD_CHANGE_LOWER, "figure"),
+           (ids.BOARD_CHANGE_UPPER, "figure"), (ids.BOARD_EXCESS_LOWER, "figure"),
+           (ids.BOARD_EXCESS_UPPER, "figure"), (ids.BOARD_CHANGE_NOTE, "children"),
            (ids.BOARD_NOTE, "children"), (ids.BOARD_MESSAGE, "children"))
 
 
@@ -32,37 +48,65 @@ def _table(data) -> tuple[list[dict], list[dict]]:
     frame.insert(2, "history", links)
     columns = [{"name": str(c), "id": str(c)} for c in frame.columns]
     columns[2]["presentation"] = "markdown"
+    for c in columns:
+        if frame[c["id"]].dtype.kind in "fi":
+            c["type"] = "numeric"  # sorts as numbers, not as text
     return frame.to_dict("records"), columns
 
 
-def show_board(view, date: str | None, source: str | None) -> tuple:
-    """Everything the page shows for a date and a tail source (the values of
+def _change_note(data) -> str:
+    p = data.pairs
+    z = p["change_kendall_tau_z"].abs()
+    moved = int((z >= 2).sum())
+    lo = p["change_tail_lower_emp_z"].abs()
+    hi = p["change_tail_upper_emp_z"].abs()
+    tails = int(((lo >= 2) | (hi >= 2)).sum())
+    missing = int(p["date_then"].isna().sum())
+    return (f"Change over {data.horizon_label} ({data.back} window ends, {data.lag} "
+            f"trading days) up to {data.as_of:%Y-%m-%d}: {moved} of {len(p)} pairs moved "
+            f"in tau by at least 2 s.e., {tails} in a nonparametric tail."
+            + (f" {missing} pair(s) have no window that far back." if missing else ""))
+
+
+def show_board(view, date: str | None, source: str | None,
+               horizon: str | None = DEFAULT_HORIZON) -> tuple:
+    """Everything the page shows for a date, a tail source and a horizon (the values of
     :data:`OUTPUTS`); a bad date gives blank figures and a one-line message."""
+    horizon = horizon if horizon in HORIZONS else DEFAULT_HORIZON
     try:
-        data = board_data(view, date or None)
+        data = board_data(view, date or None, horizon)
     except InputError as exc:
         blank = _blank()
-        return blank, blank, blank, [], [], blank, "", message(str(exc), kind="problem")
-    source = source if source in ("model", "nonparametric") else "model"
+        return (blank, blank, blank, [], [], blank, blank, blank, blank, blank, blank, "", "",
+                message(str(exc), kind="problem"))
+    source = source if source in TAIL_SOURCES else DEFAULT_TAIL_SOURCE
     figures = [matrix_figure(data, q, source) for q in QUANTITIES]
+    changes = [change_figure(data, q, source) for q in QUANTITIES]
+    excess = [excess_figure(data, t) for t in ("lower", "upper")]
     rows, columns = _table(data)
     counts = data.pairs["state"].value_counts()
+    standing = int(data.pairs["standing"].fillna("").ne("").sum())
     stale = int(data.pairs["date"].lt(data.pairs["date"].max()).sum())
     note = (f"{len(data.pairs)} pairs of {len(data.assets)} assets as of "
             f"{data.as_of:%Y-%m-%d}: {int(counts.get('alert', 0))} in alert, "
-            f"{int(counts.get('watch', 0))} on watch. {data.provenance}. Hover a cell for its "
-            "value with a 95% interval (tau: influence-function s.e.; nonparametric tails: "
-            "Wilson binomial interval); model-implied tails have no stored s.e. — the "
-            "Drill-down page gives bootstrap intervals."
+            f"{int(counts.get('watch', 0))} on watch, {standing} with a standing heavy tail. "
+            f"{data.provenance}. Hover a cell for its value with a 95% interval (tau: "
+            "influence-function s.e.; nonparametric tails: Wilson binomial interval); "
+            "model-based tails have no stored s.e. — the Drill-down page gives bootstrap "
+            "intervals."
             + (f" {stale} pair(s) have no window ending on the latest date shown and use "
-               "their previous one." if stale else ""))
-    return (*figures, rows, columns, summary_figure(data.summary, data.as_of), note, "")
+               "their previous one." if stale else "")
+            + (f" {data.averaged_missing} pair(s) were stored by an older comove: their "
+               "model-averaged tails are not computed by this version."
+               if data.averaged_missing else ""))
+    return (*figures, rows, columns, summary_figure(data.summary, data.as_of), *changes,
+            *excess, _change_note(data), note, "")
 
 
 def register(app, view) -> None:
     """Attach this page's callbacks to ``app``."""
 
     @app.callback(*[Output(i, p) for i, p in OUTPUTS], Input(ids.BOARD_DATE, "date"),
-                  Input(ids.BOARD_TAIL_SOURCE, "value"))
-    def board(date, source):
-        return show_board(view, date, source)
+                  Input(ids.BOARD_TAIL_SOURCE, "value"), Input(ids.BOARD_HORIZON, "value"))
+    def board(date, source, horizon):
+        return show_board(view, date, source, horizon)

@@ -1,14 +1,26 @@
-"""The Board page: the universe as of a date — dependence matrices, pairs ranked by state and
-divergence, and the universe summary over time (figures from :mod:`monitor.board`)."""
+"""The Board page: the universe as of a date — what changed over a horizon, dependence
+matrices, the excess over the Gaussian copula, pairs ranked by state and divergence, and the
+universe summary over time (figures from :mod:`monitor.board`)."""
 
 from __future__ import annotations
 
 from dash import dcc, html
 
-from monitor.board import TAIL_SOURCES, board_range, parse_date
+from monitor.board import (
+    DEFAULT_HORIZON,
+    DEFAULT_TAIL_SOURCE,
+    HORIZON_LABELS,
+    HORIZONS,
+    STANDING_LEVEL,
+    STANDING_SHARE,
+    TAIL_SOURCES,
+    board_range,
+    parse_date,
+)
 from monitor.errors import InputError
 from monitor.history import translucent
 from monitor.palette import STATE_COLOURS
+from monitor.signals import UNIVERSE_STALE_LIMIT
 
 from . import ids
 from .components import graph, message, panel, table
@@ -16,8 +28,31 @@ from .components import graph, message, panel, table
 TITLE = "Board"
 
 #: Labels of the tail-source toggle.
-SOURCE_LABELS = {"model": "model-implied (selected family)",
-                 "nonparametric": "nonparametric C(q,q)/q"}
+SOURCE_LABELS = {"nonparametric": "nonparametric C(q,q)/q",
+                 "averaged": "model-averaged (Akaike weights)",
+                 "model": "selected family"}
+
+CHANGE_NOTE = (
+    "Each cell is the pair's change between its latest window and the window the chosen "
+    "horizon earlier (5, 21, 63 or 252 trading days): red rose, blue fell. Hover for both "
+    "values and dates and, for tau and the nonparametric tails, the change's standard error "
+    "and z = change / s.e. (the overlapping windows' correlation 1 − h/n is allowed for). "
+    "Sort the ranking table by a Δ or z column for the largest moves.")
+
+EXCESS_NOTE = (
+    "The nonparametric C(q,q)/q minus the value of a Gaussian copula with the same Kendall's "
+    "tau, in binomial standard errors (the ranking's units): a heavy-tailed pair shows red "
+    "even when its centre never changed. 'Standing heavy … tail' in the ranking marks a pair "
+    f"whose model-averaged tail coefficient was at least {STANDING_LEVEL:g} on at least "
+    f"{STANDING_SHARE:.0%} of its window ends of the last year: a standing condition, not a "
+    "regime shift.")
+
+TAIL_NOTE = (
+    "Tail figures: the nonparametric C(q,q)/q (default: model-free, with a 95% interval; what "
+    "the alerts and the ranking use), the model-averaged coefficient (each candidate family's "
+    "limit coefficient weighted by its Akaike weight: no jump when the selected family flips), "
+    "or the selected family's own value (can flip between 0 and a large value from one day "
+    "to the next).")
 
 DIVERGENCE_NOTE = (
     "Ranked by state (alert, watch, calm: the more severe tail), then by divergence: the "
@@ -28,7 +63,8 @@ DIVERGENCE_NOTE = (
 
 
 def layout(view, query: dict[str, str]) -> html.Div:
-    """The page; ``query`` may hold ``date=YYYY-MM-DD`` and ``tails=model|nonparametric``."""
+    """The page; ``query`` may hold ``date=YYYY-MM-DD``,
+    ``tails=nonparametric|averaged|model`` and ``horizon=1w|1m|3m|1y``."""
     problems = []
     bounds = board_range(view)
     date = None if bounds is None else bounds[1].strftime("%Y-%m-%d")
@@ -38,32 +74,44 @@ def layout(view, query: dict[str, str]) -> html.Div:
             date = asked.strftime("%Y-%m-%d")
         except InputError as exc:
             problems.append(message(str(exc), kind="problem"))
-    source = query.get("tails", "model")
+    source = query.get("tails", DEFAULT_TAIL_SOURCE)
     if source not in TAIL_SOURCES:
         problems.append(message(f"tails in the address: {source!r} is not one of "
-                                f"{', '.join(TAIL_SOURCES)}; showing model-implied",
-                                kind="problem"))
-        source = "model"
+                                f"{', '.join(TAIL_SOURCES)}; showing "
+                                f"{SOURCE_LABELS[DEFAULT_TAIL_SOURCE]}", kind="problem"))
+        source = DEFAULT_TAIL_SOURCE
+    horizon = query.get("horizon", DEFAULT_HORIZON)
+    if horizon not in HORIZONS:
+        problems.append(message(f"horizon in the address: {horizon!r} is not one of "
+                                f"{', '.join(HORIZONS)}; showing "
+                                f"{HORIZON_LABELS[DEFAULT_HORIZON]}", kind="problem"))
+        horizon = DEFAULT_HORIZON
     picker = dcc.DatePickerSingle(
         id=ids.BOARD_DATE, date=date, display_format="YYYY-MM-DD", first_day_of_week=1,
         min_date_allowed=None if bounds is None else bounds[0].strftime("%Y-%m-%d"),
         max_date_allowed=None if bounds is None else bounds[1].strftime("%Y-%m-%d"))
+    radio = {"inline": True, "inputStyle": {"marginRight": "4px"},
+             "labelStyle": {"marginRight": "14px"}}
     toggle = dcc.RadioItems(
-        id=ids.BOARD_TAIL_SOURCE, value=source, inline=True,
-        options=[{"label": SOURCE_LABELS[s], "value": s} for s in TAIL_SOURCES],
-        inputStyle={"marginRight": "4px"}, labelStyle={"marginRight": "16px"})
+        id=ids.BOARD_TAIL_SOURCE, value=source,
+        options=[{"label": SOURCE_LABELS[s], "value": s} for s in TAIL_SOURCES], **radio)
+    horizons = dcc.RadioItems(
+        id=ids.BOARD_HORIZON, value=horizon,
+        options=[{"label": HORIZON_LABELS[h], "value": h} for h in HORIZONS], **radio)
     controls = html.Div([
         html.Label(["As of ", picker], style={"marginRight": "28px"}),
-        html.Span("Tail matrices: ", style={"marginRight": "6px"}), toggle,
+        html.Span("Change over: ", style={"marginRight": "6px"}), horizons,
+        html.Span("Tail figures: ", style={"marginRight": "6px", "marginLeft": "16px"}),
+        toggle,
     ], style={"display": "flex", "alignItems": "center", "flexWrap": "wrap", "gap": "6px"})
-    matrices = html.Div([
-        html.Div(graph(ids.BOARD_MATRIX_TAU, filename="board-kendall-tau"),
-                 style={"flex": "1 1 360px", "minWidth": "320px"}),
-        html.Div(graph(ids.BOARD_MATRIX_LOWER, filename="board-lower-tail"),
-                 style={"flex": "1 1 360px", "minWidth": "320px"}),
-        html.Div(graph(ids.BOARD_MATRIX_UPPER, filename="board-upper-tail"),
-                 style={"flex": "1 1 360px", "minWidth": "320px"}),
-    ], style={"display": "flex", "flexWrap": "wrap", "gap": "8px"})
+
+    def row(*pairs: tuple[str, str]) -> html.Div:
+        return html.Div([html.Div(graph(i, filename=f), style={"flex": "1 1 360px",
+                                                                "minWidth": "320px"})
+                         for i, f in pairs],
+                        style={"display": "flex", "flexWrap": "wrap", "gap": "8px"})
+
+    small = {"margin": "0 0 6px 0", "fontSize": "0.85rem"}
     state_rows = [{"if": {"filter_query": f'{{state}} = "{s}"'},
                    "backgroundColor": translucent(STATE_COLOURS[s], 0.12)} for s in ("alert", "watch")]
     ranking = table(ids.BOARD_RANKING, page_size=20, markdown_options={"link_target": "_self"},
@@ -71,14 +119,29 @@ def layout(view, query: dict[str, str]) -> html.Div:
     return html.Div([
         panel("Universe on a date",
               controls, *problems, html.Div(id=ids.BOARD_MESSAGE),
-              note="Pick a date to see every pair's window ending on or before it; the "
-                   "matrices place related assets next to each other."),
-        panel("Dependence matrices", html.P(id=ids.BOARD_NOTE, style={
-            "margin": "0 0 6px 0", "fontSize": "0.85rem"}), matrices),
+              note="Pick a date to see every pair's window ending on or before it, and a "
+                   "horizon to compare it with. " + TAIL_NOTE),
+        panel("What changed", html.P(id=ids.BOARD_CHANGE_NOTE, style=small),
+              row((ids.BOARD_CHANGE_TAU, "board-change-tau"),
+                  (ids.BOARD_CHANGE_LOWER, "board-change-lower-tail"),
+                  (ids.BOARD_CHANGE_UPPER, "board-change-upper-tail")),
+              note=CHANGE_NOTE),
+        panel("Dependence matrices", html.P(id=ids.BOARD_NOTE, style=small),
+              row((ids.BOARD_MATRIX_TAU, "board-kendall-tau"),
+                  (ids.BOARD_MATRIX_LOWER, "board-lower-tail"),
+                  (ids.BOARD_MATRIX_UPPER, "board-upper-tail")),
+              note="The matrices place related assets next to each other."),
+        panel("Excess over Gaussian (standing tail-heaviness)",
+              row((ids.BOARD_EXCESS_LOWER, "board-excess-lower"),
+                  (ids.BOARD_EXCESS_UPPER, "board-excess-upper")),
+              note=EXCESS_NOTE),
         panel("Pairs by state and divergence", ranking, note=DIVERGENCE_NOTE),
         panel("Universe over time", graph(ids.BOARD_SUMMARY, filename="board-universe"),
-              note="Cross-pair averages of the window estimates on each date (pairs with a "
-                   "window ending that day) and the share of pairs in alert per tail; the "
-                   "dashed line marks the board's date. A pair's own uncertainty bands are on "
-                   "its timeline."),
+              note="Cross-pair averages on each date and the share of pairs in alert per "
+                   "tail. A pair without a window ending that day (one asset had no price) "
+                   f"counts with its latest window for up to {UNIVERSE_STALE_LIMIT} dates, so "
+                   "the averages do not "
+                   "jump with the mix of pairs; the bottom strip shows how many pairs were "
+                   "counted and how many of them were carried. The dashed line marks the "
+                   "board's date; a pair's own uncertainty bands are on its timeline."),
     ])

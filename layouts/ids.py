@@ -20,6 +20,13 @@ BOARD_MATRIX_UPPER = "board-matrix-upper"
 BOARD_RANKING = "board-ranking"
 BOARD_SUMMARY = "board-summary"
 BOARD_NOTE = "board-note"
+BOARD_HORIZON = "board-horizon"
+BOARD_EXCESS_LOWER = "board-excess-lower"
+BOARD_EXCESS_UPPER = "board-excess-upper"
+BOARD_CHANGE_TAU = "board-change-tau"
+BOARD_CHANGE_LOWER = "board-change-lower"
+BOARD_CHANGE_UPPER = "board-change-upper"
+BOARD_CHANGE_NOTE = "board-change-note"
 
 # timeline (pair history)
 TIMELINE_PAIR = "timeline-pair"

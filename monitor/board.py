@@ -22,6 +22,30 @@ statistic equals the ``excess_*`` columns of :func:`monitor.signals.pair_signals
 its window statistic. Pairs are ranked by state (alert, then watch, then calm, by the more
 severe tail) and within a state by divergence, largest first.
 
+Tails: which figure
+-------------------
+Three tail figures are stored per window (:data:`TAIL_SOURCES`): the nonparametric
+``C_n(q,q)/q`` (the board's default: model-free, with a binomial standard error, the figure
+the divergence, the alerts and the ranking use), the model-averaged coefficient (every
+candidate family's limit coefficient weighted by its Akaike weight; smooth from one window to
+the next) and the selected family's coefficient (kept for comparison: it flips between 0 and
+a large value when the AIC choice flips between a tail-free and a tail-dependent family).
+
+Change view
+-----------
+For a horizon of ``h`` trading days (:data:`HORIZONS`) each pair's window end is compared
+with its window end ``h / step`` window ends earlier: the change ``x_t - x_{t-h}`` of tau and
+of each tail figure, and, where standard errors are stored (tau, nonparametric tails), its
+standard error and ``z = change / se`` (:func:`change_se`).
+
+Standing tail-heaviness
+-----------------------
+A tail-dependent pair whose dependence never changes (a Student-t copula, as equity pairs
+often are) is a standing condition, not a regime shift: the excess matrices show it as a
+level, and :func:`standing_labels` names it ("standing heavy lower tail") when the
+model-averaged coefficient has been at least :data:`STANDING_LEVEL` on at least
+:data:`STANDING_SHARE` of the pair's window ends in the year up to the date.
+
 Ordering
 --------
 Assets are ordered by average-linkage hierarchical clustering on the distance ``1 - tau``
@@ -59,36 +83,219 @@ from .palette import (
     figure_layout,
 )
 from .pipeline import states_on
-from .signals import STATES, TAILS
+from .signals import STATES, TAILS, universe_key
 from .views import StoreView
 
 __all__ = [
     "BOARD_COLUMNS",
+    "CHANGE_COLUMNS",
+    "DEFAULT_HORIZON",
+    "DEFAULT_TAIL_SOURCE",
+    "HORIZONS",
     "QUANTITIES",
     "TAIL_SOURCES",
     "BoardData",
     "board_data",
     "board_range",
+    "change_figure",
+    "change_se",
+    "change_z",
     "cluster_order",
     "divergence",
+    "excess_figure",
     "matrix_figure",
+    "pair_changes",
     "pair_matrix",
     "parse_date",
     "rank_pairs",
     "ranking_table",
+    "standing_labels",
     "summary_figure",
+    "tail_column",
     "worse_state",
 ]
 
 #: Metric columns the board reads for each pair.
 BOARD_COLUMNS = ("date", "n", "kendall_tau", "kendall_tau_se", "family", "rotation",
                  "tail_lower", "tail_upper", "tail_lower_emp", "tail_upper_emp",
-                 "tail_lower_emp_se", "tail_upper_emp_se", "gauss_tail_q")
-#: Where the tail matrices come from: the selected family, or the nonparametric estimate.
-TAIL_SOURCES = ("model", "nonparametric")
+                 "tail_lower_emp_se", "tail_upper_emp_se", "gauss_tail_q",
+                 "tail_lower_avg", "tail_upper_avg")
+#: Where the tail figures come from: the nonparametric estimate (the default), the
+#: model-averaged coefficient, or the selected family's.
+TAIL_SOURCES = ("nonparametric", "averaged", "model")
+DEFAULT_TAIL_SOURCE = "nonparametric"
 #: Matrix quantities of the board.
 QUANTITIES = ("kendall_tau", "tail_lower", "tail_upper")
+#: Horizons of the change view, in trading days (window ends at step 1).
+HORIZONS = {"1w": 5, "1m": 21, "3m": 63, "1y": 252}
+HORIZON_LABELS = {"1w": "1 week", "1m": "1 month", "3m": "3 months", "1y": "1 year"}
+DEFAULT_HORIZON = "1m"
+#: Columns whose change the board computes, and the standard error stored for each.
+CHANGE_COLUMNS = ("kendall_tau", "tail_lower_emp", "tail_upper_emp", "tail_lower_avg",
+                  "tail_upper_avg", "tail_lower", "tail_upper")
+SE_COLUMNS = {"kendall_tau": "kendall_tau_se", "tail_lower_emp": "tail_lower_emp_se",
+              "tail_upper_emp": "tail_upper_emp_se"}
+#: Standing tail-heaviness: the model-averaged coefficient at least this ...
+STANDING_LEVEL = 0.1
+#: ... on at least this share of the window ends of the last year ...
+STANDING_SHARE = 0.8
+#: ... (calendar days up to the date; a trading year is 252 window ends at step 1).
+STANDING_DAYS = 365
+_TRADING_YEAR = 252
+#: Colour range of the excess matrices, in standard errors (fixed, so dates compare).
+EXCESS_RANGE = 4.0
+#: Colour ranges of the change matrices (fixed, so horizons and dates compare).
+CHANGE_RANGE = {"kendall_tau": 0.3, "tail_lower": 0.5, "tail_upper": 0.5}
+NOT_COMPUTED = "not computed by this version (stored by an older comove)"
 _SEVERITY = {s: i for i, s in enumerate(STATES)}
+_SOURCE_WORDS = {"nonparametric": "nonparametric C(q,q)/q", "averaged": "model-averaged",
+                 "model": "selected family"}
+
+
+def tail_column(tail: str, source: str) -> str:
+    """The metrics column of a tail figure.
+
+    Parameters
+    ----------
+    tail : {"lower", "upper"}
+    source : one of :data:`TAIL_SOURCES`
+
+    Returns
+    -------
+    str
+        ``tail_<tail>_emp``, ``tail_<tail>_avg`` or ``tail_<tail>``.
+    """
+    if tail not in TAILS:
+        raise ValueError(f"tail must be one of {TAILS}, got {tail!r}")
+    if source not in TAIL_SOURCES:
+        raise ValueError(f"source must be one of {TAIL_SOURCES}, got {source!r}")
+    return {"nonparametric": f"tail_{tail}_emp", "averaged": f"tail_{tail}_avg",
+            "model": f"tail_{tail}"}[source]
+
+
+def change_se(se_now: ArrayLike, se_then: ArrayLike, lag: ArrayLike, n: ArrayLike
+              ) -> NDArray[np.float64]:
+    """Standard error of the change between two rolling-window estimates.
+
+    Parameters
+    ----------
+    se_now, se_then : array_like
+        Standard errors of the two estimates.
+    lag : array_like
+        Observations between the two window ends.
+    n : array_like
+        Observations per window.
+
+    Returns
+    -------
+    ndarray
+        ``sqrt(se_now^2 + se_then^2 - 2 rho se_now se_then)`` with
+        ``rho = max(0, 1 - lag / n)`` (read-only).
+
+    Notes
+    -----
+    Two windows of ``n`` observations whose ends are ``lag`` apart share ``n - lag`` of them.
+    For the mean of ``n`` independent terms the covariance of the two window means is
+    ``(n - lag) / n`` times the variance, so their correlation is ``1 - lag / n`` (our
+    derivation); Kendall's tau (to first order the mean of its influence function, Hoeffding
+    1948) and the binomial tail proportion are such means. It is an approximation: the
+    pseudo-observations are re-ranked in each window, and daily returns are not independent.
+    From ``lag >= n`` on the windows are disjoint and the two estimates independent.
+    """
+    a = np.asarray(se_now, dtype=float)
+    b = np.asarray(se_then, dtype=float)
+    rho = np.clip(1.0 - np.asarray(lag, dtype=float) / np.asarray(n, dtype=float), 0.0, 1.0)
+    return read_only(np.sqrt(np.maximum(a * a + b * b - 2.0 * rho * a * b, 0.0)))
+
+
+def change_z(change: ArrayLike, se: ArrayLike) -> NDArray[np.float64]:
+    """Standardised change ``change / se``: 0 for no change, NaN where the s.e. is 0 or
+    unknown for a non-zero change (read-only)."""
+    d = np.asarray(change, dtype=float)
+    e = np.asarray(se, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out = np.where(e > 0, d / e, np.where(d == 0, 0.0, np.nan))
+    return read_only(out)
+
+
+def pair_changes(now: pd.DataFrame, then: pd.DataFrame, lag: int) -> pd.DataFrame:
+    """Per pair, the change of every :data:`CHANGE_COLUMNS` between two window ends.
+
+    Parameters
+    ----------
+    now, then : DataFrame
+        One metric row per pair (``asset_a, asset_b, date, n`` and the columns): the current
+        window end and the one ``lag`` observations before it.
+    lag : int
+        Observations between the two window ends (horizon in window ends times the step).
+
+    Returns
+    -------
+    DataFrame
+        Rows of ``now`` in order: ``asset_a, asset_b, date_then`` and per column
+        ``change_<col>``, and for the columns of :data:`SE_COLUMNS` ``change_<col>_se``
+        (:func:`change_se`) and ``change_<col>_z`` (:func:`change_z`); NaN for a pair
+        without a window end that far back.
+    """
+    keys = ["asset_a", "asset_b"]
+    old = then[[*keys, "date", *CHANGE_COLUMNS, *SE_COLUMNS.values()]].rename(
+        columns=lambda c: c if c in keys else f"{c}_then")
+    both = now[[*keys, "n", *CHANGE_COLUMNS, *SE_COLUMNS.values()]].merge(
+        old, on=keys, how="left")
+    out = pd.DataFrame({"asset_a": both["asset_a"], "asset_b": both["asset_b"],
+                        "date_then": pd.to_datetime(both["date_then"])})
+    for col in CHANGE_COLUMNS:
+        out[f"change_{col}"] = (pd.to_numeric(both[col]).astype(float)
+                                - pd.to_numeric(both[f"{col}_then"]).astype(float))
+        se_col = SE_COLUMNS.get(col)
+        if se_col is not None:
+            se = change_se(pd.to_numeric(both[se_col]).astype(float),
+                           pd.to_numeric(both[f"{se_col}_then"]).astype(float),
+                           lag, pd.to_numeric(both["n"]).astype(float))
+            out[f"change_{col}_se"] = se
+            out[f"change_{col}_z"] = change_z(out[f"change_{col}"], se)
+    return out
+
+
+def standing_labels(counts: pd.DataFrame, expected_ends: int,
+                    share: float = STANDING_SHARE) -> pd.Series:
+    """Pair labels for standing tail-heaviness.
+
+    Parameters
+    ----------
+    counts : DataFrame
+        Per pair ``n_ends`` (window ends in the last year with the averaged tails computed)
+        and ``n_tail_lower_avg``, ``n_tail_upper_avg`` (of them, those with the
+        model-averaged coefficient at least :data:`STANDING_LEVEL`), as
+        :meth:`monitor.store.Store.tail_level_counts` gives them.
+    expected_ends : int
+        Window ends a year has (252 at step 1): a pair with fewer than ``share`` of them
+        (new, or stored by an older comove) gets no label.
+    share : float
+        Share of the year's window ends the level must hold on.
+
+    Returns
+    -------
+    Series of str
+        "standing heavy lower tail", "standing heavy upper tail", "standing heavy tails"
+        (both) or "" (no standing condition, or not enough history).
+
+    Notes
+    -----
+    A rule of our own: the model-averaged coefficient (limit tail dependence, 0 for the
+    Gaussian) of a Student-t copula with rho = 0.5 and nu = 4 (lambda = 0.25) stays above
+    0.1 on nearly every window of 250 days, a Gaussian one's most of the time below; the
+    nonparametric ``C_n(q,q)/q`` at q = 0.1 is too noisy in one window (its excess over the
+    Gaussian is about one standard error for that t copula) to carry a daily label.
+    """
+    n = counts["n_ends"].to_numpy(dtype=float)
+    enough = n >= share * expected_ends
+    lower = enough & (counts["n_tail_lower_avg"].to_numpy(dtype=float) >= share * n)
+    upper = enough & (counts["n_tail_upper_avg"].to_numpy(dtype=float) >= share * n)
+    out = np.where(lower & upper, "standing heavy tails",
+                   np.where(lower, "standing heavy lower tail",
+                            np.where(upper, "standing heavy upper tail", "")))
+    return pd.Series(out, index=counts.index, dtype="string")
 
 
 def parse_date(text: object, what: str = "date") -> pd.Timestamp:
@@ -271,12 +478,20 @@ class BoardData:
         One row per pair, ranked (:func:`rank_pairs`): ``rank, asset_a, asset_b`` and
         :data:`BOARD_COLUMNS`, ``tau_low, tau_high``, the Wilson bands ``tail_*_emp_low``
         / ``tail_*_emp_high``, ``state_lower, state_upper, state``, ``divergence_lower,
-        divergence_upper, divergence``.
+        divergence_upper, divergence``, the changes over the horizon
+        (:func:`pair_changes`: ``date_then``, ``change_*``) and the standing label
+        (``standing``, :func:`standing_labels`).
     summary : DataFrame
         The stored universe summary over time
         (:meth:`monitor.store.Store.read_universe`).
     tail_q : float
     provenance : str
+    horizon : str
+        Key of :data:`HORIZONS`.
+    back : int
+        Window ends between a pair's current window and the one its change compares with.
+    lag : int
+        Observations between the two (``back`` times the step).
     """
 
     as_of: pd.Timestamp
@@ -287,6 +502,19 @@ class BoardData:
     summary: pd.DataFrame
     tail_q: float
     provenance: str
+    horizon: str = DEFAULT_HORIZON
+    back: int = HORIZONS[DEFAULT_HORIZON]
+    lag: int = HORIZONS[DEFAULT_HORIZON]
+
+    @property
+    def horizon_label(self) -> str:
+        """The horizon in words ("1 month")."""
+        return HORIZON_LABELS[self.horizon]
+
+    @property
+    def averaged_missing(self) -> int:
+        """Pairs whose shown window has no model-averaged tails (stored by an older comove)."""
+        return int(self.pairs["tail_lower_avg"].isna().sum())
 
     def matrix(self, column: str) -> pd.DataFrame:
         """Asset-by-asset matrix of a column of :attr:`pairs`, in cluster order."""
@@ -312,11 +540,12 @@ def board_range(view: StoreView) -> tuple[pd.Timestamp, pd.Timestamp] | None:
         First and last date of the stored universe summary; None before the first
         ``comove update`` of the signals.
     """
-    got = view.store.universe_range(view.signals_key)
+    got = view.store.universe_range(universe_key(view.signals_key))
     return None if got is None else (pd.Timestamp(got[0]), pd.Timestamp(got[1]))
 
 
-def board_data(view: StoreView, as_of: object = None) -> BoardData:
+def board_data(view: StoreView, as_of: object = None, horizon: str = DEFAULT_HORIZON
+               ) -> BoardData:
     """Everything the Board page shows, as of a date.
 
     Parameters
@@ -324,6 +553,8 @@ def board_data(view: StoreView, as_of: object = None) -> BoardData:
     view : StoreView
     as_of : str, date or None
         ``YYYY-MM-DD``; the latest stored window end when None.
+    horizon : str
+        Key of :data:`HORIZONS`: how far back the change view compares.
 
     Returns
     -------
@@ -337,13 +568,16 @@ def board_data(view: StoreView, as_of: object = None) -> BoardData:
 
     Notes
     -----
-    Four reads: the universe summary (one row per date), the latest window end, one metric
-    row per pair (:meth:`monitor.store.Store.metrics_as_of`, an index seek per pair) and
-    the state runs around the date; none scans the metrics. Divergence, ranking and
-    ordering are in the module docstring.
+    Six reads: the universe summary (one row per date), the latest window end, one metric
+    row per pair now and one a horizon earlier (:meth:`monitor.store.Store.metrics_as_of`,
+    an index seek per pair), the state runs around the date, and the per-pair counts of the
+    last year's averaged tails (one grouped query over a year of window ends). Divergence,
+    changes, labels, ranking and ordering are in the module docstring.
     """
+    if horizon not in HORIZONS:
+        raise InputError(f"horizon: {horizon!r} is not one of {', '.join(HORIZONS)}")
     store = view.store
-    summary = store.read_universe(view.signals_key)
+    summary = store.read_universe(universe_key(view.signals_key))
     latest = store.latest_window_end(view.rolling_key)
     if latest is None or summary.empty:
         raise InputError("board: no signals stored under the current settings yet "
@@ -373,9 +607,21 @@ def board_data(view: StoreView, as_of: object = None) -> BoardData:
                                                 rows[f"tail_{tail}_emp_se"],
                                                 rows["gauss_tail_q"])
     rows["divergence"] = np.fmax(rows["divergence_lower"], rows["divergence_upper"])
+    step = view.rolling.step
+    back = max(1, round(HORIZONS[horizon] / step))
+    then = store.metrics_as_of(view.rolling_key, day.date(), BOARD_COLUMNS, back=back)
+    changes = pair_changes(rows, then, back * step).set_axis(rows.index)
+    rows = pd.concat([rows, changes.drop(columns=["asset_a", "asset_b"])], axis=1)
+    counts = store.tail_level_counts(view.rolling_key,
+                                     (day - pd.Timedelta(days=STANDING_DAYS - 1)).date(),
+                                     day.date(), STANDING_LEVEL)
+    counts = rows[["asset_a", "asset_b"]].merge(counts, on=["asset_a", "asset_b"],
+                                                how="left").fillna(0)
+    rows["standing"] = standing_labels(counts, _TRADING_YEAR // step).to_numpy()
     assets = sorted(set(rows["asset_a"]) | set(rows["asset_b"]))
     order = cluster_order(pair_matrix(rows, assets, "kendall_tau"))
-    return BoardData(day, first, last, order, rank_pairs(rows), summary, q, _provenance(view))
+    return BoardData(day, first, last, order, rank_pairs(rows), summary, q, _provenance(view),
+                     horizon, back, back * step)
 
 
 # ----------------------------------------------------------------------------- display
@@ -389,12 +635,16 @@ def ranking_table(data: BoardData) -> pd.DataFrame:
     Returns
     -------
     DataFrame
-        One row per pair in rank order, labelled columns: states, divergence and the two
-        tails' excess (in standard errors), tau with its 95 % interval, the nonparametric
-        and model-implied tails, the Gaussian same-tau reference, the selected family and
-        the window end; numbers rounded to 3 decimals (scores to 2).
+        One row per pair in rank order, labelled columns: states, the standing label,
+        divergence and the two tails' excess (in standard errors), the changes over the
+        horizon (tau and the nonparametric tails with their z, the model-averaged tails
+        without one: no standard error is stored for them), tau with its 95 % interval,
+        the nonparametric, model-averaged and selected family's tails, the Gaussian
+        same-tau reference, the selected family and the window ends; numbers rounded to 3
+        decimals (scores to 2). Every numeric column sorts in the page's table.
     """
     p = data.pairs
+    h = data.horizon
 
     def r3(col: str) -> pd.Series:
         return pd.to_numeric(p[col]).astype(float).round(3)
@@ -412,19 +662,67 @@ def ranking_table(data: BoardData) -> pd.DataFrame:
         "state": p["state"].fillna("no state"),
         "lower-tail state": p["state_lower"].fillna("no state"),
         "upper-tail state": p["state_upper"].fillna("no state"),
+        "standing": p["standing"].fillna(""),
         "divergence (z)": score("divergence"),
         "lower excess (z)": score("divergence_lower"),
         "upper excess (z)": score("divergence_upper"),
+        f"Δ tau {h}": r3("change_kendall_tau"),
+        f"Δ tau {h} (z)": score("change_kendall_tau_z"),
+        f"Δ lower nonparametric {h}": r3("change_tail_lower_emp"),
+        f"Δ lower nonparametric {h} (z)": score("change_tail_lower_emp_z"),
+        f"Δ upper nonparametric {h}": r3("change_tail_upper_emp"),
+        f"Δ upper nonparametric {h} (z)": score("change_tail_upper_emp_z"),
+        f"Δ lower averaged {h}": r3("change_tail_lower_avg"),
+        f"Δ upper averaged {h}": r3("change_tail_upper_avg"),
         "Kendall's tau": r3("kendall_tau"),
         "tau 95%": interval("tau_low", "tau_high"),
         "lower tail nonparametric": r3("tail_lower_emp"),
         "upper tail nonparametric": r3("tail_upper_emp"),
         "Gaussian at same tau": r3("gauss_tail_q"),
-        "lower tail model": r3("tail_lower"),
-        "upper tail model": r3("tail_upper"),
+        "lower tail averaged": r3("tail_lower_avg"),
+        "upper tail averaged": r3("tail_upper_avg"),
+        "lower tail selected family": r3("tail_lower"),
+        "upper tail selected family": r3("tail_upper"),
         "family": p["family"].astype(str) + " " + p["rotation"].astype(str) + "°",
         "window end": p["date"].dt.strftime("%Y-%m-%d"),
+        f"compared with ({h})": p["date_then"].dt.strftime("%Y-%m-%d").fillna(""),
     })
+
+
+def _fmt(values: pd.Series, spec: str = "{:.3f}", missing: str = "n/a") -> pd.Series:
+    """Numbers as text, ``missing`` where there is none."""
+    x = pd.to_numeric(values).astype(float)
+    return pd.Series([missing if not np.isfinite(v) else spec.format(v) for v in x],
+                     index=values.index, dtype=object)
+
+
+def _cells(data: BoardData, text: pd.Series) -> np.ndarray:
+    """Per-pair text laid out as the asset-by-asset matrix (blank on the diagonal)."""
+    p = data.pairs
+    frame = p[["asset_a", "asset_b"]].assign(code=np.arange(len(p)))
+    codes = pair_matrix(frame, data.assets, "code").to_numpy()
+    out = np.full(codes.shape, "", dtype=object)
+    ok = ~np.isnan(codes)
+    out[ok] = text.to_numpy(dtype=object)[codes[ok].astype(int)]
+    return out
+
+
+def _tail_text(data: BoardData, tail: str, source: str) -> pd.Series:
+    """Hover line of a pair's tail figure from one source, with its uncertainty."""
+    p = data.pairs
+    if source == "nonparametric":
+        col = f"tail_{tail}_emp"
+        return (f"{tail} tail C(q,q)/q, nonparametric " + _fmt(p[col]) + " (95%: "
+                + _fmt(p[f"{col}_low"]) + " to " + _fmt(p[f"{col}_high"]) + ")<br>Gaussian at "
+                "same tau " + _fmt(p["gauss_tail_q"]) + ", excess "
+                + _fmt(p[f"divergence_{tail}"], "{:.1f}") + " s.e.")
+    if source == "averaged":
+        return (f"{tail} tail, model-averaged (Akaike weights) "
+                + _fmt(p[f"tail_{tail}_avg"], missing=NOT_COMPUTED)
+                + "<br>no stored s.e.; selected family "
+                + p["family"].astype(str) + " gives " + _fmt(p[f"tail_{tail}"]))
+    return (f"{tail} tail, selected family's model-implied " + _fmt(p[f"tail_{tail}"])
+            + " (no stored s.e.; Drill-down gives bootstrap intervals)")
 
 
 def _hover(data: BoardData, quantity: str, source: str) -> np.ndarray:
@@ -434,74 +732,169 @@ def _hover(data: BoardData, quantity: str, source: str) -> np.ndarray:
     fam = p["family"].astype(str) + " " + p["rotation"].astype(str) + "°"
     end = " · window ending " + p["date"].dt.strftime("%Y-%m-%d") + " · " + fam
     if quantity == "kendall_tau":
-        text = (pair + "<br>Kendall's tau " + p["kendall_tau"].map("{:.3f}".format)
-                + " (95%: " + p["tau_low"].map("{:.3f}".format) + " to "
-                + p["tau_high"].map("{:.3f}".format) + ")")
+        text = (pair + "<br>Kendall's tau " + _fmt(p["kendall_tau"])
+                + " (95%: " + _fmt(p["tau_low"]) + " to " + _fmt(p["tau_high"]) + ")")
     else:
-        tail = quantity.removeprefix("tail_")
-        if source == "model":
-            text = (pair + f"<br>{tail} tail, model-implied " + p[quantity].map("{:.3f}".format)
-                    + " (no stored s.e.; Drill-down gives bootstrap intervals)")
-        else:
-            text = (pair + f"<br>{tail} tail C(q,q)/q, nonparametric "
-                    + p[f"{quantity}_emp"].map("{:.3f}".format) + " (95%: "
-                    + p[f"{quantity}_emp_low"].map("{:.3f}".format) + " to "
-                    + p[f"{quantity}_emp_high"].map("{:.3f}".format) + ")<br>Gaussian at "
-                    "same tau " + p["gauss_tail_q"].map("{:.3f}".format) + ", excess "
-                    + p[f"divergence_{tail}"].map("{:.1f}".format) + " s.e.")
-    text = text + "<br>state " + p["state"].fillna("no state") + end
-    frame = p[["asset_a", "asset_b"]].assign(text=text.to_numpy())
-    m = pair_matrix(frame.assign(code=np.arange(len(frame))), data.assets, "code")
-    codes = m.to_numpy()
-    out = np.full(codes.shape, "", dtype=object)
-    ok = ~np.isnan(codes)
-    out[ok] = frame["text"].to_numpy()[codes[ok].astype(int)]
-    return out
+        text = pair + "<br>" + _tail_text(data, quantity.removeprefix("tail_"), source)
+    label = p["standing"].fillna("").map(lambda x: f"<br>{x}" if x else "")
+    return _cells(data, text + label + "<br>state " + p["state"].fillna("no state") + end)
 
 
-def matrix_figure(data: BoardData, quantity: str, source: str = "model") -> go.Figure:
+def _heatmap_figure(data: BoardData, z: np.ndarray, hover: np.ndarray, title: str, *,
+                    colorscale, zmin: float, zmax: float, cell_format: str,
+                    note: str | None = None) -> go.Figure:
+    labels = list(data.assets)
+    heat = go.Heatmap(z=z, x=labels, y=labels, text=hover,
+                      hovertemplate="%{text}<extra></extra>", colorscale=colorscale,
+                      zmin=zmin, zmax=zmax, hoverongaps=False,
+                      colorbar={"thickness": 10, "len": 0.85})
+    if len(labels) <= 12:
+        heat.update(texttemplate=cell_format, textfont={"size": 10})
+    fig = go.Figure(heat)
+    fig.update_layout(**figure_layout(
+        title={"text": title, "x": 0.01, "font": {"size": 13}}, height=420,
+        margin={"l": 70, "r": 10, "t": 36, "b": 70 if note is None else 92}))
+    fig.update_yaxes(autorange="reversed", tickfont={"size": 10})
+    fig.update_xaxes(tickangle=-45, tickfont={"size": 10})
+    if note:
+        fig.add_annotation(text=note, xref="paper", yref="paper", x=0, y=-0.3,
+                           showarrow=False, xanchor="left", font={"size": 10, "color": MUTED})
+    return fig
+
+
+def _check(quantity: str, source: str) -> None:
+    if quantity not in QUANTITIES:
+        raise ValueError(f"quantity must be one of {QUANTITIES}, got {quantity!r}")
+    if source not in TAIL_SOURCES:
+        raise ValueError(f"source must be one of {TAIL_SOURCES}, got {source!r}")
+
+
+def _column(quantity: str, source: str) -> str:
+    return (quantity if quantity == "kendall_tau"
+            else tail_column(quantity.removeprefix("tail_"), source))
+
+
+def _missing_note(data: BoardData, quantity: str, source: str) -> str | None:
+    if quantity == "kendall_tau" or source != "averaged" or not data.averaged_missing:
+        return None
+    return (f"{data.averaged_missing} of {len(data.pairs)} pairs blank: model-averaged tails "
+            f"{NOT_COMPUTED}")
+
+
+def matrix_figure(data: BoardData, quantity: str, source: str = DEFAULT_TAIL_SOURCE
+                  ) -> go.Figure:
     """Heatmap of one quantity over every pair, assets in cluster order.
 
     Parameters
     ----------
     data : BoardData
     quantity : {"kendall_tau", "tail_lower", "tail_upper"}
-    source : {"model", "nonparametric"}
-        For the tails: the selected family's coefficient, or ``C_n(q,q)/q``.
+    source : one of :data:`TAIL_SOURCES`
+        For the tails: ``C_n(q,q)/q`` (default), the model-averaged coefficient or the
+        selected family's.
 
     Returns
     -------
     plotly Figure
         Diagonal blank; tau on the diverging scale over [-1, 1], tails on the sequential
         scale over [0, 1]; hover gives the value, its 95 % interval where one is stored,
-        the state, window end and family.
+        the standing label, state, window end and family. Pairs whose averaged tails were
+        stored by an older comove are blank, and a note under the matrix says so.
     """
-    if quantity not in QUANTITIES:
-        raise ValueError(f"quantity must be one of {QUANTITIES}, got {quantity!r}")
-    if source not in TAIL_SOURCES:
-        raise ValueError(f"source must be one of {TAIL_SOURCES}, got {source!r}")
-    column = quantity if quantity == "kendall_tau" or source == "model" else f"{quantity}_emp"
-    m = data.matrix(column)
+    _check(quantity, source)
+    m = data.matrix(_column(quantity, source))
     tau = quantity == "kendall_tau"
-    labels = list(data.assets)
-    heat = go.Heatmap(z=m.to_numpy(), x=labels, y=labels, text=_hover(data, quantity, source),
-                      hovertemplate="%{text}<extra></extra>",
-                      colorscale=DIVERGING if tau else SEQUENTIAL,
-                      zmin=-1 if tau else 0, zmax=1, hoverongaps=False,
-                      colorbar={"thickness": 10, "len": 0.85})
-    if len(labels) <= 12:
-        heat.update(texttemplate="%{z:.2f}", textfont={"size": 10})
     title = {"kendall_tau": "Kendall's tau", "tail_lower": "Lower tail",
              "tail_upper": "Upper tail"}[quantity]
     if not tau:
-        title += " (model-implied)" if source == "model" else f" C(q,q)/q, q = {data.tail_q:g}"
-    fig = go.Figure(heat)
-    fig.update_layout(**figure_layout(
-        title={"text": title, "x": 0.01, "font": {"size": 13}}, height=420,
-        margin={"l": 70, "r": 10, "t": 36, "b": 70}))
-    fig.update_yaxes(autorange="reversed", tickfont={"size": 10})
-    fig.update_xaxes(tickangle=-45, tickfont={"size": 10})
-    return fig
+        title += {"model": " (selected family, model-implied)",
+                  "averaged": " (model-averaged, Akaike weights)",
+                  "nonparametric": f" C(q,q)/q, q = {data.tail_q:g}"}[source]
+    return _heatmap_figure(data, m.to_numpy(), _hover(data, quantity, source), title,
+                           colorscale=DIVERGING if tau else SEQUENTIAL,
+                           zmin=-1 if tau else 0, zmax=1, cell_format="%{z:.2f}",
+                           note=_missing_note(data, quantity, source))
+
+
+def excess_figure(data: BoardData, tail: str) -> go.Figure:
+    """Heatmap of a tail's excess over the Gaussian copula with the same tau.
+
+    Parameters
+    ----------
+    data : BoardData
+    tail : {"lower", "upper"}
+
+    Returns
+    -------
+    plotly Figure
+        ``(C_n(q,q)/q - C_Ga(q,q)/q) / se`` per pair (:func:`divergence`, the units of the
+        ranking) on the diverging scale over +-:data:`EXCESS_RANGE` standard errors: a
+        pair whose tails are heavier than its centre implies shows red whether or not its
+        dependence changed. Hover: both values, the excess, the model-averaged tail and
+        the standing label.
+    """
+    if tail not in TAILS:
+        raise ValueError(f"tail must be one of {TAILS}, got {tail!r}")
+    p = data.pairs
+    col = f"divergence_{tail}"
+    z = data.matrix(col).replace([np.inf, -np.inf], np.nan).to_numpy()
+    label = p["standing"].fillna("").map(lambda x: f"<br>{x}" if x else "")
+    text = (p["asset_a"] + " / " + p["asset_b"] + f"<br>{tail}-tail excess over Gaussian "
+            + _fmt(p[col], "{:+.1f}") + " s.e.<br>C(q,q)/q " + _fmt(p[f"tail_{tail}_emp"])
+            + " vs Gaussian at tau " + _fmt(p["kendall_tau"], "{:.2f}") + ": "
+            + _fmt(p["gauss_tail_q"]) + "<br>model-averaged tail "
+            + _fmt(p[f"tail_{tail}_avg"], missing=NOT_COMPUTED) + label
+            + "<br>window ending " + p["date"].dt.strftime("%Y-%m-%d"))
+    title = (f"{tail.capitalize()} tail: excess over Gaussian at same tau "
+             f"(s.e., q = {data.tail_q:g})")
+    return _heatmap_figure(data, z, _cells(data, text), title, colorscale=DIVERGING,
+                           zmin=-EXCESS_RANGE, zmax=EXCESS_RANGE, cell_format="%{z:+.1f}")
+
+
+def change_figure(data: BoardData, quantity: str, source: str = DEFAULT_TAIL_SOURCE
+                  ) -> go.Figure:
+    """Heatmap of each pair's change of one quantity over the board's horizon.
+
+    Parameters
+    ----------
+    data : BoardData
+    quantity : {"kendall_tau", "tail_lower", "tail_upper"}
+    source : one of :data:`TAIL_SOURCES`
+        Which tail figure changes.
+
+    Returns
+    -------
+    plotly Figure
+        ``x_t - x_{t-h}`` on the diverging scale over +-:data:`CHANGE_RANGE` (fixed, so
+        horizons compare); hover: both values and dates, the change's standard error and
+        z where one is stored (tau, nonparametric tails; :func:`change_se`), else why not.
+    """
+    _check(quantity, source)
+    p = data.pairs
+    col = _column(quantity, source)
+    change = f"change_{col}"
+    z = data.matrix(change).to_numpy()
+    then = _fmt(pd.to_numeric(p[col]) - pd.to_numeric(p[change]))
+    text = (p["asset_a"] + " / " + p["asset_b"] + "<br>"
+            + ("Kendall's tau" if quantity == "kendall_tau"
+               else f"{quantity.removeprefix('tail_')} tail, {_SOURCE_WORDS[source]}")
+            + " " + then + " on " + p["date_then"].dt.strftime("%Y-%m-%d").fillna("n/a")
+            + " → " + _fmt(p[col]) + " on " + p["date"].dt.strftime("%Y-%m-%d")
+            + "<br>change " + _fmt(p[change], "{:+.3f}"))
+    if col in SE_COLUMNS:
+        text = (text + " (s.e. " + _fmt(p[f"{change}_se"]) + ", z "
+                + _fmt(p[f"{change}_z"], "{:+.1f}") + "; overlapping windows, "
+                f"correlation {max(0.0, 1 - data.lag / float(p['n'].max())):.2f} assumed)")
+    else:
+        text = text + " (no stored s.e. for a model-based tail; see the nonparametric change)"
+    title = ({"kendall_tau": "Δ Kendall's tau", "tail_lower": "Δ lower tail",
+              "tail_upper": "Δ upper tail"}[quantity]
+             + ("" if quantity == "kendall_tau" else f", {_SOURCE_WORDS[source]}")
+             + f", over {data.horizon_label}")
+    r = CHANGE_RANGE[quantity]
+    return _heatmap_figure(data, z, _cells(data, text), title, colorscale=DIVERGING,
+                           zmin=-r, zmax=r, cell_format="%{z:+.2f}",
+                           note=_missing_note(data, quantity, source))
 
 
 def summary_figure(summary: pd.DataFrame, as_of: pd.Timestamp | None = None) -> go.Figure:
@@ -518,19 +911,26 @@ def summary_figure(summary: pd.DataFrame, as_of: pd.Timestamp | None = None) -> 
     -------
     plotly Figure
         Top: cross-pair means of Kendall's tau and of both tails (nonparametric solid,
-        model-implied dotted). Bottom: the share of pairs in alert per tail.
+        model-averaged dashed, selected family dotted). Middle: the share of pairs in alert
+        per tail. Bottom: the pairs counted each date and, of them, those carried forward
+        from an earlier window end (:func:`monitor.signals.universe_summary`).
     """
     x = summary.index.strftime("%Y-%m-%d").to_numpy()
     summary = rounded_for_plot(summary)
-    fig = make_subplots(rows=2, cols=1, shared_xaxes=True, vertical_spacing=0.08,
-                        row_heights=[0.6, 0.4], subplot_titles=(
-                            "Cross-pair means", "Share of pairs in alert"))
+    fig = make_subplots(rows=3, cols=1, shared_xaxes=True, vertical_spacing=0.07,
+                        row_heights=[0.5, 0.3, 0.2], subplot_titles=(
+                            "Cross-pair means", "Share of pairs in alert",
+                            "Pairs counted (carried: latest window from an earlier date)"))
     lines = [("kendall_tau", "Kendall's tau", BLUE, "solid"),
              ("tail_lower_emp", "lower tail, nonparametric", VERMILION, "solid"),
-             ("tail_lower", "lower tail, model-implied", VERMILION, "dot"),
+             ("tail_lower_avg", "lower tail, model-averaged", VERMILION, "dash"),
+             ("tail_lower", "lower tail, selected family", VERMILION, "dot"),
              ("tail_upper_emp", "upper tail, nonparametric", SKY, "solid"),
-             ("tail_upper", "upper tail, model-implied", SKY, "dot")]
+             ("tail_upper_avg", "upper tail, model-averaged", SKY, "dash"),
+             ("tail_upper", "upper tail, selected family", SKY, "dot")]
     for col, name, colour, dash in lines:
+        if col not in summary or summary[col].isna().all():
+            continue  # e.g. averaged tails of a store written before they existed
         fig.add_trace(go.Scatter(x=x, y=summary[col], name=name, mode="lines",
                                  line={"color": colour, "dash": dash, "width": 1.4},
                                  hovertemplate=f"{name} %{{y:.3f}}<extra></extra>"), row=1, col=1)
@@ -541,12 +941,21 @@ def summary_figure(summary: pd.DataFrame, as_of: pd.Timestamp | None = None) -> 
             line={"color": colour, "width": 1.4}, customdata=np.c_[summary[f"n_alert_{tail}"], n],
             hovertemplate=(f"{tail}-tail alert %{{y:.1%}} (%{{customdata[0]:.0f}} of "
                            "%{customdata[1]:.0f} pairs)<extra></extra>")), row=2, col=1)
+    fig.add_trace(go.Scatter(x=x, y=summary["n_pairs"], name="pairs counted", mode="lines",
+                             line={"color": MUTED, "width": 1.4, "shape": "hv"},
+                             hovertemplate="%{y:.0f} pairs counted<extra></extra>"),
+                  row=3, col=1)
+    carried = summary["n_carried"] if "n_carried" in summary else pd.Series(0, summary.index)
+    fig.add_trace(go.Bar(x=x, y=carried, name="of them carried forward",
+                         marker={"color": ORANGE},
+                         hovertemplate="%{y:.0f} carried forward<extra></extra>"), row=3, col=1)
     if as_of is not None:
-        for row in (1, 2):
-            fig.add_vline(x=pd.Timestamp(as_of).strftime("%Y-%m-%d"), line={"color": MUTED, "width": 1,
-                                                       "dash": "dash"}, row=row, col=1)
+        for row in (1, 2, 3):
+            fig.add_vline(x=pd.Timestamp(as_of).strftime("%Y-%m-%d"),
+                          line={"color": MUTED, "width": 1, "dash": "dash"}, row=row, col=1)
     fig.update_yaxes(tickformat=".0%", rangemode="tozero", row=2, col=1)
+    fig.update_yaxes(rangemode="tozero", row=3, col=1)
     fig.update_layout(**figure_layout(
-        height=440, hovermode="x unified",
-        legend={"orientation": "h", "y": -0.12, "x": 0, "font": {"size": 11}}))
+        height=560, hovermode="x unified", bargap=0,
+        legend={"orientation": "h", "y": -0.1, "x": 0, "font": {"size": 11}}))
     return fig

@@ -671,3 +671,63 @@ def select_batched(u: ArrayLike, v: ArrayLike, families: tuple[str, ...] | list[
     )
     scores = np.stack([getattr(f, criterion) for f in fits])
     return BatchSelection(fits, criterion, read_only(np.argmin(scores, axis=0)))
+
+
+# ----------------------------------------------------------------------------- averaging
+def akaike_weights(scores: ArrayLike, axis: int = 0) -> NDArray[np.float64]:
+    """Akaike weights of candidate models from their information-criterion values.
+
+    Parameters
+    ----------
+    scores : array_like
+        AIC (or BIC) values, candidates along ``axis``; ``+inf`` (or NaN) marks a slot that
+        is not a candidate and gets weight 0.
+    axis : int
+        The candidates' axis.
+
+    Returns
+    -------
+    ndarray
+        Weights of the same shape, non-negative and summing to 1 along ``axis`` (read-only).
+
+    Notes
+    -----
+    .. math:: w_k = \\frac{\\exp(-\\Delta_k / 2)}{\\sum_j \\exp(-\\Delta_j / 2)},
+              \\qquad \\Delta_k = \\mathrm{AIC}_k - \\min_j \\mathrm{AIC}_j
+
+    (Burnham & Anderson 2002, *Model Selection and Multimodel Inference*, 2nd ed., sect.
+    2.9, eq. 2.14 -- equation number from memory). Subtracting the minimum first keeps the
+    exponentials finite. With BIC values in place of AIC the same formula gives the
+    approximate posterior model probabilities of equal prior weights (ibid., sect. 6.4,
+    from memory).
+    """
+    s = np.asarray(scores, dtype=float)
+    s = np.where(np.isnan(s), np.inf, s)
+    best = np.min(s, axis=axis, keepdims=True)
+    if not np.all(np.isfinite(best)):
+        raise ValueError("akaike_weights: every candidate's score is infinite or missing")
+    e = np.exp(-0.5 * (s - best))
+    return read_only(e / e.sum(axis=axis, keepdims=True))
+
+
+def model_average(weights: ArrayLike, values: ArrayLike, axis: int = 0) -> NDArray[np.float64]:
+    """Weighted model average ``sum_k w_k x_k`` of a per-candidate quantity.
+
+    Parameters
+    ----------
+    weights : array_like
+        From :func:`akaike_weights` (candidates along ``axis``).
+    values : array_like
+        The quantity under each candidate (same shape); where a weight is 0 the value may
+        be anything finite or not.
+    axis : int
+
+    Returns
+    -------
+    ndarray
+        The model-averaged estimate (Burnham & Anderson 2002, sect. 4.2, eq. 4.1, from
+        memory).
+    """
+    w = np.asarray(weights, dtype=float)
+    x = np.asarray(values, dtype=float)
+    return np.sum(np.where(w > 0, w * np.nan_to_num(x), 0.0), axis=axis)

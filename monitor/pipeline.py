@@ -31,7 +31,16 @@ from .ingest import (
 from .marginals import FilteredSeries, MarginalSettings, extend_series, filter_series
 from .progress import StepProgress
 from .rolling import CHAIN_FROM, PairWindows, RollingSettings, batch_metrics, window_end_positions
-from .signals import TAILS, PairSignals, Resume, SignalSettings, context_rows, pair_signals
+from .signals import (
+    TAILS,
+    UNIVERSE_STALE_LIMIT,
+    PairSignals,
+    Resume,
+    SignalSettings,
+    context_rows,
+    pair_signals,
+    universe_key,
+)
 from .store import Store, outbox
 
 
@@ -619,14 +628,15 @@ def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | Non
             pool.shutdown()
     bar.close()
     new_n, ended_n, queued = counts
-    stored = store.universe_range(key)
+    u_key = universe_key(key)
+    stored = store.universe_range(u_key)
     stored_to = None if stored is None else stored[1]
     latest = store.latest_window_end(r_key)
     if latest is not None and (stored_to is None or latest > stored_to):
-        summary = store.universe_after(r_key, key, stored_to)
-        prior = store.read_universe(key)
+        summary = store.universe_after(r_key, key, stored_to, UNIVERSE_STALE_LIMIT)
+        prior = store.read_universe(u_key)
         with store.transaction() as conn:
-            store.append_universe(conn, key, summary)
+            store.append_universe(conn, u_key, summary)
             share = pd.concat([prior["share_alert"],
                                summary["n_alert"] / summary["n_pairs"]]).sort_index()
             queued += alerts.queue(conn, outbox, key, alerts.universe_events(cfg, key, share))
@@ -660,7 +670,7 @@ def _store_signals(store: Store, cfg: Config, r_key: str, key: str,
 def read_universe_summary(store: Store, cfg: Config) -> pd.DataFrame:
     """The universe-level summary over time (share of pairs in alert, mean tau and tails), as
     stored by the last update (see :func:`update_signals`)."""
-    return store.read_universe(signals_key(cfg))
+    return store.read_universe(universe_key(signals_key(cfg)))
 
 
 @dataclass(frozen=True, slots=True)

@@ -11,6 +11,11 @@ for every window end the engine computes:
 - every candidate family by maximum pseudo-likelihood, the AIC (or BIC) choice, its
   parameters and model-implied tail coefficients, the Gaussian's log-likelihood, and the best
   lower- and upper-tail-dependent log-likelihoods;
+- the model-averaged tail coefficients ``tail_lower_avg``, ``tail_upper_avg``: every
+  candidate slot's (family x rotation) model-implied coefficient weighted by its Akaike
+  weight (:func:`monitor.fitting.akaike_weights`; BIC weights under ``criterion = "bic"``),
+  so the figure moves smoothly when the selection flips between a tail-free family (Gaussian,
+  Frank: 0) and a tail-dependent one from one window to the next;
 - the signal inputs: the Gaussian copula's tail concordance C(q,q)/q at the window's tau, and
   the newest day's log-likelihood ratios of Clayton (lower tail) and survival Clayton (upper
   tail) against the Gaussian, all three with the same Kendall's tau as the previous window.
@@ -29,7 +34,7 @@ from numpy.lib.stride_tricks import sliding_window_view
 
 from .copulas import FAMILY_NAMES, family
 from .empirical import kendall_tau, pseudo_observations, spearman_rho, tail_dependence
-from .fitting import select_batched
+from .fitting import akaike_weights, model_average, select_batched
 from .sliding import sliding_dominance, sliding_kendall_tau, sliding_ranks, window_dominance
 
 #: Stored columns of a pair's timeline, in order (DESIGN.md's export contract is a subset).
@@ -38,7 +43,7 @@ METRIC_COLUMNS = (
     "param1", "param2", "converged", "loglik", "aic", "loglik_gauss", "aic_gauss",
     "tail_lower", "tail_upper", "tail_lower_emp", "tail_upper_emp", "tail_lower_emp_se",
     "tail_upper_emp_se", "gauss_tail_q", "loglik_best_lower", "loglik_best_upper",
-    "llr_lower", "llr_upper",
+    "llr_lower", "llr_upper", "tail_lower_avg", "tail_upper_avg",
 )
 
 #: Below this |tau| no same-tau Clayton alternative is defined; the day's ratios are 0.
@@ -220,6 +225,9 @@ def batch_metrics(items: list[PairWindows], settings: RollingSettings) -> list[P
         prev[lo + 1:hi] = tau[lo:hi - 1]
     llr_lo, llr_hi = _newest_day_ratios(u[:, -1], v[:, -1], prev)
     gauss_q = _gaussian_tail_concordance(tau, q)
+    # Akaike weights over the candidate slots only (the Gaussian fitted as a reference
+    # outside the candidates has score +inf, so weight 0).
+    weights = akaike_weights(scores)
     frame = pd.DataFrame({
         "date": np.concatenate([items[i].dates[items[i].positions] for i in live]),
         "start": np.concatenate([items[i].dates[f] for i, f in zip(live, firsts)]),
@@ -233,6 +241,8 @@ def batch_metrics(items: list[PairWindows], settings: RollingSettings) -> list[P
         "tail_lower_emp_se": binomial_se(emp_lo), "tail_upper_emp_se": binomial_se(emp_hi),
         "gauss_tail_q": gauss_q, "loglik_best_lower": ll_lower, "loglik_best_upper": ll_upper,
         "llr_lower": llr_lo, "llr_upper": llr_hi,
+        "tail_lower_avg": model_average(weights, lower),
+        "tail_upper_avg": model_average(weights, upper),
     }, columns=list(METRIC_COLUMNS))
     for j, i in enumerate(live):
         lo, hi = bounds[j], bounds[j + 1]

@@ -875,51 +875,119 @@ def context_rows(settings: SignalSettings, window_rows: int) -> int:
 
 
 # ------------------------------------------------------------------------------ universe
-def universe_summary(frames: Mapping[object, pd.DataFrame] | Iterable[pd.DataFrame]
-                     ) -> pd.DataFrame:
+#: Dates of the universe's calendar over which a pair's latest window is carried forward
+#: when it has no window end (one asset's price missing): beyond it the pair is not counted.
+UNIVERSE_STALE_LIMIT = 5
+#: Cross-pair means of the universe summary (columns of the metrics timeline).
+UNIVERSE_MEAN_COLUMNS = ("kendall_tau", "tail_lower", "tail_upper", "tail_lower_emp",
+                         "tail_upper_emp", "tail_lower_avg", "tail_upper_avg")
+#: Columns of :func:`universe_summary`, in order.
+UNIVERSE_COLUMNS = ("n_pairs", "n_carried", "n_alert", "share_alert", "n_alert_lower",
+                    "n_alert_upper", *UNIVERSE_MEAN_COLUMNS)
+
+
+def universe_key(signals_key: str, stale_limit: int = UNIVERSE_STALE_LIMIT) -> str:
+    """Settings key of the stored universe summary: the signals' key plus the carry-forward
+    limit (a summary with another limit, or the earlier one without carrying, is never
+    mixed in)."""
+    return f"{signals_key}|carry{int(stale_limit)}"
+
+
+def carried_positions(pos: ArrayLike, next_pos: ArrayLike, stale_limit: int
+                      ) -> tuple[NDArray[np.intp], NDArray[np.intp]]:
+    """The calendar positions each window end counts for.
+
+    Parameters
+    ----------
+    pos : array_like of int
+        Position of each window end in the universe's calendar (the sorted dates on which
+        any pair has a window end).
+    next_pos : array_like of int
+        Position of the same pair's next window end (the calendar's length for its last).
+    stale_limit : int
+        Most calendar dates a window end is carried forward.
+
+    Returns
+    -------
+    (rows, positions) : ndarrays of int
+        For every window end ``i`` the pairs ``(i, p)`` for ``p`` from ``pos[i]`` to
+        ``min(next_pos[i] - 1, pos[i] + stale_limit)``: ``rows`` indexes the input, ``p - pos``
+        is 0 for the window's own date and positive where it is carried.
+    """
+    pos = np.asarray(pos, dtype=np.intp)
+    reach = np.minimum(np.asarray(next_pos, dtype=np.intp) - 1, pos + int(stale_limit))
+    span = np.maximum(reach - pos + 1, 1)
+    rows = np.repeat(np.arange(len(pos)), span)
+    offset = np.arange(len(rows)) - np.repeat(np.cumsum(span) - span, span)
+    return rows, pos[rows] + offset
+
+
+def universe_summary(frames: Mapping[object, pd.DataFrame] | Iterable[pd.DataFrame],
+                     stale_limit: int = UNIVERSE_STALE_LIMIT) -> pd.DataFrame:
     """Universe-level state over time from many pairs' signal frames.
 
     Parameters
     ----------
     frames : mapping of pair -> DataFrame, or iterable of DataFrames
         ``PairSignals.frame`` of each pair (at least ``date``, ``alert``, ``alert_lower``,
-        ``alert_upper``, ``kendall_tau``, ``tail_lower``, ``tail_upper``, ``tail_lower_emp``,
-        ``tail_upper_emp``).
+        ``alert_upper`` and the :data:`UNIVERSE_MEAN_COLUMNS`; ``tail_*_avg`` may be
+        missing, as in a timeline stored by an older comove, and then count as NaN).
+    stale_limit : int
+        Calendar dates a pair's latest window end is carried forward (0: count only the
+        pairs with a window end that day).
 
     Returns
     -------
     pandas.DataFrame
-        Indexed by ``date`` (every date on which some pair has a window end), with columns
-        ``n_pairs`` (pairs with a window end that day), ``n_alert``, ``share_alert``
-        (``n_alert / n_pairs``), ``n_alert_lower``, ``n_alert_upper``, and the cross-pair means
-        ``kendall_tau``, ``tail_lower``, ``tail_upper``, ``tail_lower_emp``, ``tail_upper_emp``
-        (over the pairs with a value that day).
+        Indexed by ``date`` (every date on which some pair has a window end: the universe's
+        calendar), with :data:`UNIVERSE_COLUMNS`: ``n_pairs`` (pairs counted that day),
+        ``n_carried`` (of them, counted with an earlier window end), ``n_alert``,
+        ``share_alert`` (``n_alert / n_pairs``), ``n_alert_lower``, ``n_alert_upper``, and
+        the cross-pair means (over the counted pairs with a value).
 
     Notes
     -----
-    Pairs trade on different calendars, so each date's figures are over the pairs with a
-    window end on that date; no value is carried forward.
+    Pairs trade on different calendars: on a date where one asset has no price, its pairs
+    have no window end. Averaging only the pairs with a window end that day makes the mean
+    jump with the mix of pairs (a day with one pair shows that pair as the universe). Each
+    pair therefore counts with its latest window end on or before the date, its values and
+    alert states as of that window, for at most ``stale_limit`` dates of the calendar after
+    it; a pair whose data stopped longer ago drops out, and ``n_pairs`` says how many were
+    counted.
     """
+    if isinstance(stale_limit, bool) or not isinstance(stale_limit, int | np.integer):
+        raise TypeError(f"stale_limit must be an int, got {type(stale_limit).__name__}")
+    if stale_limit < 0:
+        raise ValueError(f"stale_limit must be >= 0, got {stale_limit}")
     items = list(frames.values()) if isinstance(frames, Mapping) else list(frames)
-    means = ["kendall_tau", "tail_lower", "tail_upper", "tail_lower_emp", "tail_upper_emp"]
+    means = list(UNIVERSE_MEAN_COLUMNS)
     counts = ["alert", "alert_lower", "alert_upper"]
-    cols = ["date", *counts, *means]
+    required = ["date", *counts, *(c for c in means if not c.endswith("_avg"))]
     parts = []
     for i, f in enumerate(items):
-        missing = [c for c in cols if c not in f.columns]
+        missing = [c for c in required if c not in f.columns]
         if missing:
             raise InputError(f"signal frame {i}: missing column(s) {', '.join(missing)}")
-        part = f[cols].copy()
+        part = f.reindex(columns=["date", *counts, *means])
         part["date"] = pd.to_datetime(part["date"])
+        part["pair"] = i
         parts.append(part)
-    out_cols = ["n_pairs", "n_alert", "share_alert", "n_alert_lower", "n_alert_upper", *means]
+    out_cols = list(UNIVERSE_COLUMNS)
     if not parts or all(len(p) == 0 for p in parts):
         return pd.DataFrame(columns=out_cols, index=pd.DatetimeIndex([], name="date"))
     long = pd.concat([p for p in parts if len(p)], ignore_index=True)
+    long = long.sort_values(["pair", "date"], kind="stable").reset_index(drop=True)
     for c in [*counts, *means]:
         long[c] = pd.to_numeric(long[c], errors="coerce").astype(float)
-    g = long.groupby("date", sort=True)
+    calendar = pd.DatetimeIndex(np.unique(long["date"].to_numpy()))
+    pos = calendar.searchsorted(long["date"])
+    nxt = pd.Series(pos).groupby(long["pair"].to_numpy()).shift(-1)
+    rows, at = carried_positions(pos, nxt.fillna(len(calendar)).to_numpy(), stale_limit)
+    wide = long.iloc[rows].reset_index(drop=True)
+    wide["carried"] = (at != pos[rows]).astype(np.int64)
+    g = wide.groupby(calendar[at], sort=True)
     out = pd.DataFrame({"n_pairs": g.size().astype(np.int64)})
+    out["n_carried"] = g["carried"].sum().astype(np.int64)
     out["n_alert"] = g["alert"].sum().astype(np.int64)
     out["share_alert"] = out["n_alert"] / out["n_pairs"]
     out["n_alert_lower"] = g["alert_lower"].sum().astype(np.int64)

@@ -157,7 +157,8 @@ metrics = sa.Table(
     *[sa.Column(name, _DOUBLE) for name in (
         "loglik", "aic", "loglik_gauss", "aic_gauss", "tail_lower", "tail_upper",
         "tail_lower_emp", "tail_upper_emp", "tail_lower_emp_se", "tail_upper_emp_se",
-        "gauss_tail_q", "loglik_best_lower", "loglik_best_upper", "llr_lower", "llr_upper")],
+        "gauss_tail_q", "loglik_best_lower", "loglik_best_upper", "llr_lower", "llr_upper",
+        "tail_lower_avg", "tail_upper_avg")],
 )
 
 pair_state = sa.Table(
@@ -205,15 +206,17 @@ signal_resume = sa.Table(
 )
 
 #: Cross-pair means kept per date in ``universe_daily`` (columns of the metrics timeline).
-UNIVERSE_MEANS = ("kendall_tau", "tail_lower", "tail_upper", "tail_lower_emp", "tail_upper_emp")
-#: Counts kept per date in ``universe_daily``.
-UNIVERSE_COUNTS = ("n_pairs", "n_alert", "n_alert_lower", "n_alert_upper")
+UNIVERSE_MEANS = ("kendall_tau", "tail_lower", "tail_upper", "tail_lower_emp", "tail_upper_emp",
+                  "tail_lower_avg", "tail_upper_avg")
+#: Counts kept per date in ``universe_daily`` (``n_carried``: of ``n_pairs``, those counted
+#: with an earlier window end, see :func:`monitor.signals.universe_summary`).
+UNIVERSE_COUNTS = ("n_pairs", "n_carried", "n_alert", "n_alert_lower", "n_alert_upper")
 
 universe_daily = sa.Table(
     "universe_daily", metadata,
     sa.Column("settings", sa.String(255), primary_key=True),
     sa.Column("date", sa.Date, primary_key=True),
-    *[sa.Column(name, sa.Integer, nullable=False) for name in UNIVERSE_COUNTS],
+    *[sa.Column(name, sa.Integer, nullable=name != "n_carried") for name in UNIVERSE_COUNTS],
     *[sa.Column(name, _DOUBLE) for name in UNIVERSE_MEANS],
 )
 
@@ -261,9 +264,18 @@ _SELECT_RUNS = sa.select(state_runs.c.tail, state_runs.c.first_date, state_runs.
 _DELETE_RUN = state_runs.delete().where(
     _of_pair(state_runs), state_runs.c.tail == sa.bindparam("p_t"),
     state_runs.c.first_date == sa.bindparam("p_f"))
+# The summary of a signals key is stored under that key extended by "|..." (the carry-forward
+# limit, monitor.signals.universe_key): ``p_l`` is the key as a LIKE prefix (_like_prefix).
 _DELETE_UNIVERSE_FROM = universe_daily.delete().where(
-    universe_daily.c.settings == sa.bindparam("p_s"),
+    sa.or_(universe_daily.c.settings == sa.bindparam("p_s"),
+           universe_daily.c.settings.like(sa.bindparam("p_l"), escape="\\")),
     universe_daily.c.date >= sa.bindparam("p_f"))
+
+
+def _like_prefix(key: str) -> str:
+    """``key|`` followed by anything, as a LIKE pattern with ``\\`` as the escape."""
+    escaped = key.replace("\\", "\\\\").replace("%", "\\%").replace("_", "\\_")
+    return f"{escaped}|%"
 _DELETE_RESUME = signal_resume.delete().where(_of_pair(signal_resume))
 
 
@@ -417,6 +429,8 @@ class Store:
         missing = [t for t in metadata.sorted_tables if not inspector.has_table(t.name)]
         if missing and create:
             metadata.create_all(conn, tables=missing)
+        _add_missing_columns(conn, inspector, [t for t in metadata.sorted_tables
+                                               if t not in missing])
 
     def close(self) -> None:
         self.engine.dispose()
@@ -906,7 +920,8 @@ class Store:
                  "first_date": f, "last_date": fresh[(t, f)][0], "state": fresh[(t, f)][1]}
                 for t, f in new + changed])
         first = min(touched)
-        conn.execute(_DELETE_UNIVERSE_FROM, {"p_s": settings_key, "p_f": first})
+        conn.execute(_DELETE_UNIVERSE_FROM, {"p_s": settings_key, "p_l": _like_prefix(settings_key),
+                                             "p_f": first})
         return first
 
     def read_state_runs(self, settings_key: str, pair: tuple[str, str] | None = None, *,
@@ -932,10 +947,13 @@ class Store:
         return frame
 
     def metrics_as_of(self, settings_key: str, as_of: dt.date,
-                      columns: Iterable[str]) -> pd.DataFrame:
+                      columns: Iterable[str], back: int = 0) -> pd.DataFrame:
         """For every pair with a stored rolling state, its latest metric row dated on or before
         ``as_of``: one query (columns ``asset_a, asset_b`` and ``columns``; ``date`` as a
         Timestamp when asked for). Pairs with no window end by then are left out.
+
+        With ``back`` > 0, the row ``back`` window ends before that one instead (the pair's
+        own window ends; pairs with fewer are left out).
 
         Notes
         -----
@@ -946,11 +964,17 @@ class Store:
         milliseconds for 435 pairs x 4750 windows).
         """
         columns = list(columns)
+        if isinstance(back, bool) or not isinstance(back, int) or back < 0:
+            raise ValueError(f"back must be an integer >= 0, got {back!r}")
         inner = metrics.alias("later")
-        latest = (sa.select(sa.func.max(inner.c.date)).where(
-            inner.c.settings == pair_state.c.settings, inner.c.asset_a == pair_state.c.asset_a,
-            inner.c.asset_b == pair_state.c.asset_b, inner.c.date <= as_of)
-            .scalar_subquery())
+        of_pair = (inner.c.settings == pair_state.c.settings,
+                   inner.c.asset_a == pair_state.c.asset_a,
+                   inner.c.asset_b == pair_state.c.asset_b, inner.c.date <= as_of)
+        if back == 0:
+            latest = sa.select(sa.func.max(inner.c.date)).where(*of_pair).scalar_subquery()
+        else:
+            latest = (sa.select(inner.c.date).where(*of_pair).order_by(inner.c.date.desc())
+                      .limit(1).offset(back).scalar_subquery())
         with self.engine.connect() as conn:
             ends = sa.select(pair_state.c.asset_a, pair_state.c.asset_b,
                              latest.label("last_end")).where(
@@ -972,31 +996,76 @@ class Store:
                 frame[col] = pd.to_datetime(frame[col])
         return frame
 
-    def universe_after(self, rolling_settings_key: str, signals_settings_key: str,
-                       after: dt.date | None) -> pd.DataFrame:
-        """The universe summary of the dates after ``after`` (all when None), aggregated by
-        the database from the stored metrics and state runs.
+    def tail_level_counts(self, settings_key: str, first: dt.date, last: dt.date,
+                          level: float, columns: tuple[str, str] = ("tail_lower_avg",
+                                                                    "tail_upper_avg")
+                          ) -> pd.DataFrame:
+        """Per pair, how many of its window ends in ``[first, last]`` have each of two tail
+        columns at or above ``level``: one grouped query over those dates.
 
         Returns
         -------
         DataFrame
-            The columns of :func:`monitor.signals.universe_summary`, indexed by ``date``:
-            per date, the pairs with a window end (``n_pairs``), those whose stored state run
-            covering that window end is ``alert`` in the lower tail, the upper tail and
-            either (``n_alert``), and the cross-pair means (NULLs left out, as pandas does).
+            ``asset_a, asset_b, n_ends`` (window ends with both columns computed: rows of
+            an older comove with NULL there are not counted) and ``n_<column>`` per column.
+        """
+        m = metrics.c
+        a, b = columns
+        known = sa.and_(m[a].is_not(None), m[b].is_not(None))
+
+        def above(col: str) -> sa.ColumnElement:
+            return sa.func.sum(sa.case((sa.and_(known, m[col] >= level), 1), else_=0))
+
+        stmt = (sa.select(m.asset_a, m.asset_b,
+                          sa.func.sum(sa.case((known, 1), else_=0)), above(a), above(b))
+                .where(m.settings == settings_key, m.date >= first, m.date <= last)
+                .group_by(m.asset_a, m.asset_b).order_by(m.asset_a, m.asset_b))
+        with self.engine.connect() as conn:
+            frame = _frame(conn.execute(stmt).all(),
+                           ["asset_a", "asset_b", "n_ends", f"n_{a}", f"n_{b}"])
+        for c in ("n_ends", f"n_{a}", f"n_{b}"):
+            frame[c] = pd.to_numeric(frame[c]).fillna(0).astype(np.int64)
+        return frame
+
+    def universe_after(self, rolling_settings_key: str, signals_settings_key: str,
+                       after: dt.date | None, stale_limit: int = 0) -> pd.DataFrame:
+        """The universe summary of the dates after ``after`` (all when None), aggregated by
+        the database from the stored metrics and state runs.
+
+        Parameters
+        ----------
+        rolling_settings_key, signals_settings_key : str
+            Keys of the metrics and of the state runs.
+        after : date or None
+            Last date already summarised.
+        stale_limit : int
+            Calendar dates a pair's latest window end is carried forward
+            (:func:`monitor.signals.universe_summary`; 0 counts only fresh window ends).
+
+        Returns
+        -------
+        DataFrame
+            :data:`monitor.signals.UNIVERSE_COLUMNS`, indexed by ``date``, equal to
+            :func:`monitor.signals.universe_summary` of the pairs' signal frames.
 
         Notes
         -----
-        Five grouped queries. The alert counts join the few alert runs (materialised first)
-        to the metrics key range they cover, so they cost what the alerts cover, not the
-        whole history.
+        The fresh window ends are summed per date by the database (five grouped queries;
+        the alert counts join the few alert runs, materialised first, to the metrics key
+        range they cover, so they cost what the alerts cover, not the whole history). Only
+        the window ends that are carried -- those after which the pair skips a date of the
+        universe's calendar, found with ``lead()`` window functions -- are read here and
+        added to the dates they cover; on a normal day there are none.
         """
+        from .signals import UNIVERSE_COLUMNS
+
         m = metrics.c
         base = [m.settings == rolling_settings_key]
         if after is not None:
             base.append(m.date > after)
-        means = (sa.select(m.date, sa.func.count().label("n_pairs"),
-                           *[sa.func.avg(m[c]).label(c) for c in UNIVERSE_MEANS])
+        sums = [f(m[c]).label(f"{name}_{c}") for c in UNIVERSE_MEANS
+                for name, f in (("sum", sa.func.sum), ("count", sa.func.count))]
+        fresh = (sa.select(m.date, sa.func.count().label("n_pairs"), *sums)
                  .where(*base).group_by(m.date))
 
         def covered(tail: str, conn: sa.Connection) -> sa.Select:
@@ -1018,24 +1087,108 @@ class Store:
             sub = rows.subquery()
             return sa.select(sub.c.date, sa.func.count()).group_by(sub.c.date)
 
+        names = ["date", "n_pairs", *(c.name for c in sums)]
         with self.engine.connect() as conn:
-            frame = _frame(conn.execute(means).all(), ["date", "n_pairs", *UNIVERSE_MEANS])
+            frame = _frame(conn.execute(fresh).all(), names)
             counts = {}
             for name, rows in (("n_alert", sa.union(covered("lower", conn),
                                                     covered("upper", conn))),
                                ("n_alert_lower", covered("lower", conn)),
                                ("n_alert_upper", covered("upper", conn))):
                 counts[name] = dict(conn.execute(per_date(rows)).all())
+            carried = (self._carried(conn, rolling_settings_key, signals_settings_key, after,
+                                     stale_limit, pd.to_datetime(frame["date"]))
+                       if stale_limit > 0 and len(frame) else None)
         for name, got in counts.items():
             frame[name] = frame["date"].map(got).fillna(0).astype(np.int64)
         frame.index = pd.DatetimeIndex(pd.to_datetime(frame.pop("date")), name="date")
         frame = frame.sort_index()
-        frame["n_pairs"] = frame["n_pairs"].astype(np.int64)
-        for c in UNIVERSE_MEANS:
+        for c in frame.columns:
             frame[c] = pd.to_numeric(frame[c]).astype(float)
+        frame["n_carried"] = 0.0
+        if carried is not None and len(carried):
+            more = carried.reindex(frame.index).fillna(0.0)
+            frame["n_carried"] = more["n_pairs"]
+            frame[more.columns] += more
+        for c in UNIVERSE_MEANS:
+            with np.errstate(invalid="ignore", divide="ignore"):
+                frame[c] = np.where(frame[f"count_{c}"] > 0,
+                                    frame[f"sum_{c}"] / frame[f"count_{c}"], np.nan)
+        for c in ("n_pairs", "n_carried", *counts):
+            frame[c] = frame[c].astype(np.int64)
         frame["share_alert"] = frame["n_alert"] / frame["n_pairs"]
-        return frame[["n_pairs", "n_alert", "share_alert", "n_alert_lower", "n_alert_upper",
-                      *UNIVERSE_MEANS]]
+        return frame[list(UNIVERSE_COLUMNS)]
+
+    @staticmethod
+    def _carried(conn: sa.Connection, rolling_key: str, signals_key: str,
+                 after: dt.date | None, stale_limit: int, new_days: pd.Series) -> pd.DataFrame:
+        """Per date after ``after``: counts and sums (``sum_*``, ``count_*``, alert counts)
+        of the window ends carried forward onto it (see :meth:`universe_after`)."""
+        from .signals import carried_positions
+
+        m = metrics.c
+        scope = [m.settings == rolling_key]
+        before: list = []
+        if after is not None:
+            before = list(conn.execute(
+                sa.select(m.date).where(m.settings == rolling_key, m.date <= after).distinct()
+                .order_by(m.date.desc()).limit(stale_limit)).scalars())
+            scope.append(m.date >= min(before) if before else m.date > after)
+        days = sa.select(m.date).where(*scope).distinct().subquery()
+        cal = sa.select(days.c.date, sa.func.lead(days.c.date).over(
+            order_by=days.c.date).label("cal_next")).subquery()
+        rows = sa.select(m.asset_a, m.asset_b, m.date, *[m[c] for c in UNIVERSE_MEANS],
+                         sa.func.lead(m.date).over(partition_by=(m.asset_a, m.asset_b),
+                                                   order_by=m.date).label("pair_next")
+                         ).where(*scope).subquery()
+        gaps = (sa.select(rows).join(cal, rows.c.date == cal.c.date)
+                .where(cal.c.cal_next.is_not(None),
+                       sa.or_(rows.c.pair_next.is_(None), rows.c.pair_next > cal.c.cal_next)))
+        cols = ["asset_a", "asset_b", "date", *UNIVERSE_MEANS, "pair_next"]
+        gap = _frame(conn.execute(gaps).all(), cols)
+        if gap.empty:
+            return pd.DataFrame()
+        r = state_runs.c
+        runs = _frame(conn.execute(sa.select(r.asset_a, r.asset_b, r.tail, r.first_date,
+                                             r.last_date).where(
+            r.settings == signals_key, r.state == "alert",
+            r.last_date >= min(gap["date"]))).all(),
+            ["asset_a", "asset_b", "tail", "first_date", "last_date"])
+        calendar = pd.DatetimeIndex(sorted(set(pd.to_datetime(pd.Series(before, dtype=object)))
+                                           | set(new_days)))
+        gap["date"] = pd.to_datetime(gap["date"])
+        nxt = pd.to_datetime(gap["pair_next"])
+        pos = calendar.searchsorted(gap["date"])
+        next_pos = np.where(nxt.isna(), len(calendar), calendar.searchsorted(nxt.fillna(
+            calendar[-1])))
+        idx, at = carried_positions(pos, next_pos, stale_limit)
+        keep = at != pos[idx]
+        idx, at = idx[keep], at[keep]
+        if after is not None:
+            later = calendar[at] > pd.Timestamp(after)
+            idx, at = idx[later], at[later]
+        out = gap.iloc[idx].reset_index(drop=True)
+        for tail in ("lower", "upper"):
+            t = runs[runs["tail"] == tail].assign(
+                first_date=lambda x: pd.to_datetime(x["first_date"]),
+                last_date=lambda x: pd.to_datetime(x["last_date"]))
+            hit = out.reset_index().merge(t, on=["asset_a", "asset_b"])
+            hit = hit[(hit["first_date"] <= hit["date"]) & (hit["date"] <= hit["last_date"])]
+            out[f"alert_{tail}"] = out.index.isin(hit["index"]).astype(float)
+        out["alert"] = np.fmax(out["alert_lower"], out["alert_upper"])
+        out["day"] = calendar[at]
+        for c in UNIVERSE_MEANS:
+            out[c] = pd.to_numeric(out[c]).astype(float)
+        g = out.groupby("day")
+        agg = pd.DataFrame({"n_pairs": g.size().astype(float)})
+        for c in UNIVERSE_MEANS:
+            agg[f"sum_{c}"] = g[c].sum()
+            agg[f"count_{c}"] = g[c].count().astype(float)
+        for name, col in (("n_alert", "alert"), ("n_alert_lower", "alert_lower"),
+                          ("n_alert_upper", "alert_upper")):
+            agg[name] = g[col].sum()
+        agg.index.name = "date"
+        return agg
 
     def latest_window_end(self, settings_key: str) -> dt.date | None:
         """The latest stored window end of any pair under a rolling settings key."""
@@ -1060,7 +1213,7 @@ class Store:
         rows = []
         for day, r in zip(_dates(summary.index), summary.to_dict("records"), strict=True):
             row = {"settings": settings_key, "date": day}
-            row.update({c: int(r[c]) for c in UNIVERSE_COUNTS})
+            row.update({c: int(r[c]) for c in UNIVERSE_COUNTS if c in r})
             row.update({c: float(r[c]) if np.isfinite(r[c]) else None for c in UNIVERSE_MEANS})
             rows.append(row)
         conn.execute(universe_daily.insert(), rows)
@@ -1077,10 +1230,11 @@ class Store:
         frame = _frame(rows, ["date", *UNIVERSE_COUNTS, *UNIVERSE_MEANS])
         frame.index = pd.DatetimeIndex(pd.to_datetime(frame.pop("date")), name="date")
         for c in UNIVERSE_COUNTS:
-            frame[c] = frame[c].astype(np.int64)
+            # n_carried is NULL in rows of an older comove (which carried nothing): 0.
+            frame[c] = pd.to_numeric(frame[c]).fillna(0).astype(np.int64)
         for c in UNIVERSE_MEANS:
             frame[c] = pd.to_numeric(frame[c]).astype(float)
-        frame.insert(2, "share_alert", frame["n_alert"] / frame["n_pairs"])
+        frame.insert(3, "share_alert", frame["n_alert"] / frame["n_pairs"])
         return frame
 
     def monitored_pairs(self, settings_key: str) -> list[tuple[str, str]]:
@@ -1123,6 +1277,31 @@ class Store:
         wide.columns = [str(c) for c in wide.columns]
         wide.columns.name = None
         return wide
+
+
+def _add_missing_columns(conn: sa.Connection, inspector, tables: list[sa.Table]) -> list[str]:
+    """Add the nullable columns a newer comove defines to the tables of an older store (the
+    schema version stays: the change is additive). Rows stored before read NULL there.
+
+    Returns the ``table.column`` names added. ``ALTER TABLE ... ADD COLUMN`` of a nullable
+    column without default is the same statement on SQLite and PostgreSQL and rewrites no
+    rows on either.
+    """
+    quote = conn.dialect.identifier_preparer.quote
+    added = []
+    for table in tables:
+        have = {c["name"] for c in inspector.get_columns(table.name)}
+        for col in table.columns:
+            if col.name in have:
+                continue
+            if not col.nullable:
+                raise InputError(f"store: table {table.name} lacks column {col.name}, which "
+                                 "this comove cannot add to an existing store")
+            kind = col.type.compile(dialect=conn.dialect)
+            conn.execute(sa.text(f"ALTER TABLE {quote(table.name)} "
+                                 f"ADD COLUMN {quote(col.name)} {kind}"))
+            added.append(f"{table.name}.{col.name}")
+    return added
 
 
 def _same(old: object, new: object) -> bool:

@@ -17,7 +17,7 @@ import pandas as pd
 from .copulas import FAMILY_NAMES
 from .empirical import pseudo_observations, spearman_rho, tail_dependence
 from .errors import InputError
-from .fitting import Selection, select_copula
+from .fitting import Selection, akaike_weights, model_average, select_copula
 from .inference import (
     FitUncertainty,
     GoodnessOfFit,
@@ -61,6 +61,20 @@ class WindowStudy:
     uncertainty: FitUncertainty | None
     filter_info: dict = field(default_factory=lambda: {"mode": "none"})
 
+    def model_average(self) -> dict:
+        """The candidates' model-implied tail coefficients averaged with their Akaike
+        weights (BIC weights under BIC selection; :func:`monitor.fitting.akaike_weights`):
+        ``{"criterion", "tail_lower", "tail_upper", "weights": {label: weight}}``, weights
+        rounded to 6 decimals, largest first."""
+        fits = self.selection.fits
+        crit = self.selection.criterion
+        w = akaike_weights([getattr(f, crit) for f in fits])
+        order = np.argsort(-w, kind="stable")
+        return {"criterion": crit,
+                "tail_lower": float(model_average(w, [f.tail_lower for f in fits])),
+                "tail_upper": float(model_average(w, [f.tail_upper for f in fits])),
+                "weights": {fits[i].label: round(float(w[i]), 6) for i in order}}
+
     def to_json(self) -> dict:
         """The ``comove fit --json`` object (DESIGN.md contract, with extra keys)."""
         fits = sorted(self.selection.fits, key=lambda f: f.aic)
@@ -89,6 +103,7 @@ class WindowStudy:
             "pair": list(self.pair), "kind": self.kind, "criterion": self.selection.criterion,
             "marginals": self.filter_info,
             "dropped_dates": self.dropped,
+            "model_average": self.model_average(),
             "kendall_tau_interval": {"lower": self.kendall_tau.lower,
                                      "upper": self.kendall_tau.upper,
                                      "std_error": self.kendall_tau.std_error,

@@ -438,16 +438,33 @@ def test_universe_summary_arithmetic():
         ("A", "C"): frame(d[1:], [0, 0], [1, 0], [0.6, 0.6], [0.3, 0.3]),  # starts later
         ("B", "C"): frame(d[[0, 2]], [0, 0], [0, 0], [0.0, 0.0], [0.0, 0.0]),  # a holiday
     }
-    out = universe_summary(frames)
+    # Without carrying forward: each date counts the pairs with a window end that day.
+    out = universe_summary(frames, stale_limit=0)
     assert out.index.tolist() == list(d)
     assert out["n_pairs"].tolist() == [2, 2, 3]
+    assert out["n_carried"].tolist() == [0, 0, 0]
     assert out["n_alert"].tolist() == [0, 2, 1]
     np.testing.assert_allclose(out["share_alert"], [0.0, 1.0, 1 / 3])
     assert out["n_alert_lower"].tolist() == [0, 1, 1]
     assert out["n_alert_upper"].tolist() == [0, 1, 1]
     np.testing.assert_allclose(out["tail_lower"], [0.0, 0.4, (0.4 + 0.6 + 0.0) / 3])
     np.testing.assert_allclose(out["tail_upper_emp"], [0.1, 0.25, (0.2 + 0.4 + 0.1) / 3])
-    assert universe_summary(list(frames.values())).equals(out)
+    assert universe_summary(list(frames.values()), stale_limit=0).equals(out)
+    # Carried forward (the default): B/C's window of 01-02 counts on its holiday 01-03, with
+    # its values and states of 01-02 (by hand: tau, tails and no alert).
+    carried = universe_summary(frames)
+    assert carried["n_pairs"].tolist() == [2, 3, 3]
+    assert carried["n_carried"].tolist() == [0, 1, 0]
+    assert carried["n_alert"].tolist() == [0, 2, 1]
+    np.testing.assert_allclose(carried["share_alert"], [0.0, 2 / 3, 1 / 3])
+    np.testing.assert_allclose(carried["tail_lower"], [0.0, (0.2 + 0.6 + 0.0) / 3,
+                                                       (0.4 + 0.6 + 0.0) / 3])
+    np.testing.assert_allclose(carried["tail_upper_emp"], [0.1, (0.1 + 0.4 + 0.1) / 3,
+                                                           (0.2 + 0.4 + 0.1) / 3])
+    # A limit of one date: a pair whose data stopped two dates ago no longer counts.
+    stopped = {**frames, ("A", "B"): frames[("A", "B")].iloc[:1]}
+    got = universe_summary(stopped, stale_limit=1)
+    assert got["n_pairs"].tolist() == [2, 3, 2] and got["n_carried"].tolist() == [0, 2, 0]
     assert len(universe_summary({})) == 0
     with pytest.raises(InputError, match="missing column"):
         universe_summary([frames[("A", "B")].drop(columns=["alert"])])

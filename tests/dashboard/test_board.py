@@ -32,7 +32,7 @@ from monitor.board import (
 from monitor.errors import InputError
 from monitor.palette import DIVERGING, SEQUENTIAL
 from monitor.pipeline import signals_key, state_runs, update_signals
-from monitor.signals import pair_signals, universe_summary
+from monitor.signals import pair_signals, universe_key, universe_summary
 from monitor.store import Store, metrics, pair_state
 from monitor.views import StoreView
 
@@ -75,7 +75,7 @@ def test_stored_state_runs_and_universe_equal_a_fresh_computation(view):
             assert np.repeat(r["state"].astype(str).to_numpy(), lengths).tolist() == \
                 sig.frame[f"state_{tail}"].astype(str).tolist()
     # The stored universe summary is signals.universe_summary of the fresh frames.
-    stored = view.store.read_universe(view.signals_key)
+    stored = view.store.read_universe(universe_key(view.signals_key))
     want = universe_summary({p: s.frame for p, s in fresh.items()})
     assert stored.index.equals(pd.DatetimeIndex(want.index).astype(stored.index.dtype))
     for col in ("n_pairs", "n_alert", "n_alert_lower", "n_alert_upper"):
@@ -112,9 +112,9 @@ def test_incremental_update_equals_from_scratch(dash_store, tmp_path, cut):
     cfg = dash_store.cfg
     key = signals_key(cfg)
     with Store(dash_store.url, create=False) as original:
-        want_universe = original.read_universe(key)
+        want_universe = original.read_universe(universe_key(key))
         want_runs = original.read_state_runs(key)
-        dates = original.read_universe(key).index
+        dates = original.read_universe(universe_key(key)).index
     cut_date = (dates[len(dates) // 2] if cut == "middle" else dates[-2]).date()
     with Store(url) as store:
         with store.transaction() as conn:
@@ -126,21 +126,21 @@ def test_incremental_update_equals_from_scratch(dash_store, tmp_path, cut):
         # On the shorter timeline the stored summary is again the from-scratch one.
         fresh = _fresh_signals(short_view)
         np.testing.assert_allclose(
-            store.read_universe(key)["tail_lower_emp"].to_numpy(),
+            store.read_universe(universe_key(key))["tail_lower_emp"].to_numpy(),
             universe_summary({p: s.frame for p, s in fresh.items()})["tail_lower_emp"],
             rtol=1e-12)
         runs_before = _rowids(url, "state_runs", key)
-        universe_before = _rowids(url, "universe_daily", key)
+        universe_before = _rowids(url, "universe_daily", universe_key(key))
         with store.transaction() as conn:
             conn.execute(metrics.insert(), later)
         update_signals(store, cfg)
-        got_universe = store.read_universe(key)
+        got_universe = store.read_universe(universe_key(key))
         got_runs = store.read_state_runs(key)
     pd.testing.assert_frame_equal(got_runs, want_runs)
     pd.testing.assert_frame_equal(got_universe, want_universe, rtol=1e-12)
     if cut == "last-day":
         runs_after = _rowids(url, "state_runs", key)
-        universe_after = _rowids(url, "universe_daily", key)
+        universe_after = _rowids(url, "universe_daily", universe_key(key))
         rewritten = [k for k, rid in runs_after.items() if runs_before.get(k) != rid]
         assert 0 < len(rewritten) <= 2 * 6  # at most one run per tail of each pair
         # Every earlier universe row is untouched; the new day adds one.
@@ -155,7 +155,7 @@ def test_incremental_update_equals_from_scratch(dash_store, tmp_path, cut):
 
 # ----------------------------------------------------------------------------- the board
 def test_board_as_of_a_date_equals_the_stored_timeline(view):
-    universe = view.store.read_universe(view.signals_key)
+    universe = view.store.read_universe(universe_key(view.signals_key))
     # A Saturday in the middle of the history: every row is the window ending the day before.
     day = universe.index[len(universe) // 2]
     saturday = day + pd.Timedelta(days=(5 - day.weekday()) % 7)
@@ -202,7 +202,7 @@ def test_board_as_of_a_date_equals_the_stored_timeline(view):
 
 def test_latest_board_and_bad_dates(view):
     data = board_data(view)
-    universe = view.store.read_universe(view.signals_key)
+    universe = view.store.read_universe(universe_key(view.signals_key))
     assert data.as_of == universe.index[-1] == data.last_date
     # Each pair's latest window end (pairs keep their own calendars).
     assert data.pairs["date"].max() == data.as_of
@@ -259,8 +259,8 @@ def test_board_callback_returns_the_figures_and_the_table(dash_store, view):
     register(app, view)
     (key,) = app.callback_map
     assert all(f"{i}.{p}" in key for i, p in OUTPUTS)
-    assert [i["id"] for i in app.callback_map[key]["inputs"]] == [ids.BOARD_DATE,
-                                                                  ids.BOARD_TAIL_SOURCE]
+    assert [i["id"] for i in app.callback_map[key]["inputs"]] == [
+        ids.BOARD_DATE, ids.BOARD_TAIL_SOURCE, ids.BOARD_HORIZON]
     day = board_data(view).as_of.strftime("%Y-%m-%d")
     result = dict(zip([f"{i}.{p}" for i, p in OUTPUTS], show_board(view, day, "model"),
                       strict=True))
@@ -291,10 +291,13 @@ def test_board_callback_returns_the_figures_and_the_table(dash_store, view):
     columns = result[f"{ids.BOARD_RANKING}.columns"]
     assert columns[2] == {"name": "history", "id": "history", "presentation": "markdown"}
     summary = result[f"{ids.BOARD_SUMMARY}.figure"]
-    assert len(summary.data) == 7
+    # tau, three figures per tail, two alert shares, pairs counted and carried.
+    assert len(summary.data) == 11
     np.testing.assert_allclose(np.array(summary.data[0].y, float),
                                data.summary["kendall_tau"].to_numpy(), atol=5e-5)
-    assert len(summary.layout.shapes) == 2  # the date marker on both rows
+    counted = next(t for t in summary.data if t.name == "pairs counted")
+    np.testing.assert_array_equal(np.array(counted.y, float), data.summary["n_pairs"])
+    assert len(summary.layout.shapes) == 3  # the date marker on every row
     note = result[f"{ids.BOARD_NOTE}.children"]
     assert "window 120 days" in note and "real-time" in note and "6 pairs of 4 assets" in note
     assert result[f"{ids.BOARD_MESSAGE}.children"] == ""
@@ -312,20 +315,27 @@ def test_matrix_figure_refuses_unknown_quantities(view):
 
 
 def test_layout_reads_the_date_and_tail_source_from_the_address(view):
-    universe = view.store.read_universe(view.signals_key)
+    universe = view.store.read_universe(universe_key(view.signals_key))
     tree = board_page.layout(view, {})
     picker = find(tree, ids.BOARD_DATE)
     assert picker.date == universe.index[-1].strftime("%Y-%m-%d")
     assert picker.min_date_allowed == universe.index[0].strftime("%Y-%m-%d")
-    assert find(tree, ids.BOARD_TAIL_SOURCE).value == "model"
-    day = universe.index[100].strftime("%Y-%m-%d")
-    tree = board_page.layout(view, {"date": day, "tails": "nonparametric"})
-    assert find(tree, ids.BOARD_DATE).date == day
+    # The default tail figure is the nonparametric one (issue 12; it was the selected
+    # family's), the default horizon one month.
     assert find(tree, ids.BOARD_TAIL_SOURCE).value == "nonparametric"
-    bad = board_page.layout(view, {"date": "yesterday", "tails": "best"})
+    assert find(tree, ids.BOARD_HORIZON).value == "1m"
+    day = universe.index[100].strftime("%Y-%m-%d")
+    tree = board_page.layout(view, {"date": day, "tails": "model", "horizon": "1y"})
+    assert find(tree, ids.BOARD_DATE).date == day
+    assert find(tree, ids.BOARD_TAIL_SOURCE).value == "model"
+    assert find(tree, ids.BOARD_HORIZON).value == "1y"
+    bad = board_page.layout(view, {"date": "yesterday", "tails": "best", "horizon": "2d"})
     assert "date in the address: 'yesterday' is not a date (YYYY-MM-DD)" in text(bad)
-    assert "tails in the address: 'best' is not one of model, nonparametric" in text(bad)
-    assert find(bad, ids.BOARD_TAIL_SOURCE).value == "model"
+    assert ("tails in the address: 'best' is not one of nonparametric, averaged, model"
+            in text(bad))
+    assert "horizon in the address: '2d' is not one of 1w, 1m, 3m, 1y" in text(bad)
+    assert find(bad, ids.BOARD_TAIL_SOURCE).value == "nonparametric"
+    assert find(bad, ids.BOARD_HORIZON).value == "1m"
     assert "in binomial standard errors" in text(bad)  # the ranking's definition is shown
 
 
@@ -344,9 +354,9 @@ def test_the_same_board_on_both_backends(dash_store, view, store_url):
         other = StoreView.open(cfg, target)
         pd.testing.assert_frame_equal(target.read_state_runs(other.signals_key),
                                       view.store.read_state_runs(view.signals_key))
-        pd.testing.assert_frame_equal(target.read_universe(other.signals_key),
-                                      view.store.read_universe(view.signals_key), rtol=1e-12)
-        day = view.store.read_universe(view.signals_key).index[300]
+        pd.testing.assert_frame_equal(target.read_universe(universe_key(other.signals_key)),
+                                      view.store.read_universe(universe_key(view.signals_key)), rtol=1e-12)
+        day = view.store.read_universe(universe_key(view.signals_key)).index[300]
         got, want = board_data(other, day).pairs, board_data(view, day).pairs
     pd.testing.assert_frame_equal(got, want, rtol=1e-12)
 
@@ -358,20 +368,26 @@ def test_revisions_and_replaced_metrics_drop_the_universe_rows_they_touch(dash_s
     key = signals_key(cfg)
     with Store(url) as store:
         view = StoreView.open(cfg, store)
-        before = store.read_universe(key)
+        before = store.read_universe(universe_key(key))
         asset = dash_store.assets[0]
         first = before.index[len(before) // 2].date()
         # A revision of one asset drops its pairs' metrics from that date, and the universe
         # rows from that date (for every pair: they averaged the dropped rows).
         with store.transaction() as conn:
             store.invalidate_from(conn, asset, first)
-        assert store.read_universe(key).index[-1].date() < first
+        assert store.read_universe(universe_key(key)).index[-1].date() < first
         update_signals(store, cfg)
         fresh = _fresh_signals(view)
         want = universe_summary({p: s.frame for p, s in fresh.items()})
-        got = store.read_universe(key)
+        got = store.read_universe(universe_key(key))
         np.testing.assert_array_equal(got["n_pairs"], want["n_pairs"])
-        assert got.loc[got.index.date >= first, "n_pairs"].max() == 3  # the other 3 pairs
+        after = got[got.index.date >= first]
+        # The revised asset's 3 pairs are carried forward over the first dates (at most
+        # UNIVERSE_STALE_LIMIT = 5 of them), then only the other 3 pairs count.
+        assert after["n_carried"].iloc[:5].tolist() == [3] * 5
+        assert after["n_pairs"].iloc[:5].tolist() == [6] * 5
+        assert after["n_pairs"].iloc[5:].max() == 3
+        np.testing.assert_array_equal(got["n_carried"], want["n_carried"])
         np.testing.assert_allclose(got["kendall_tau"], want["kendall_tau"], rtol=1e-12)
         # Replacing a pair's metrics drops the whole summary under those settings.
         a, b = max(fresh)
@@ -379,6 +395,6 @@ def test_revisions_and_replaced_metrics_drop_the_universe_rows_they_touch(dash_s
         with store.transaction() as conn:
             store.save_pair_metrics(conn, view.rolling_key, a, b, timeline, {}, 0.3,
                                     replace_all=True)
-        assert store.read_universe(key).empty
+        assert store.read_universe(universe_key(key)).empty
         update_signals(store, cfg)
-        pd.testing.assert_frame_equal(store.read_universe(key), got, rtol=1e-12)
+        pd.testing.assert_frame_equal(store.read_universe(universe_key(key)), got, rtol=1e-12)
