@@ -233,8 +233,12 @@ def tail_shift(start: str = "2016-01-04", calm_years: float = 4.0, shifted_years
                   regimes, (), options)
 
 
-def steady_pair(start: str = "2004-01-05", years: float = 20.0, tau: float = 0.35) -> Design:
-    """A pair whose copula never changes: Gaussian with Kendall's tau ``tau`` for ``years``.
+STEADY_COPULAS = ("gaussian", "student-t", "clayton")
+
+
+def steady_pair(start: str = "2004-01-05", years: float = 20.0, tau: float = 0.35,
+                copula: str = "gaussian", nu: float = 4.0) -> Design:
+    """A pair whose copula never changes, with Kendall's tau ``tau`` for ``years``.
 
     Parameters
     ----------
@@ -243,21 +247,44 @@ def steady_pair(start: str = "2004-01-05", years: float = 20.0, tau: float = 0.3
     years : float
         Length in years (rounded to whole months).
     tau : float
-        Kendall's tau, in (-0.95, 0.95).
+        Kendall's tau, in (-0.95, 0.95); in (0, 0.95) for ``clayton``.
+    copula : {"gaussian", "student-t", "clayton"}
+        The copula throughout: Gaussian (no tail dependence), Student-t with ``nu`` degrees
+        of freedom (the same tail dependence in both tails, standing all along) or Clayton
+        (lower tail only).
+    nu : float
+        Degrees of freedom of the Student-t copula, in [1, 100].
 
     Notes
     -----
-    For false-alarm calibration: any alert raised on this pair is a false alarm.
+    For false-alarm calibration: the dependence never changes, so any alert raised on this
+    pair is a false alarm; heavy tails present throughout are a standing condition, not a
+    change. Gaussian and Student-t: rho = sin(pi tau / 2); Clayton: theta = 2 tau / (1 - tau)
+    (Lindskog, McNeil & Schmock 2003; Joe 1997, family B4).
     """
     name = "steady-pair"
     start_ts = _date(name, "start", start)
-    tau = _float(name, "tau", tau, -0.95, 0.95)
+    if copula not in STEADY_COPULAS:
+        raise _fail(name, "copula", f"must be one of {', '.join(STEADY_COPULAS)}, "
+                    f"got {copula!r}")
+    lo = 0.0 if copula == "clayton" else -0.95
+    tau = _float(name, "tau", tau, lo, 0.95)
+    nu = _float(name, "nu", nu, 1.0, 100.0)
     months = _months(name, "years", _float(name, "years", years, 0.0, 200.0))
     names = ("MRW40", "SDR100")
     days = _weekdays_between(start_ts, months)
-    regimes = (Regime("steady", f"Gaussian copula, Kendall's tau {tau:g}, throughout.", days,
-                      (Block.gaussian(names, _equicorrelation(2, gaussian_rho_from_tau(tau))),)),)
-    options = {"start": start_ts.strftime("%Y-%m-%d"), "years": months / 12, "tau": tau}
+    corr = _equicorrelation(2, gaussian_rho_from_tau(tau))
+    if copula == "gaussian":
+        block, what = Block.gaussian(names, corr), "Gaussian copula"
+    elif copula == "student-t":
+        block, what = Block.student_t(names, corr, nu), f"Student-t({nu:g}) copula"
+    else:
+        theta = clayton_theta_from_tau(tau)
+        block, what = Block.clayton(names, theta), f"Clayton({theta:.6g}) copula"
+    regimes = (Regime("steady", f"{what}, Kendall's tau {tau:g}, throughout.", days,
+                      (block,)),)
+    options = {"start": start_ts.strftime("%Y-%m-%d"), "years": months / 12, "tau": tau,
+               "copula": copula, "nu": nu}
     return Design(name, SCENARIO_DESCRIPTIONS[name], _pick(names), venues(), start_ts,
                   regimes, (), options)
 
@@ -338,7 +365,7 @@ SCENARIO_DESCRIPTIONS = MappingProxyType({
     "tail-shift": "Detection benchmark: calm Gaussian (tau 0.35) for 4 years, then Clayton "
                   "with the same tau for 2 years.",
     "steady-pair": "False-alarm calibration: one pair, Gaussian copula with tau 0.35 for 20 "
-                   "years, never changing.",
+                   "years, never changing (option copula: student-t or clayton).",
     "wide-grid": "Performance benchmark: 30 assets x 5000 days (options n_assets, n_days), "
                  "block Gaussian / Student-t dependence.",
 })
