@@ -216,7 +216,7 @@ universe_daily = sa.Table(
     "universe_daily", metadata,
     sa.Column("settings", sa.String(255), primary_key=True),
     sa.Column("date", sa.Date, primary_key=True),
-    *[sa.Column(name, sa.Integer, nullable=name != "n_carried") for name in UNIVERSE_COUNTS],
+    *[sa.Column(name, sa.Integer, nullable=name == "n_carried") for name in UNIVERSE_COUNTS],
     *[sa.Column(name, _DOUBLE) for name in UNIVERSE_MEANS],
 )
 

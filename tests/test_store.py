@@ -273,6 +273,70 @@ def _metric_frame(days: pd.DatetimeIndex, seed: int) -> pd.DataFrame:
     return frame
 
 
+def test_older_store_gets_its_missing_columns_and_its_rows_read_null(store_url, store_snapshot):
+    """A store of an older comove (no model-averaged tails in ``metrics``, no carried count
+    in ``universe_daily``) is upgraded in place by ALTER TABLE ... ADD COLUMN: the rows it
+    held keep every value and read NULL (NaN) in the new columns; the schema version stays 1
+    and opening it again changes nothing."""
+    days = pd.bdate_range("2022-01-03", periods=6)
+    frame = _metric_frame(days, 3)
+    with Store(store_url) as store, store.transaction() as conn:
+        store.save_metrics(conn, "r", [("ALDER", "BIRCH", frame, {}, 0.3, False)])
+    for table, column in (("metrics", "tail_lower_avg"), ("metrics", "tail_upper_avg"),
+                          ("universe_daily", "n_carried")):
+        execute(store_url, f"ALTER TABLE {table} DROP COLUMN {column}")
+    with Store(store_url) as store:
+        got = store.read_timeline("r", "ALDER", "BIRCH")
+        row = store.metrics_as_of("r", days[-1].date(), ["date", "tail_lower_avg",
+                                                         "kendall_tau"])
+        later = _metric_frame(pd.bdate_range("2022-01-11", periods=2), 4)
+        with store.transaction() as conn:
+            store.save_metrics(conn, "r", [("ALDER", "BIRCH", later, {}, 0.3, False)])
+        both = store.read_timeline("r", "ALDER", "BIRCH")
+    assert np.isnan(got["tail_lower_avg"]).all() and np.isnan(got["tail_upper_avg"]).all()
+    keep = [c for c in frame.columns if c not in ("tail_lower_avg", "tail_upper_avg")]
+    pd.testing.assert_frame_equal(got[keep].drop(columns=["date", "start"]),
+                                  frame[keep].drop(columns=["date", "start"]),
+                                  check_dtype=False)
+    assert row["tail_lower_avg"].isna().all() and row["kendall_tau"].iloc[0] == frame[
+        "kendall_tau"].iloc[-1]
+    # Rows written after the upgrade carry the new columns.
+    np.testing.assert_array_equal(both["tail_lower_avg"].to_numpy()[-2:],
+                                  later["tail_lower_avg"].to_numpy())
+    assert execute(store_url, "SELECT value FROM schema_info WHERE key = 'version'") == [("1",)]
+    before = store_snapshot(store_url)
+    with Store(store_url):
+        pass
+    assert store_snapshot(store_url) == before
+
+
+def test_metrics_of_an_earlier_window_end_and_tail_level_counts(store_url):
+    days = pd.bdate_range("2022-01-03", periods=10)
+    a, b = _metric_frame(days, 5), _metric_frame(days[4:], 6)
+    with Store(store_url) as store:
+        with store.transaction() as conn:
+            store.save_metrics(conn, "r", [("ALDER", "BIRCH", a, {}, 0.3, False),
+                                           ("ALDER", "CEDAR", b, {}, 0.3, False)])
+        now = store.metrics_as_of("r", days[8].date(), ["date", "kendall_tau"])
+        back = store.metrics_as_of("r", days[8].date(), ["date", "kendall_tau"], back=5)
+        counts = store.tail_level_counts("r", days[2].date(), days[8].date(), 0.3)
+        with pytest.raises(ValueError, match="back must be an integer >= 0"):
+            store.metrics_as_of("r", days[8].date(), ["date"], back=-1)
+    assert now["date"].tolist() == [days[8], days[8]]
+    # Five of the pair's own window ends back: ALDER/BIRCH on day 3; ALDER/CEDAR (from day
+    # 4 on) has only four before day 8, so it is left out.
+    assert back[["asset_a", "asset_b"]].values.tolist() == [["ALDER", "BIRCH"]]
+    assert back["date"].tolist() == [days[3]] and back["kendall_tau"].iloc[0] == a[
+        "kendall_tau"].iloc[3]
+    # Counted by hand from the frames: window ends in [day 2, day 8] at or above 0.3.
+    for frame, (x, y) in ((a, ("ALDER", "BIRCH")), (b, ("ALDER", "CEDAR"))):
+        part = frame[(frame["date"] >= days[2]) & (frame["date"] <= days[8])]
+        got = counts[(counts["asset_a"] == x) & (counts["asset_b"] == y)].iloc[0]
+        assert got["n_ends"] == len(part)
+        assert got["n_tail_lower_avg"] == int((part["tail_lower_avg"] >= 0.3).sum())
+        assert got["n_tail_upper_avg"] == int((part["tail_upper_avg"] >= 0.3).sum())
+
+
 def test_metrics_timelines_resume_points_and_continued_state_runs(store_url):
     days = pd.bdate_range("2022-01-03", periods=40)
     a, b = _metric_frame(days, 1), _metric_frame(days, 2)

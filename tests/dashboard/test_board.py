@@ -16,18 +16,26 @@ import numpy as np
 import pandas as pd
 import pytest
 import sqlalchemy as sa
+from scipy import stats
 from sqlalchemy.pool import NullPool
 
 from callbacks.board import OUTPUTS, register, show_board
 from layouts import board as board_page
 from layouts import ids
 from monitor.board import (
+    CHANGE_COLUMNS,
     board_data,
+    change_figure,
+    change_se,
+    change_z,
     cluster_order,
     divergence,
+    excess_figure,
     matrix_figure,
     pair_matrix,
     rank_pairs,
+    ranking_table,
+    standing_labels,
 )
 from monitor.errors import InputError
 from monitor.palette import DIVERGING, SEQUENTIAL
@@ -398,3 +406,146 @@ def test_revisions_and_replaced_metrics_drop_the_universe_rows_they_touch(dash_s
         assert store.read_universe(universe_key(key)).empty
         update_signals(store, cfg)
         pd.testing.assert_frame_equal(store.read_universe(universe_key(key)), got, rtol=1e-12)
+
+
+# ----------------------------------------------------------------------------- issue 12
+def test_change_se_by_hand():
+    # Overlap share 1 - lag/n: identical windows (lag 0) give |se_now - se_then|; disjoint
+    # ones (lag >= n) the independent sqrt(0.03^2 + 0.04^2) = 0.05 (3-4-5); half-overlapping
+    # sqrt(0.0009 + 0.0016 - 2 * 0.5 * 0.0012) = sqrt(0.0013).
+    got = change_se([0.03, 0.03, 0.03, 0.03], [0.04, 0.04, 0.04, 0.04], [0, 250, 400, 125],
+                    250)
+    np.testing.assert_allclose(got, [0.01, 0.05, 0.05, np.sqrt(0.0013)], rtol=1e-12)
+    np.testing.assert_allclose(change_z([0.1, 0.0, 0.2], [0.05, 0.0, 0.0]), [2.0, 0.0, np.nan])
+
+
+def test_change_view_equals_the_stored_timeline(view):
+    """Each pair's change over 3 months (63 window ends) and 1 year (252: disjoint windows of
+    120) is its own timeline's difference, with the standard error of change_se by hand."""
+    for horizon, back in (("3m", 63), ("1y", 252)):
+        data = board_data(view, "2019-01-04", horizon)
+        assert (data.back, data.lag) == (back, back)
+        rho = max(0.0, 1 - back / 120)
+        for row in data.pairs.itertuples(index=False):
+            tl = view.store.read_timeline(view.rolling_key, row.asset_a, row.asset_b)
+            tl = tl[tl["date"] <= data.as_of].reset_index(drop=True)
+            now, then = tl.iloc[-1], tl.iloc[-1 - back]
+            assert row.date == now["date"] and row.date_then == then["date"]
+            for col in CHANGE_COLUMNS:
+                assert getattr(row, f"change_{col}") == pytest.approx(now[col] - then[col],
+                                                                      abs=1e-15), col
+            for col, se in (("kendall_tau", "kendall_tau_se"),
+                            ("tail_lower_emp", "tail_lower_emp_se")):
+                a, b = now[se], then[se]
+                want = np.sqrt(a * a + b * b - 2 * rho * a * b)
+                assert getattr(row, f"change_{col}_se") == pytest.approx(want, rel=1e-12)
+                if want > 0:
+                    assert getattr(row, f"change_{col}_z") == pytest.approx(
+                        (now[col] - then[col]) / want, rel=1e-12)
+    # Pairs with too short a history compare with nothing (the fixture starts 2017-06-16).
+    early = board_data(view, "2017-09-29", "1y")
+    assert early.pairs["date_then"].isna().all()
+    assert early.pairs["change_kendall_tau"].isna().all()
+
+
+def test_excess_and_change_matrices_and_the_averaged_source(view):
+    day = "2019-01-04"
+    data = board_data(view, day, "3m")
+    a, b = data.pairs.iloc[0][["asset_a", "asset_b"]]
+    i, j = data.assets.index(a), data.assets.index(b)
+    for tail in ("lower", "upper"):
+        heat = excess_figure(data, tail).data[0]
+        np.testing.assert_array_equal(np.array(heat.z, float),
+                                      data.matrix(f"divergence_{tail}").to_numpy())
+        assert (heat.zmin, heat.zmax) == (-4, 4)
+        assert [list(c) for c in heat.colorscale] == [list(c) for c in DIVERGING]
+        assert "excess over Gaussian" in heat.text[i][j] and "s.e." in heat.text[i][j]
+    tau = change_figure(data, "kendall_tau").data[0]
+    np.testing.assert_array_equal(np.array(tau.z, float),
+                                  data.matrix("change_kendall_tau").to_numpy())
+    assert "z " in tau.text[i][j] and "correlation 0.47 assumed" in tau.text[i][j]  # 1-63/120
+    averaged = change_figure(data, "tail_lower", "averaged").data[0]
+    np.testing.assert_array_equal(np.array(averaged.z, float),
+                                  data.matrix("change_tail_lower_avg").to_numpy())
+    assert "no stored s.e. for a model-based tail" in averaged.text[i][j]
+    level = matrix_figure(data, "tail_upper", "averaged").data[0]
+    np.testing.assert_array_equal(np.array(level.z, float),
+                                  data.matrix("tail_upper_avg").to_numpy())
+    assert "model-averaged (Akaike weights)" in level.text[i][j]
+    # The callback with the averaged source and a one-week horizon.
+    out = dict(zip([f"{k}.{p}" for k, p in OUTPUTS], show_board(view, day, "averaged", "1w"),
+                   strict=True))
+    lower = out[f"{ids.BOARD_MATRIX_LOWER}.figure"].data[0]
+    week = board_data(view, day, "1w")
+    np.testing.assert_array_equal(np.array(lower.z, float),
+                                  week.matrix("tail_lower_avg").to_numpy())
+    change = out[f"{ids.BOARD_CHANGE_TAU}.figure"]
+    assert "over 1 week" in change.layout.title.text
+    assert "Change over 1 week (5 window ends, 5 trading days)" in out[
+        f"{ids.BOARD_CHANGE_NOTE}.children"]
+    columns = {c["id"]: c for c in out[f"{ids.BOARD_RANKING}.columns"]}
+    assert columns["Δ tau 1w (z)"]["type"] == "numeric"
+    rows = out[f"{ids.BOARD_RANKING}.data"]
+    first = next(r for r in rows if r["pair"] == f"{a}/{b}")
+    got = week.pairs.set_index(["asset_a", "asset_b"]).loc[(a, b)]
+    assert first["Δ tau 1w"] == round(got["change_kendall_tau"], 3)
+    assert first["lower tail averaged"] == round(got["tail_lower_avg"], 3)
+
+
+def test_standing_tail_heaviness_label_on_the_demo(view):
+    """The fixture's pairs are Gaussian until 2018-01-04, then Clayton with the same tau
+    0.35 (lower tail dependence 2^(-1/theta) = 0.53 at theta = 2 tau / (1 - tau); Nelsen
+    2006, An Introduction to Copulas, example 5.22, from memory). A year into the Clayton
+    regime every pair is a standing heavy lower tail, upper tail not; in the Gaussian stretch
+    none is."""
+    late = board_data(view, "2019-01-04")
+    assert late.pairs["standing"].tolist() == ["standing heavy lower tail"] * 6
+    calm = board_data(view, "2017-12-29")
+    assert calm.pairs["standing"].tolist() == [""] * 6
+    # The label's counts are the timeline's own: window ends of the last 365 days with the
+    # averaged lower tail >= 0.1, at least 80% of them and of 252 window ends.
+    for row in late.pairs.itertuples(index=False):
+        tl = view.store.read_timeline(view.rolling_key, row.asset_a, row.asset_b)
+        year = tl[(tl["date"] > late.as_of - pd.Timedelta(days=365))
+                  & (tl["date"] <= late.as_of)]
+        assert len(year) >= 0.8 * 252
+        assert (year["tail_lower_avg"] >= 0.1).mean() >= 0.8
+        assert (year["tail_upper_avg"] >= 0.1).mean() < 0.8
+    table = ranking_table(late)
+    assert table["standing"].tolist() == ["standing heavy lower tail"] * 6
+
+
+def test_standing_labels_by_hand():
+    counts = pd.DataFrame({"n_ends": [252, 252, 252, 100, 252],
+                           "n_tail_lower_avg": [250, 202, 100, 100, 201],
+                           "n_tail_upper_avg": [240, 10, 240, 100, 0]})
+    got = standing_labels(counts, 252)
+    # 0.8 * 252 = 201.6: 202 is enough, 201 is not; 100 window ends are too few for a year.
+    assert got.tolist() == ["standing heavy tails", "standing heavy lower tail",
+                            "standing heavy upper tail", "", ""]
+
+
+def test_standing_label_of_a_student_t_pair_and_not_of_a_gaussian_one():
+    """A Student-t copula (rho 0.5, nu 4: lambda = 2 t_5(-sqrt(5 * 0.5 / 1.5)) = 0.25, Demarta
+    & McNeil 2005, The t copula and related copulas, eq. 3.4, from memory) never changes
+    but has heavy tails in both: a standing condition. A Gaussian copula with the same
+    correlation does not get the label (simulated data, one fixed seed each)."""
+    from monitor.rolling import RollingSettings, pair_metrics, window_end_positions
+    from synthetic_feeds.samplers import sample_gaussian, sample_student_t
+
+    rng = np.random.default_rng(20261202)
+    corr = [[1.0, 0.5], [0.5, 1.0]]
+    settings = RollingSettings()
+    labels = {}
+    for name, u in (("t", sample_student_t(501, corr, 4.0, rng)),
+                    ("gaussian", sample_gaussian(501, corr, rng))):
+        z = stats.norm.ppf(u)
+        dates = pd.bdate_range("2021-01-04", periods=len(z))
+        frame = pair_metrics(dates, z[:, 0], z[:, 1], settings,
+                             window_end_positions(len(z), settings)).frame
+        assert len(frame) == 252
+        counts = pd.DataFrame({"n_ends": [len(frame)],
+                               "n_tail_lower_avg": [(frame["tail_lower_avg"] >= 0.1).sum()],
+                               "n_tail_upper_avg": [(frame["tail_upper_avg"] >= 0.1).sum()]})
+        labels[name] = standing_labels(counts, 252).iloc[0]
+    assert labels == {"t": "standing heavy tails", "gaussian": ""}
