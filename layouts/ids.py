@@ -1,4 +1,4 @@
-"""Component ids of the dashboard, in one place (DESIGN.md: layouts use ids from here only).
+"""Component ids of the dashboard, in one place (docs/contracts.md: layouts use ids from here only).
 
 Plain strings for single components; the ``*_TYPE`` names are the ``type`` of dict ids for
 repeated items (the window study's figures and tables).

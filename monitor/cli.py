@@ -1,6 +1,6 @@
 """The ``comove`` command line.
 
-Exit codes (DESIGN.md): 0 success; 2 bad input or usage, with one line ``error: ...`` on stderr
+Exit codes (docs/contracts.md): 0 success; 2 bad input or usage, with one line ``error: ...`` on stderr
 naming the file, row/date, column or option at fault; 1 unexpected failure. No traceback reaches
 the user unless ``COMOVE_DEBUG=1`` is set.
 """
@@ -338,7 +338,7 @@ def _cmd_synth(args: argparse.Namespace, cfg: Config) -> int:
     return 0
 
 
-#: DESIGN.md's timeline columns, in contract order; the rest follow.
+#: docs/contracts.md's timeline columns, in contract order; the rest follow.
 TIMELINE_COLUMNS = ("date", "n", "kendall_tau", "spearman_rho", "family", "rotation",
                     "tail_lower", "tail_upper", "tail_lower_emp", "tail_upper_emp", "alert")
 

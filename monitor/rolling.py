@@ -37,7 +37,7 @@ from .empirical import kendall_tau, pseudo_observations, spearman_rho, tail_depe
 from .fitting import akaike_weights, model_average, select_batched
 from .sliding import sliding_dominance, sliding_kendall_tau, sliding_ranks, window_dominance
 
-#: Stored columns of a pair's timeline, in order (DESIGN.md's export contract is a subset).
+#: Stored columns of a pair's timeline, in order (docs/contracts.md's export contract is a subset).
 METRIC_COLUMNS = (
     "date", "start", "n", "kendall_tau", "kendall_tau_se", "spearman_rho", "family", "rotation",
     "param1", "param2", "converged", "loglik", "aic", "loglik_gauss", "aic_gauss",

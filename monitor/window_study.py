@@ -76,7 +76,7 @@ class WindowStudy:
                 "weights": {fits[i].label: round(float(w[i]), 6) for i in order}}
 
     def to_json(self) -> dict:
-        """The ``comove fit --json`` object (DESIGN.md contract, with extra keys)."""
+        """The ``comove fit --json`` object (docs/contracts.md contract, with extra keys)."""
         fits = sorted(self.selection.fits, key=lambda f: f.aic)
         out_fits = []
         for f in fits:

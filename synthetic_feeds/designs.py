@@ -30,7 +30,7 @@ def gaussian_rho_from_tau(tau: float) -> float:
 
     Notes
     -----
-    Inverse of tau = (2/pi) arcsin(rho) (Lindskog, McNeil & Schmock 2003; REFERENCES.md
+    Inverse of tau = (2/pi) arcsin(rho) (Lindskog, McNeil & Schmock 2003; docs/check-values.md
     section 1).
     """
     return math.sin(math.pi * tau / 2.0)
@@ -41,7 +41,7 @@ def clayton_theta_from_tau(tau: float) -> float:
 
     Notes
     -----
-    Inverse of tau = theta / (theta + 2) (Joe 1997, family B4; REFERENCES.md section 1).
+    Inverse of tau = theta / (theta + 2) (Joe 1997, family B4; docs/check-values.md section 1).
     """
     return 2.0 * tau / (1.0 - tau)
 
@@ -51,7 +51,7 @@ def gumbel_theta_from_tau(tau: float) -> float:
 
     Notes
     -----
-    Inverse of tau = 1 - 1/theta (Joe 1997, family B6; REFERENCES.md section 1).
+    Inverse of tau = 1 - 1/theta (Joe 1997, family B6; docs/check-values.md section 1).
     """
     return 1.0 / (1.0 - tau)
 

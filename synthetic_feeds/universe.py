@@ -99,7 +99,7 @@ def assets() -> tuple[Asset, ...]:
     Variance parameters are in percent-squared units, as ``arch`` estimates them on
     100 x log returns; the persistence (alpha + beta + gamma E[z^2 1{z<0}]) is between 0.97
     and 0.99, typical of daily index returns (e.g. alpha = 0.10, beta = 0.89 for the daily
-    index series in REFERENCES.md section 10).
+    index series in docs/check-values.md section 10).
     """
     g, gjr, t, st = "garch", "gjr-garch", "student_t", "skew_t"
     return (

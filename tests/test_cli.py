@@ -1,10 +1,10 @@
 """Tests for the ``comove`` command line, run as the installed console script.
 
-The contract is DESIGN.md ("Contracts"): exit 0 on success, 2 on bad input or usage with exactly
+The contract is docs/contracts.md ("Contracts"): exit 0 on success, 2 on bad input or usage with exactly
 one ``error: ...`` line on stderr naming the file, row/date, column or option at fault and no
 traceback, 1 on an unexpected failure; and the ``comove fit --json`` object. The numbers in that
 object are checked against scipy (Kendall's tau-b, Spearman's rho, multivariate t density), the
-closed forms of /work/shared/REFERENCES.md, and the definitions of AIC (Akaike 1974) and BIC
+closed forms of docs/check-values.md, and the definitions of AIC (Akaike 1974) and BIC
 (Schwarz 1978).
 
 The data are simulated (fictional assets, correlated Student-t returns) so nothing here
@@ -36,7 +36,7 @@ CONTRACT_FAMILIES = ("independence", "gaussian", "student_t", "clayton", "gumbel
 # 90 and 270 when tau < 0); Gaussian, t and Frank are radially symmetric and cover tau < 0
 # with their own parameter.
 ROTATABLE = ("clayton", "gumbel", "joe", "bb1", "bb7")
-# Parameter names per family (DESIGN.md: "parameters rho, nu, theta, delta").
+# Parameter names per family (docs/contracts.md: "parameters rho, nu, theta, delta").
 CONTRACT_PARAMS = {
     "independence": set(), "gaussian": {"rho"}, "student_t": {"rho", "nu"},
     "clayton": {"theta"}, "gumbel": {"theta"}, "frank": {"theta"}, "joe": {"theta"},
@@ -156,14 +156,14 @@ def negative_study(work) -> dict:
     return fit_json(work, "returns.csv", "--pair", "ALDER", "ELM", "--end", "2021-12-31")
 
 
-# ------------------------------------------------------------------ closed forms (REFERENCES)
+# ------------------------------------------------------------------ closed forms (docs/check-values.md)
 def pseudo_obs(x: np.ndarray) -> np.ndarray:
-    # Ranks / (n + 1), ties averaged (REFERENCES.md conventions; Genest, Ghoudi & Rivest 1995).
+    # Ranks / (n + 1), ties averaged (docs/check-values.md conventions; Genest, Ghoudi & Rivest 1995).
     return stats.rankdata(x) / (len(x) + 1.0)
 
 
 def gaussian_loglik(u, v, rho):
-    # Gaussian copula density (REFERENCES.md sec. 1, "Densities"):
+    # Gaussian copula density (docs/check-values.md sec. 1, "Densities"):
     # c = (1-rho^2)^(-1/2) exp{-[rho^2 (x^2+y^2) - 2 rho x y] / [2 (1-rho^2)]}.
     x, y = stats.norm.ppf(u), stats.norm.ppf(v)
     q = (rho**2 * (x**2 + y**2) - 2 * rho * x * y) / (2 * (1 - rho**2))
@@ -171,7 +171,7 @@ def gaussian_loglik(u, v, rho):
 
 
 def student_t_loglik(u, v, rho, nu):
-    # t copula density c = f2(x, y) / (f_nu(x) f_nu(y)), x = t_nu^{-1}(u) (REFERENCES.md
+    # t copula density c = f2(x, y) / (f_nu(x) f_nu(y)), x = t_nu^{-1}(u) (docs/check-values.md
     # sec. 1), with f2 from scipy.stats.multivariate_t.
     x, y = stats.t.ppf(u, nu), stats.t.ppf(v, nu)
     joint = stats.multivariate_t(loc=[0, 0], shape=[[1, rho], [rho, 1]], df=nu)
@@ -180,21 +180,21 @@ def student_t_loglik(u, v, rho, nu):
 
 
 def clayton_loglik(u, v, theta):
-    # c = (1+theta)(uv)^(-theta-1)(u^-theta + v^-theta - 1)^(-1/theta-2) (REFERENCES.md sec. 1).
+    # c = (1+theta)(uv)^(-theta-1)(u^-theta + v^-theta - 1)^(-1/theta-2) (docs/check-values.md sec. 1).
     s = u**-theta + v**-theta - 1
     return float(np.sum(np.log1p(theta) - (theta + 1) * np.log(u * v)
                         - (1 / theta + 2) * np.log(s)))
 
 
 def debye1(x: float) -> float:
-    # D_1(x) = (1/x) int_0^x t/(e^t - 1) dt (REFERENCES.md sec. 1; D_1(-x) = D_1(x) + x/2).
+    # D_1(x) = (1/x) int_0^x t/(e^t - 1) dt (docs/check-values.md sec. 1; D_1(-x) = D_1(x) + x/2).
     if x < 0:
         return debye1(-x) - x / 2
     return integrate.quad(lambda t: t / math.expm1(t) if t > 0 else 1.0, 0, x)[0] / x
 
 
 def implied(family: str, p: dict) -> tuple[float | None, float, float]:
-    """(tau, lambda_L, lambda_U) of the unrotated family, REFERENCES.md sec. 1 table and notes;
+    """(tau, lambda_L, lambda_U) of the unrotated family, docs/check-values.md sec. 1 table and notes;
     tau is None where only a numeric or from-memory form exists."""
     if family == "independence":
         return 0.0, 0.0, 0.0
@@ -211,7 +211,7 @@ def implied(family: str, p: dict) -> tuple[float | None, float, float]:
     if family == "frank":
         return 1 - 4 / p["theta"] * (1 - debye1(p["theta"])), 0.0, 0.0
     if family == "joe":
-        # tau = 1 - 4 sum_k 1/[k(theta k + 2)(theta(k-1) + 2)] (REFERENCES.md sec. 1, series).
+        # tau = 1 - 4 sum_k 1/[k(theta k + 2)(theta(k-1) + 2)] (docs/check-values.md sec. 1, series).
         t, k = p["theta"], np.arange(1, 200_001, dtype=float)
         return 1 - 4 * np.sum(1 / (k * (t * k + 2) * (t * (k - 1) + 2))), 0.0, 2 - 2 ** (1 / t)
     if family == "bb1":
@@ -230,7 +230,7 @@ def test_help_works_for_every_command(work, words):
     assert proc.stderr == ""
     assert proc.stdout.startswith("usage: comove")
     if words and words not in (["export"], ["alerts"]):
-        # DESIGN.md: every subcommand takes --config FILE and --store URL.
+        # docs/contracts.md: every subcommand takes --config FILE and --store URL.
         assert "--config FILE" in proc.stdout and "--store URL" in proc.stdout
 
 
@@ -307,7 +307,7 @@ def test_fit_empirical_tail_matches_the_formula(work, study):
     q = study["empirical_tail"]["q"]
     assert q == 0.10                                    # rolling.tail_q default
     # lambda_L(q) = C_n(q, q)/q, lambda_U(q) = [1 - 2(1-q) + C_n(1-q, 1-q)]/q with
-    # C_n(a, b) = mean 1{U <= a, V <= b} (REFERENCES.md sec. 4; Schmidt & Stadtmueller 2006).
+    # C_n(a, b) = mean 1{U <= a, V <= b} (docs/check-values.md sec. 4; Schmidt & Stadtmueller 2006).
     def c_n(a, b):
         return np.mean((u <= a) & (v <= b))
 
@@ -349,7 +349,7 @@ def test_fit_implied_tau_and_tails_follow_the_closed_forms(study):
     for fit in study["fits"]:
         tau, lam_l, lam_u = implied(fit["family"], fit["params"])
         rot = fit["rotation"]
-        if rot == 180:                  # survival copula: tails swap (REFERENCES.md sec. 2)
+        if rot == 180:                  # survival copula: tails swap (docs/check-values.md sec. 2)
             lam_l, lam_u = lam_u, lam_l
         assert rot in (0, 180)          # positive tau here: no 90/270 slots
         label = f"{fit['family']} {rot}"
@@ -394,7 +394,7 @@ def test_negative_dependence_uses_the_90_and_270_rotations(work, negative_study)
         if fit["family"] in ROTATABLE:
             assert fit["rotation"] in (90, 270), fit
             # Rotating by 90 or 270 degrees changes the sign of tau and leaves no mass in the
-            # (0,0) and (1,1) corners (REFERENCES.md sec. 2).
+            # (0,0) and (1,1) corners (docs/check-values.md sec. 2).
             if tau is not None:
                 assert fit["kendall_tau"] == pytest.approx(-tau, abs=1e-6)
             assert fit["tail_lower"] == fit["tail_upper"] == 0.0

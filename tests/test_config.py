@@ -1,6 +1,6 @@
 """Tests for monitor.config: defaults, file and store precedence, and refusal of bad keys.
 
-The expected defaults and keys are the ``comove.toml`` contract in DESIGN.md ("Config") and the
+The expected defaults and keys are the ``comove.toml`` contract in docs/contracts.md ("Config") and the
 precedence rule under "Contracts": ``--config FILE`` over ``$COMOVE_CONFIG`` over
 ``./comove.toml``; ``--store URL`` over ``$COMOVE_STORE`` over ``[store] url``.
 """
@@ -16,7 +16,7 @@ import pytest
 from monitor.config import Config, load_config
 from monitor.errors import InputError
 
-# DESIGN.md, "Family names".
+# docs/contracts.md, "Family names".
 CONTRACT_FAMILIES = ("independence", "gaussian", "student_t", "clayton", "gumbel", "frank",
                      "joe", "bb1", "bb7")
 
@@ -41,7 +41,7 @@ def toml(path: Path, text: str) -> Path:
 def test_defaults_match_the_design():
     cfg = load_config()
     assert cfg.source == "defaults"
-    # DESIGN.md, "Config comove.toml (at least these keys; defaults in brackets)".
+    # docs/contracts.md, "Config comove.toml (at least these keys; defaults in brackets)".
     assert cfg.store.url == "sqlite:///comove-data/store.sqlite"
     assert cfg.rolling.window == 250
     assert cfg.rolling.step == 1

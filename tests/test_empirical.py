@@ -1,6 +1,6 @@
 """Tests for monitor.empirical: rank correlations, empirical copula, tail and exceedance measures.
 
-Reference values come from scipy.stats, from /work/shared/REFERENCES.md (sections 3, 4 and 7,
+Reference values come from scipy.stats, from docs/check-values.md (sections 3, 4 and 7,
 each recomputed there from the published formulas) and from closed forms. Simulation
 tolerances are about four standard errors of the estimator at the sample size used; the
 standard error is stated beside each check.
@@ -30,7 +30,7 @@ from monitor.empirical import (
     tail_dependence_rank,
 )
 
-# REFERENCES.md section 3, "Deterministic toy data".
+# docs/check-values.md section 3, "Deterministic toy data".
 TOY_X = np.array([1.2, -0.5, 0.3, 2.1, -1.7, 0.9, -0.2, 1.5])
 TOY_Y = np.array([0.8, -1.1, 0.5, 1.9, -0.4, 0.1, -0.9, 2.2])
 
@@ -81,10 +81,10 @@ def gumbel_large():
 def test_toy_ranks_and_rank_correlations():
     u = pseudo_observations(TOY_X)
     v = pseudo_observations(TOY_Y)
-    # REFERENCES.md section 3: ranks x -> [6,2,4,8,1,5,3,7], y -> [6,1,5,7,3,4,2,8].
+    # docs/check-values.md section 3: ranks x -> [6,2,4,8,1,5,3,7], y -> [6,1,5,7,3,4,2,8].
     np.testing.assert_array_equal(u * 9, [6, 2, 4, 8, 1, 5, 3, 7])
     np.testing.assert_array_equal(v * 9, [6, 1, 5, 7, 3, 4, 2, 8])
-    # REFERENCES.md section 3: tau = 0.714286 (= 20/28), rho_S = 0.880952 (= 74/84).
+    # docs/check-values.md section 3: tau = 0.714286 (= 20/28), rho_S = 0.880952 (= 74/84).
     assert kendall_tau(TOY_X, TOY_Y) == pytest.approx(0.714286, abs=5e-7)
     assert kendall_tau(TOY_X, TOY_Y) == pytest.approx(20 / 28, abs=1e-15)
     assert spearman_rho(TOY_X, TOY_Y) == pytest.approx(0.880952, abs=5e-7)
@@ -93,7 +93,7 @@ def test_toy_ranks_and_rank_correlations():
 def test_toy_empirical_copula():
     u = pseudo_observations(TOY_X)
     v = pseudo_observations(TOY_Y)
-    # REFERENCES.md section 3: C_n(.5,.5) = 0.375, C_n(.25,.25) = 0.125, C_n(.75,.5) = 0.5.
+    # docs/check-values.md section 3: C_n(.5,.5) = 0.375, C_n(.25,.25) = 0.125, C_n(.75,.5) = 0.5.
     got = empirical_copula(u, v, [0.5, 0.25, 0.75], [0.5, 0.25, 0.5])
     np.testing.assert_allclose(got, [0.375, 0.125, 0.5], atol=1e-15)
     assert empirical_copula(u, v, 0.5, 0.5) == pytest.approx(0.375, abs=1e-15)
@@ -289,7 +289,7 @@ def test_tail_dependence_gaussian_population_values(gaussian_large, q, populatio
     x, y = gaussian_large
     n = x.size
     res = tail_dependence(pseudo_observations(x), pseudo_observations(y), q)
-    # REFERENCES.md section 4, population C(q,q)/q for the Gaussian copula rho = 0.5 at
+    # docs/check-values.md section 4, population C(q,q)/q for the Gaussian copula rho = 0.5 at
     # q = .10/.05/.01; by radial symmetry the upper value is the same. Tolerance 4 sd.
     tol = 4.0 * _poisson_sd(population, n, q)
     assert float(res.lower) == pytest.approx(population, abs=tol)
@@ -306,7 +306,7 @@ def test_tail_dependence_batched_and_q_broadcast(gaussian_large):
     assert res.lower.shape == (2, 20)
     single = tail_dependence(u[3], v[3], 0.1)
     assert res.lower[1, 3] == single.lower and res.upper[1, 3] == single.upper
-    # The estimator as printed in REFERENCES.md section 4, computed directly.
+    # The estimator as printed in docs/check-values.md section 4, computed directly.
     q = 0.05
     c_low = np.mean((u[3] <= q) & (v[3] <= q))
     c_up = np.mean((u[3] <= 1 - q) & (v[3] <= 1 - q))
@@ -319,15 +319,15 @@ def test_tail_dependence_batched_and_q_broadcast(gaussian_large):
 def test_tail_dependence_clayton_lower_tail(clayton_large):
     x, y = clayton_large
     n = x.size
-    # REFERENCES.md section 1/4: Clayton(2) lambda_L = 2^(-1/2) = 0.7071, lambda_U = 0;
+    # docs/check-values.md section 1/4: Clayton(2) lambda_L = 2^(-1/2) = 0.7071, lambda_U = 0;
     # population C(q,q)/q at q = .01 is .7071 (section 4 table).
     emp = tail_dependence(pseudo_observations(x), pseudo_observations(y), 0.01)
     assert float(emp.lower) == pytest.approx(0.7071, abs=4 * _poisson_sd(0.7071, n, 0.01))
-    # REFERENCES.md section 4 simulated row for Clayton(2), n = 200,000: upper emp q=.01 is
+    # docs/check-values.md section 4 simulated row for Clayton(2), n = 200,000: upper emp q=.01 is
     # .0310, i.e. the finite-q estimate of a tail-independent copula is small but positive.
     assert 0.0 < float(emp.upper) < 0.06
     ss = tail_dependence_rank(x, y)
-    # Schmidt & Stadtmuller (2006) rank form with k = floor(sqrt(n)) = 447 (REFERENCES.md
+    # Schmidt & Stadtmuller (2006) rank form with k = floor(sqrt(n)) = 447 (docs/check-values.md
     # section 4: k ~ sqrt(n) (from memory); simulated .7159 / .0067). The joint count given k
     # marginal extremes is about Binomial(k, lambda): sd sqrt(lambda (1 - lambda) / k) = .022.
     assert ss.k == 447 and ss.n == n
@@ -342,7 +342,7 @@ def test_tail_dependence_rank_against_definition():
     res = tail_dependence_rank(x, y, k=30)
     r = stats.rankdata(x, axis=-1)
     s = stats.rankdata(y, axis=-1)
-    # Schmidt & Stadtmuller (2006), rank form as in REFERENCES.md section 4.
+    # Schmidt & Stadtmuller (2006), rank form as in docs/check-values.md section 4.
     np.testing.assert_allclose(res.lower, np.sum((r <= 30) & (s <= 30), axis=-1) / 30)
     np.testing.assert_allclose(res.upper, np.sum((r > 270) & (s > 270), axis=-1) / 30)
     with pytest.raises(ValueError, match=r"k must lie in \[1, n\]"):
@@ -382,7 +382,7 @@ def test_tail_dependence_plateau_against_literal_rule():
 def test_tail_dependence_plateau_clayton():
     x, y = family("clayton").sample(20_000, (2.0,), rng=20240604).T
     res = tail_dependence_plateau(x, y)
-    # REFERENCES.md section 4: Clayton(2) lambda_L = 0.7071; plateau rule (Frahm, Junker &
+    # docs/check-values.md section 4: Clayton(2) lambda_L = 0.7071; plateau rule (Frahm, Junker &
     # Schmidt 2005, from memory) with b = floor(0.005 n) = 100 and m = floor(sqrt(n - 2b)).
     # Over 20 replications here at n = 20,000 the estimate had sd 0.017; tolerance 4 sd.
     assert (res.bandwidth, res.length) == (100, 140)
@@ -394,16 +394,16 @@ def test_tail_dependence_plateau_clayton():
 
 def test_tail_dependence_cfg_gumbel_and_clayton_pitfall(gumbel_large, clayton_large):
     gx, gy = gumbel_large
-    # Self-check of the frailty sampler: Gumbel tau = 1 - 1/theta = 0.5 (REFERENCES.md s.1);
+    # Self-check of the frailty sampler: Gumbel tau = 1 - 1/theta = 0.5 (docs/check-values.md s.1);
     # sd of tau_n at n = 200,000 is about 0.001.
     assert float(kendall_tau(gx, gy)) == pytest.approx(0.5, abs=0.005)
     cfg = tail_dependence_cfg(gx, gy)
-    # REFERENCES.md section 4: Gumbel(2) lambda_U = 2 - 2^(1/2) = 0.5858; simulated CFG at
+    # docs/check-values.md section 4: Gumbel(2) lambda_U = 2 - 2^(1/2) = 0.5858; simulated CFG at
     # n = 200,000 gave .5863. Over 8 replications here the sd was 0.0009; tolerance ~5 sd.
     assert float(cfg.upper) == pytest.approx(0.5858, abs=0.005)
     cx, cy = clayton_large
     clayton_cfg = tail_dependence_cfg(cx, cy)
-    # The pitfall (REFERENCES.md section 4; Frahm, Junker & Schmidt 2005): Clayton is not an
+    # The pitfall (docs/check-values.md section 4; Frahm, Junker & Schmidt 2005): Clayton is not an
     # extreme-value copula, lambda_U = 0, yet CFG reports about 0.4971 (sd 0.0009 here),
     # while the rank estimator correctly stays near 0.
     assert float(clayton_cfg.upper) == pytest.approx(0.4971, abs=0.005)
@@ -451,7 +451,7 @@ def test_exceedance_correlation_gaussian_benchmark(gaussian_million):
     benchmark = np.array([0.2687, 0.2200, 0.1789])
     up = exceedance_correlation(x, y, xi)
     down = exceedance_correlation(x, y, -xi)
-    # REFERENCES.md section 7, Gaussian benchmark rho = 0.5 (Longin & Solnik 2001
+    # docs/check-values.md section 7, Gaussian benchmark rho = 0.5 (Longin & Solnik 2001
     # definition): rho+(xi) at xi = 0, 0.5, 1; by symmetry rho-(-xi) is the same.
     for i, target in enumerate(benchmark):
         assert up.upper[i] == pytest.approx(target, abs=4 * _corr_sd(target, up.count_upper[i]))
@@ -510,7 +510,7 @@ def test_conditional_correlation_boyer_gibson_loretan(gaussian_million):
     c = stats.norm.ppf(0.75)  # 0.6745
     outer = conditional_correlation(x, y, np.abs(x) > c)
     inner = conditional_correlation(x, y, np.abs(x) < c)
-    # REFERENCES.md section 7, conditioning bias (Boyer, Gibson & Loretan): for rho = 0.5,
+    # docs/check-values.md section 7, conditioning bias (Boyer, Gibson & Loretan): for rho = 0.5,
     # corr(X, Y | |X| > 0.6745) = 0.6184 and corr(X, Y | |X| < 0.6745) = 0.2131.
     assert float(outer.correlation) == pytest.approx(
         0.6184, abs=4 * _corr_sd(0.6184, int(outer.count)))

@@ -1,7 +1,7 @@
 """Tests for ingest (monitor.ingest, the ``ingest`` and ``export returns`` commands, SQL sources
 and ``[[sources]]`` in the config) on both store backends, SQLite and PostgreSQL.
 
-The contracts are DESIGN.md: "``comove ingest FILE… [--kind prices|returns]`` validates and
+The contracts are docs/contracts.md: "``comove ingest FILE… [--kind prices|returns]`` validates and
 stores; refuses bad files whole", "``--kind prices`` stores log returns ln(P_t / P_{t-1})",
 "every write of a step is one transaction ... re-running is idempotent", "nothing is silently
 dropped: ingest reports every row or column it could not use", exit code 2 with one ``error:``

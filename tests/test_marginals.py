@@ -2,7 +2,7 @@
 
 External references: statsmodels' ``acorr_ljungbox`` for the Ljung-Box statistic; arch's own
 ``fix()`` and ``simulate()`` for the variance recursion and simulated data; arch's documented
-example output on ``arch.data.sp500`` (REFERENCES.md section 10, marked (mem) there); the
+example output on ``arch.data.sp500`` (docs/check-values.md section 10, marked (mem) there); the
 RiskMetrics EWMA recursion (J.P. Morgan/Reuters 1996, RiskMetrics -- Technical Document,
 4th ed., section 5.3) for the fallback. Simulation tolerances are four standard errors as
 reported by arch.
@@ -188,7 +188,7 @@ def test_recovers_simulated_garch_t():
 
 # ----------------------------------------------------------------------- open data
 def test_sp500_arch_documented_example(sp500_log_returns):
-    # REFERENCES.md section 10 (arch docs example output, (mem)): Gaussian GARCH(1,1) with
+    # docs/check-values.md section 10 (arch docs example output, (mem)): Gaussian GARCH(1,1) with
     # constant mean on 100 x pct_change of sp500 'Adj Close' -- checks the data load under
     # pandas 3 (a DatetimeIndex, 5,030 returns)
     prices = sp500.load()["Adj Close"]

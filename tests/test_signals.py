@@ -3,7 +3,7 @@ universe summary.
 
 External references: Page (1954, "Continuous inspection schemes", Biometrika 41, 100-115) for
 the CUSUM recursion; Siegmund (1985, *Sequential Analysis*) for the average run length of a
-CUSUM of normal increments (from memory); /work/shared/REFERENCES.md section 4 for the
+CUSUM of normal increments (from memory); docs/check-values.md section 4 for the
 Gaussian tail concordance; scipy.stats for normal quantiles. Hand-made timelines check the
 state machine day by day. Simulation tolerances are stated beside each check.
 """
@@ -240,8 +240,8 @@ def gaussian_and_clayton_signals():
 def test_divergence_is_near_zero_on_gaussian_and_positive_on_clayton(
         gaussian_and_clayton_signals):
     # Same tau: Gaussian rho = sin(pi tau / 2), Clayton theta = 2 tau / (1 - tau)
-    # (REFERENCES.md section 1). The Gaussian has no tail dependence and Clayton has
-    # lambda_L = 2^(-1/theta), with C(q,q)/q = .7089 at q = .1, theta = 2 (REFERENCES.md
+    # (docs/check-values.md section 1). The Gaussian has no tail dependence and Clayton has
+    # lambda_L = 2^(-1/theta), with C(q,q)/q = .7089 at q = .1, theta = 2 (docs/check-values.md
     # section 4). So the finite-level excess over the same-tau Gaussian is about 0 for the
     # first and positive in the lower tail only for the second.
     gauss = gaussian_and_clayton_signals["gaussian"].frame
@@ -270,7 +270,7 @@ def test_divergence_is_near_zero_on_gaussian_and_positive_on_clayton(
 
 
 def test_appending_rows_never_changes_past_signals(gaussian_and_clayton_signals):
-    # Every statistic and the state machine look only backwards (DESIGN.md: appending data
+    # Every statistic and the state machine look only backwards (docs/contracts.md: appending data
     # never changes past results), so the signals of a prefix are the prefix of the signals.
     full = gaussian_and_clayton_signals["clayton"]
     for cut in (120, 260):
@@ -284,7 +284,7 @@ def test_appending_rows_never_changes_past_signals(gaussian_and_clayton_signals)
 
 
 def test_gaussian_tail_concordance_matches_reference_values():
-    # REFERENCES.md section 4: the Gaussian copula with rho = 0.5 (tau = 1/3) has
+    # docs/check-values.md section 4: the Gaussian copula with rho = 0.5 (tau = 1/3) has
     # C(q,q)/q = .3240 / .2438 / .1294 at q = .10 / .05 / .01.
     for q, want in ((0.10, 0.3240), (0.05, 0.2438), (0.01, 0.1294)):
         assert float(_gaussian_tail_concordance(np.array([1 / 3]), q)[0]) == pytest.approx(

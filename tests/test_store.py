@@ -1,6 +1,6 @@
 """Tests for monitor.store on both backends: SQLite files and a real PostgreSQL server.
 
-The contract is DESIGN.md ("Store: SQLAlchemy Core ... every write of a step is one
+The contract is docs/contracts.md ("Store: SQLAlchemy Core ... every write of a step is one
 transaction") and the module's own schema note: a new store is written at schema version 1, a
 store written by a newer comove is refused untouched, and ``create=False`` never creates one.
 Every test that takes ``store_url`` runs once per backend (tests/conftest.py). Stored floats are

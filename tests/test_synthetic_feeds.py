@@ -1,7 +1,7 @@
 """Tests of the fictional-market scenario generators and their ground truth.
 
 The generated data are checked against things outside the package: closed forms of tau and
-tail coefficients (Joe 1997; Nelsen 2006; Embrechts, McNeil & Straumann 2002 - REFERENCES.md
+tail coefficients (Joe 1997; Nelsen 2006; Embrechts, McNeil & Straumann 2002 - docs/check-values.md
 section 1), scipy's Kendall's tau and Student-t, statsmodels' Ljung-Box test, and arch's
 GARCH estimator.
 """
@@ -205,7 +205,7 @@ def test_main_scenario_has_the_required_regimes(main):
 
 
 def test_truth_tau_and_tails_match_closed_forms(small):
-    # Closed forms, REFERENCES.md section 1 (Joe 1997, families B4 and B6; Nelsen 2006;
+    # Closed forms, docs/check-values.md section 1 (Joe 1997, families B4 and B6; Nelsen 2006;
     # Lindskog, McNeil & Schmock 2003 for elliptical tau; Embrechts, McNeil & Straumann 2002
     # for the t tail); rotation 180 swaps the tails (Nelsen 2006, section 2.6).
     checked = set()
@@ -356,7 +356,7 @@ def test_tail_shift_raises_lower_tail_dependence_at_equal_tau():
     # Empirical lambda_L(q) = C_n(q, q)/q at q = 0.1 (Schmidt & Stadtmueller 2006, via
     # monitor.empirical), pooled over 8 seeds of the default tail-shift scenario. Population
     # values from the closed-form cdfs: Gaussian rho = sin(0.35 pi/2) gives 0.3381, Clayton
-    # theta = 0.7/0.65 gives 0.5467 (REFERENCES.md section 4 tabulates the same quantity for
+    # theta = 0.7/0.65 gives 0.5467 (docs/check-values.md section 4 tabulates the same quantity for
     # other parameters). The innovations carry the copula exactly; raw returns mix in the
     # GARCH scales, which dampens their unconditional tail dependence, so for returns only
     # the jump at the switch is asserted.
@@ -428,7 +428,7 @@ def test_wide_grid_default_size_and_structure():
 ], ids=lambda c: f"{c[0]}-{c[1]}")
 def test_multivariate_samplers_have_the_stated_bivariate_margins(case):
     # Empirical joint cdf of columns 0 and 1 against the bivariate family's cdf in
-    # monitor.copulas (checked there against REFERENCES.md section 1 values); binomial
+    # monitor.copulas (checked there against docs/check-values.md section 1 values); binomial
     # standard errors, |z| < 4.5 at 6 points.
     name, rotation, params, draw = case
     u = draw(40_000, np.random.default_rng(2024))

@@ -1,6 +1,6 @@
 """Tests for monitor.tables: reading wide and long CSV/Parquet files and refusing bad ones.
 
-The input contract is DESIGN.md ("Input files" and the exit-code rule that every refusal names
+The input contract is docs/contracts.md ("Input files" and the exit-code rule that every refusal names
 the file, row/date and column at fault). Expected frames are written out by hand; log returns
 are checked against numpy's own ``np.log(P_t / P_s)``. Every refusal pins its message with
 ``pytest.raises(InputError, match=...)`` so that a message which stops naming its file, line,
@@ -323,7 +323,7 @@ def test_log_returns_per_asset_on_its_own_calendar(tmp_path):
     prices = read_series(write(tmp_path, "wide.csv", WIDE_CSV))
     got = log_returns(prices)
     p_a, p_b = [100.0, 101.5, 102.0], [50.0, 51.0, 52.25, 53.5]
-    # Continuously compounded return r_t = ln(P_t / P_{t-1}) (DESIGN.md, "--kind prices";
+    # Continuously compounded return r_t = ln(P_t / P_{t-1}) (docs/contracts.md, "--kind prices";
     # Campbell, Lo & MacKinlay 1997, The Econometrics of Financial Markets, sec. 1.4,
     # from memory). ALDER has no 2021-03-02 price, so its 2021-03-03 return spans the gap.
     want = pd.DataFrame({

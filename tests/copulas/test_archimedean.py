@@ -1,6 +1,6 @@
 """Checks of the one-parameter Archimedean families (Clayton, Gumbel, Frank, Joe) against
 sources outside the project: statsmodels' copula classes, published closed forms, and the check
-values of REFERENCES.md sections 1 and 2 (recomputed there from the closed forms and
+values of docs/check-values.md sections 1 and 2 (recomputed there from the closed forms and
 cross-checked by finite differences, quadrature and simulation).
 
 Notation: h_{1|2}(u|v) = dC/dv is ``h_u_given_v(u, v, params)``; h_{2|1}(v|u) = dC/du is
@@ -92,7 +92,7 @@ def _gumbel_decimal(u, v, th):
 
 
 def _frank_decimal(u, v, th):
-    # Joe (1997), family B3, with the density of REFERENCES.md section 1.
+    # Joe (1997), family B3, with the density of docs/check-values.md section 1.
     e = Decimal.exp
     c = -(_ONE / th) * (1 + (e(-th * u) - 1) * (e(-th * v) - 1) / (e(-th) - 1)).ln()
     h = e(-th * v) * (e(-th * u) - 1) / ((e(-th) - 1) + (e(-th * u) - 1) * (e(-th * v) - 1))
@@ -138,11 +138,11 @@ def test_closed_forms_in_high_precision(name, reference, thetas):
                 assert float(fam.logpdf(u, v, p)) == pytest.approx(log_c, rel=1e-12, abs=1e-12)
 
 
-# ------------------------------------------------------------------ REFERENCES.md section 1
+# ------------------------------------------------------------------ docs/check-values.md section 1
 # Check values at (u, v) = (0.3, 0.7), printed to 6 decimals: C, h_{1|2}(.3|.7), c, tau, rho_S,
 # lambda_L, lambda_U. Source: closed forms of Joe (1997), Multivariate Models and Dependence
 # Concepts, section 5.1 (families B3 Frank, B4 Clayton, B5 Joe, B6 Gumbel) and Nelsen (2006),
-# An Introduction to Copulas, 2nd ed., chapters 4-5, as tabulated in REFERENCES.md section 1
+# An Introduction to Copulas, 2nd ed., chapters 4-5, as tabulated in docs/check-values.md section 1
 # ("Check values at (u,v) = (0.3, 0.7)"). rho_S of Clayton, Gumbel and Joe is numeric there
 # (12 int int C - 3); Joe's tau uses the digamma form, which is (from memory) but was checked
 # there against the series.
@@ -167,12 +167,12 @@ def test_reference_table_at_point(name, theta):
 
 
 def test_debye_values():
-    # D_1(5) = 0.320876, D_2(5) = 0.172329: REFERENCES.md section 1, "Further check values"
+    # D_1(5) = 0.320876, D_2(5) = 0.172329: docs/check-values.md section 1, "Further check values"
     # (Debye function D_k(x) = (k/x^k) int_0^x t^k/(e^t-1) dt).
     assert float(_debye(1, 5.0)) == pytest.approx(0.320876, abs=5e-7)
     assert float(_debye(2, 5.0)) == pytest.approx(0.172329, abs=5e-7)
     # The definition by adaptive quadrature (scipy.integrate.quad), including x < 0 where the
-    # implementation uses D_k(-x) = D_k(x) + kx/(k+1) (REFERENCES.md section 1) and x beyond the
+    # implementation uses D_k(-x) = D_k(x) + kx/(k+1) (docs/check-values.md section 1) and x beyond the
     # cut-off at 50 where it uses k! zeta(k+1) k / x^k.
     for k in (1, 2):
         for x in (-30.0, -2.0, 0.3, 5.0, 44.0, 80.0):
@@ -182,7 +182,7 @@ def test_debye_values():
 
 
 def test_frank_further_values():
-    # REFERENCES.md section 1, "Further check values": Frank tau at theta = 10, 1, -5 and
+    # docs/check-values.md section 1, "Further check values": Frank tau at theta = 10, 1, -5 and
     # rho_S at theta = 10, from tau = 1 - (4/theta)[1 - D_1(theta)] and
     # rho_S = 1 - (12/theta)[D_1(theta) - D_2(theta)] (Nelsen 2006, section 5.1).
     fam = family("frank")
@@ -194,7 +194,7 @@ def test_frank_further_values():
 
 
 def test_joe_further_values_and_series():
-    # REFERENCES.md section 1: Joe tau(1.5) = 0.219272, tau(3) = 0.517962, tau(2) = 2 - pi^2/6.
+    # docs/check-values.md section 1: Joe tau(1.5) = 0.219272, tau(3) = 0.517962, tau(2) = 2 - pi^2/6.
     # The digamma form used by the implementation is (from memory); the series
     # tau = 1 - 4 sum_{k>=1} 1/[k(theta k + 2)(theta(k-1) + 2)] (Joe 1997, family B5) is the check.
     fam = family("joe")
@@ -215,7 +215,7 @@ def test_joe_further_values_and_series():
     [("clayton", 2.0), ("gumbel", 2.0), ("frank", 5.736283), ("joe", 2.856257)],
 )
 def test_tau_inversion_at_one_half(name, expected):
-    # REFERENCES.md section 1, "tau-inversion at tau = 0.5": Clayton 2 tau/(1 - tau) = 2,
+    # docs/check-values.md section 1, "tau-inversion at tau = 0.5": Clayton 2 tau/(1 - tau) = 2,
     # Gumbel 1/(1 - tau) = 2, Frank 5.736283 and Joe 2.856257 by root finding.
     (theta,) = family(name).params_from_tau(0.5)
     assert float(theta) == pytest.approx(expected, abs=5e-7)
@@ -246,7 +246,7 @@ def test_negative_tau_maps_gumbel_and_joe_to_independence():
 
 
 def test_spearman_rho_clayton_gumbel_curiosity():
-    # REFERENCES.md section 1: rho_S of Clayton(2) equals rho_S of Gumbel(2) to 30 digits
+    # docs/check-values.md section 1: rho_S of Clayton(2) equals rho_S of Gumbel(2) to 30 digits
     # (mpmath), 0.6822338332806563; at tau = 1/3 (Clayton 1, Gumbel 1.5) they differ:
     # 0.478418 vs 0.476661.
     clayton, gumbel = family("clayton"), family("gumbel")
@@ -272,10 +272,10 @@ def test_spearman_rho_quadrature_against_adaptive_reference(name, theta):
     assert float(fam.spearman_rho((theta,))) == pytest.approx(12 * ref.estimate - 3, abs=1e-8)
 
 
-# ------------------------------------------------------------------ REFERENCES.md section 2
+# ------------------------------------------------------------------ docs/check-values.md section 2
 # Clayton(2) at (0.2, 0.4): C, c, h_{1|2}, h_{2|1}, tau per rotation. Source: Nelsen (2006),
 # An Introduction to Copulas, section 2.6 (survival copulas) for the formulas; the 90/270
-# labels are a common convention (from memory); values as tabulated in REFERENCES.md section 2.
+# labels are a common convention (from memory); values as tabulated in docs/check-values.md section 2.
 ROTATION_TABLE = {
     0: (0.181818, 1.164227, 0.093914, 0.751315, 0.5),
     90: (0.016869, 0.755797, 0.121260, 0.109842, -0.5),
@@ -297,7 +297,7 @@ def test_clayton_rotation_table(rotation):
 @pytest.mark.parametrize(("rotation", "corner"), [(0, (0, 0)), (90, (1, 0)), (180, (1, 1)),
                                                   (270, (0, 1))])
 def test_clayton_rotated_tail_corner(rotation, corner):
-    # REFERENCES.md section 2: the tail mass 2^(-1/2) = 0.7071 of Clayton(2) sits at (0,0),
+    # docs/check-values.md section 2: the tail mass 2^(-1/2) = 0.7071 of Clayton(2) sits at (0,0),
     # (1,0), (1,1), (0,1) for rotations 0, 90, 180, 270. Corner probability of a q-square
     # divided by q, from C by inclusion-exclusion (Nelsen 2006, Def. 5.4.1 for the diagonal).
     fam = family("clayton", rotation=rotation)
@@ -458,7 +458,7 @@ SAMPLE_CASES = [("gumbel", 0, 2.0), ("gumbel", 180, 1.0), ("gumbel", 90, 30.0),
 def test_sampled_tau_matches_implied(name, rotation, theta):
     # Sample Kendall's tau (scipy.stats.kendalltau) against the implied tau. Tolerance: four
     # standard errors, the s.e. from the influence function of tau_n, 8C(u,v) - 4u - 4v + 2 - 2 tau
-    # (REFERENCES.md section 3, derived there from the U-statistic projection; Hoeffding 1948),
+    # (docs/check-values.md section 3, derived there from the U-statistic projection; Hoeffding 1948),
     # evaluated at the sample.
     fam = family(name, rotation)
     p = (theta,)

@@ -2,7 +2,7 @@
 derivatives and integrals, and simulation.
 
 Sources: Joe (1997), *Multivariate Models and Dependence Concepts*, section 5.2 (families BB1,
-BB7 and their special cases); the check values of /work/shared/REFERENCES.md section 1, which
+BB7 and their special cases); the check values of docs/check-values.md section 1, which
 were recomputed there from Joe's formulas and cross-checked by finite differences, quadrature and
 simulation; Nelsen (2006), *An Introduction to Copulas*, 2nd ed.; Genest & MacKay (1986) for
 tau = 1 + 4 int phi/phi'.
@@ -29,7 +29,7 @@ def _corners(fam):
 @pytest.mark.parametrize(
     ("fam", "params", "expected"),
     [
-        # REFERENCES.md section 1, check table at (0.3, 0.7), row "BB1 theta=.5, delta=1.5":
+        # docs/check-values.md section 1, check table at (0.3, 0.7), row "BB1 theta=.5, delta=1.5":
         # C, h and c from Joe (1997) section 5.2 (c = psi''(s) phi'(u) phi'(v)), tau
         # 1 - 2/(delta (theta + 2)), rho_S by numerical integration, lambda_L = 2^(-1/(theta delta)),
         # lambda_U = 2 - 2^(1/delta).
@@ -61,9 +61,9 @@ def test_check_values_at_point(fam, params, expected):
 @pytest.mark.parametrize(
     ("fam", "params", "tau"),
     [
-        # REFERENCES.md section 1, further check values: BB1 (1, 1.5) gives tau = 0.555556.
+        # docs/check-values.md section 1, further check values: BB1 (1, 1.5) gives tau = 0.555556.
         (BB1(), (1.0, 1.5), 0.555556),
-        # REFERENCES.md section 1: BB7 (2.5, 0.5) gives 0.510322 and (3, 2) gives 0.65 (BB7
+        # docs/check-values.md section 1: BB7 (2.5, 0.5) gives 0.510322 and (3, 2) gives 0.65 (BB7
         # tau formula from memory; there it matched a numerical integral, Gamma-continued for
         # theta > 2).
         (BB7(), (2.5, 0.5), 0.510322),
@@ -80,14 +80,14 @@ UG, VG = np.meshgrid(GRID, GRID, indexing="ij")
 
 
 def _clayton(u, v, t):
-    """Clayton(t): C, h_{1|2} and c from REFERENCES.md section 1 (Joe 1997 family B4)."""
+    """Clayton(t): C, h_{1|2} and c from docs/check-values.md section 1 (Joe 1997 family B4)."""
     s = u**-t + v**-t - 1
     return (s ** (-1 / t), v ** (-t - 1) * s ** (-1 / t - 1),
             (1 + t) * (u * v) ** (-t - 1) * s ** (-1 / t - 2))
 
 
 def _gumbel(u, v, t):
-    """Gumbel(t): C, h_{1|2} and c from REFERENCES.md section 1 (Joe 1997 family B6)."""
+    """Gumbel(t): C, h_{1|2} and c from docs/check-values.md section 1 (Joe 1997 family B6)."""
     x, y = -np.log(u), -np.log(v)
     a = x**t + y**t
     c = np.exp(-(a ** (1 / t)))
@@ -97,7 +97,7 @@ def _gumbel(u, v, t):
 
 
 def _joe(u, v, t):
-    """Joe(t): C, h_{1|2} and c from REFERENCES.md section 1 (Joe 1997 family B5)."""
+    """Joe(t): C, h_{1|2} and c from docs/check-values.md section 1 (Joe 1997 family B5)."""
     ub, vb = 1 - u, 1 - v
     s = ub**t + vb**t - ub**t * vb**t
     return (1 - s ** (1 / t), s ** (1 / t - 1) * vb ** (t - 1) * (1 - ub**t),
@@ -125,7 +125,7 @@ def test_bb7_with_theta_one_is_clayton(delta):
     for got, want in zip(_family_values(BB7(), (1.0, delta)), _clayton(UG, VG, delta),
                          strict=True):
         np.testing.assert_allclose(got, want, rtol=1e-11)
-    # Clayton tau theta/(theta + 2) (REFERENCES.md section 1).
+    # Clayton tau theta/(theta + 2) (docs/check-values.md section 1).
     assert float(BB7().kendall_tau((1.0, delta))) == pytest.approx(delta / (delta + 2), abs=1e-13)
 
 
@@ -136,20 +136,20 @@ def test_bb1_tends_to_gumbel_as_theta_vanishes(delta):
     for got, want in zip(_family_values(BB1(), (theta, delta)), _gumbel(UG, VG, delta),
                          strict=True):
         np.testing.assert_allclose(got, want, rtol=1e-6)
-    # Gumbel tau 1 - 1/delta and lambda_U 2 - 2^(1/delta) (REFERENCES.md section 1).
+    # Gumbel tau 1 - 1/delta and lambda_U 2 - 2^(1/delta) (docs/check-values.md section 1).
     assert float(BB1().kendall_tau((theta, delta))) == pytest.approx(1 - 1 / delta, abs=1e-7)
     assert float(BB1().tail_upper((theta, delta))) == pytest.approx(2 - 2 ** (1 / delta))
 
 
 def _joe_tau_series(t, terms=200_000):
-    """Joe's tau 1 - 4 sum_k 1/[k (t k + 2)(t (k - 1) + 2)] (REFERENCES.md section 1); the
+    """Joe's tau 1 - 4 sum_k 1/[k (t k + 2)(t (k - 1) + 2)] (docs/check-values.md section 1); the
     neglected tail is below 4 / (t^2 * terms^2) / 2."""
     k = np.arange(1, terms + 1, dtype=float)
     return 1 - 4 * np.sum(1 / (k * (t * k + 2) * (t * (k - 1) + 2)))
 
 
 @pytest.mark.parametrize(("theta", "tau"), [
-    # REFERENCES.md section 1, Joe: theta = 1.5 gives 0.219272, theta = 3 gives 0.517962, and
+    # docs/check-values.md section 1, Joe: theta = 1.5 gives 0.219272, theta = 3 gives 0.517962, and
     # tau(2) = 2 - pi^2/6.
     (1.5, 0.219272), (2.0, 2 - np.pi**2 / 6), (3.0, 0.517962),
 ])
@@ -162,7 +162,7 @@ def test_bb7_tends_to_joe_as_delta_vanishes(theta, tau):
     assert float(BB7().kendall_tau((theta, delta))) == pytest.approx(tau, abs=6e-7)
     assert float(BB7().kendall_tau((theta, delta))) == pytest.approx(_joe_tau_series(theta),
                                                                       abs=1e-7)
-    # Joe's digamma form 1 + [2/(2 - t)][psi(2) - psi(1 + 2/t)] (REFERENCES.md, from memory).
+    # Joe's digamma form 1 + [2/(2 - t)][psi(2) - psi(1 + 2/t)] (docs/check-values.md, from memory).
     if theta != 2.0:
         digamma = 1 + 2 / (2 - theta) * (special.digamma(2) - special.digamma(1 + 2 / theta))
         assert float(BB7().kendall_tau((theta, delta))) == pytest.approx(digamma, abs=1e-7)
@@ -279,7 +279,7 @@ def test_grid_likelihood_equals_log_space_density_sum(fam, n):
 
 # ---------------------------------------------------------------- Kendall's tau by integration
 def _tau_by_double_integral(fam, params):
-    """tau = 1 - 4 int int dC/du dC/dv du dv (Nelsen 2006, Thm 5.1.1 corollary; REFERENCES.md
+    """tau = 1 - 4 int int dC/du dC/dv du dv (Nelsen 2006, Thm 5.1.1 corollary; docs/check-values.md
     section 1), the inner integral by 400-point Gauss-Legendre, the outer adaptively."""
 
     def inner(x):
@@ -301,7 +301,7 @@ def test_tau_matches_double_integral(fam, params):
 
 def _bb7_tau_genest_mackay(theta, delta):
     """tau = 1 + 4 int_0^1 phi(t)/phi'(t) dt (Genest & MacKay 1986) with BB7's generator
-    phi(t) = (1 - (1 - t)^theta)^-delta - 1 (Joe 1997 section 5.2; REFERENCES.md section 1)."""
+    phi(t) = (1 - (1 - t)^theta)^-delta - 1 (Joe 1997 section 5.2; docs/check-values.md section 1)."""
 
     def ratio(x):  # phi/phi' at t = 1 - x, written with log1p/expm1 to keep x^theta
         log_a = np.log1p(-(x**theta))
@@ -314,7 +314,7 @@ def _bb7_tau_genest_mackay(theta, delta):
 
 @pytest.mark.parametrize("delta", [1e-3, 0.5, 3.0, 15.0])
 def test_bb7_tau_across_its_removable_singularity(delta):
-    # REFERENCES.md: the BB7 closed form (from memory) is singular at theta = 2 and needs
+    # docs/check-values.md: the BB7 closed form (from memory) is singular at theta = 2 and needs
     # Gamma-continuation for theta > 2; compare with the Genest-MacKay integral on both sides,
     # at 2 itself and at the edges of the series branch (2/1.05, 2/0.95).
     thetas = [1.0, 1.5, 1.9, 2 / 1.05 - 1e-9, 2 / 1.05 + 1e-9, 1.99, 1.999999, 2.0, 2.000001,
@@ -329,7 +329,7 @@ def test_bb7_tau_across_its_removable_singularity(delta):
     (BB7(), (1.5, 1.0)), (BB7(), (15.0, 15.0)), (BB1(), (15.0, 15.0)), (BB1(), (0.2, 1.1)),
 ], ids=["bb7-1.5-1", "bb7-15-15", "bb1-15-15", "bb1-0.2-1.1"])
 def test_spearman_rho_default_is_accurate(fam, params):
-    # rho_S = 12 int int C - 3 (Nelsen 2006, eq. 5.1.15c; REFERENCES.md section 1) by adaptive
+    # rho_S = 12 int int C - 3 (Nelsen 2006, eq. 5.1.15c; docs/check-values.md section 1) by adaptive
     # quadrature split at the diagonal, where C has a near-kink under strong dependence.
     def inner(x):
         lo = integrate.fixed_quad(lambda y: fam.cdf(x, y * x, params) * x, 0, 1, n=200)[0]
@@ -347,7 +347,7 @@ def test_spearman_rho_default_is_accurate(fam, params):
 ], ids=["bb1-0.5-1.5", "bb1-2-2", "bb7-1.5-1", "bb7-3-2"])
 def test_tail_coefficients_are_diagonal_limits(fam, params):
     # lambda_L = lim C(q, q)/q and lambda_U = lim (1 - 2(1 - q) + C(1 - q, 1 - q))/q (Nelsen
-    # 2006, Def. 5.4.1; REFERENCES.md section 1, confirmed there at q = 1e-12). At these
+    # 2006, Def. 5.4.1; docs/check-values.md section 1, confirmed there at q = 1e-12). At these
     # parameters the gap shrinks like q (checked: it falls tenfold per decade).
     lower = [fam.cdf(q, q, params) / q for q in (1e-9, 1e-10)]
     upper = [(1 - 2 * (1 - q) + fam.cdf(1 - q, 1 - q, params)) / q for q in (1e-4, 1e-5)]
@@ -359,7 +359,7 @@ def test_tail_coefficients_are_diagonal_limits(fam, params):
 
 
 def test_tail_coefficients_swap_under_survival_rotation():
-    # REFERENCES.md section 2: the 180-degree rotation swaps lambda_L and lambda_U; 90 and 270
+    # docs/check-values.md section 2: the 180-degree rotation swaps lambda_L and lambda_U; 90 and 270
     # have none on the main diagonal.
     p = (0.5, 1.5)
     assert float(BB1(180).tail_lower(p)) == pytest.approx(2 - 2 ** (1 / 1.5))
@@ -378,7 +378,7 @@ def test_sampled_tau_matches_implied(fam, params):
     tau = float(fam.kendall_tau(params))
     tau_hat = stats.kendalltau(uv[:, 0], uv[:, 1]).statistic
     # Standard error from the influence function of tau_n, 8C(u, v) - 4u - 4v + 2 - 2 tau
-    # (REFERENCES.md section 3, derived there from the U-statistic projection), evaluated at
+    # (docs/check-values.md section 3, derived there from the U-statistic projection), evaluated at
     # the draws; 4 standard errors.
     influence = 8 * fam.cdf(uv[:, 0], uv[:, 1], params) - 4 * uv[:, 0] - 4 * uv[:, 1] + 2 - 2 * tau
     se = influence.std() / np.sqrt(n)
@@ -465,7 +465,7 @@ def test_start_params_reproduce_tau_inside_fit_box(name):
 
 def test_start_params_bb1_equal_split():
     # BB1: 1 - tau = (1 - tau_Clayton(theta)) (1 - tau_Gumbel(delta)) with the Clayton and
-    # Gumbel taus of REFERENCES.md section 1; the rule splits it equally.
+    # Gumbel taus of docs/check-values.md section 1; the rule splits it equally.
     theta, delta = BB1().start_params(0.5)
     t = 1 - np.sqrt(0.5)
     assert float(theta) == pytest.approx(2 * t / (1 - t))

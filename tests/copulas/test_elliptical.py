@@ -4,12 +4,12 @@ References used below:
 - scipy.stats.multivariate_normal / multivariate_t (cdf and pdf of the bivariate distributions);
 - statsmodels.distributions.copula.api GaussianCopula / StudentTCopula (used only here, as an
   outside reference);
-- /work/shared/REFERENCES.md, section 1 (closed forms and the check values at (0.3, 0.7)) and
+- docs/check-values.md, section 1 (closed forms and the check values at (0.3, 0.7)) and
   section 4 (population values of C(q, q)/q);
 - Sklar (1959): joint density = copula density x marginal densities;
 - McNeil, Frey & Embrechts (2005), *Quantitative Risk Management*, Table 5.2 (t-copula tail
   coefficients; the table number and its 2-dp print are from memory, the 4-dp values were
-  recomputed in REFERENCES.md from the closed form).
+  recomputed in docs/check-values.md from the closed form).
 """
 
 from __future__ import annotations
@@ -86,7 +86,7 @@ def test_student_t_cdf_matches_scipy_multivariate_t(rho, nu, u, v):
 def _t_cdf_by_quad(u, v, rho, nu):
     """C(u, v) = int_{-inf}^{y} f_nu(s) P(X <= x | Y = s) ds by adaptive quadrature, with the
     conditional law X | Y = s ~ rho s + sqrt((nu + s^2)(1 - rho^2)/(nu + 1)) t_{nu+1}
-    (REFERENCES.md section 1, h-function of the t copula)."""
+    (docs/check-values.md section 1, h-function of the t copula)."""
     x, y = stats.t.ppf([u, v], nu)
 
     def integrand(s):
@@ -133,7 +133,7 @@ def test_student_t_sklar_identity(rho, nu):
 
 # ------------------------------------------------------------------ published check values
 @pytest.mark.parametrize(("fam", "params", "expected"), [
-    # REFERENCES.md section 1, check values at (0.3, 0.7): C, h_{1|2}, c, tau, rho_S, lambda.
+    # docs/check-values.md section 1, check values at (0.3, 0.7): C, h_{1|2}, c, tau, rho_S, lambda.
     (GAUSS, (0.5,), (0.266904, 0.181863, 0.877082, 1 / 3, 0.482584, 0.0)),
     # rho_S of the t copula is marked "(num)" there: numerical, no closed form.
     (T, (0.5, 4.0), (0.261428, 0.168985, 0.831762, 1 / 3, 0.469020, 0.253170)),
@@ -150,7 +150,7 @@ def test_check_values_at_point(fam, params, expected):
 
 
 @pytest.mark.parametrize(("fam", "params", "expected"), [
-    # REFERENCES.md section 4, population C(q, q)/q at q = 0.10, 0.05, 0.01 (exact values).
+    # docs/check-values.md section 4, population C(q, q)/q at q = 0.10, 0.05, 0.01 (exact values).
     (GAUSS, (0.5,), (0.3240, 0.2438, 0.1294)),
     (T, (0.5, 4.0), (0.3842, 0.3387, 0.2877)),
 ], ids=["gauss", "t"])
@@ -160,7 +160,7 @@ def test_diagonal_ratio_population_values(fam, params, expected):
 
 
 # McNeil, Frey & Embrechts (2005), Quantitative Risk Management, Table 5.2 (from memory: table
-# number and 2-dp print); 4-dp values recomputed in REFERENCES.md from
+# number and 2-dp print); 4-dp values recomputed in docs/check-values.md from
 # 2 t_{nu+1}(-sqrt((nu+1)(1-rho)/(1+rho))).
 TAIL_TABLE = {
     2.0: (0.0577, 0.1817, 0.3910, 0.7177),
@@ -190,7 +190,7 @@ def test_student_t_tail_vanishes_as_nu_grows():
 # ------------------------------------------------------------------ Spearman's rho
 @pytest.mark.parametrize("rho", [-0.9, -0.3, 0.2, 0.5, 0.95])
 def test_gaussian_spearman_closed_form_matches_quadrature(rho):
-    # rho_S = (6/pi) arcsin(rho/2) (REFERENCES.md section 1) against the base class's
+    # rho_S = (6/pi) arcsin(rho/2) (docs/check-values.md section 1) against the base class's
     # 12 int int C - 3 (Nelsen 2006, eq. 5.1.15c) by 200 x 200 Gauss-Legendre quadrature.
     closed = float(GAUSS.spearman_rho((rho,)))
     assert closed == pytest.approx(6 / np.pi * np.arcsin(rho / 2), abs=1e-15)
@@ -213,7 +213,7 @@ def test_student_t_spearman_matches_quadrature(rho, nu):
 # ------------------------------------------------------------------ sampling
 def _tau_standard_error(fam, params, uv, tau):
     # n Var(tau_n) -> Var(8C(U,V) - 4U - 4V + 2 - 2 tau), the U-statistic projection of
-    # Kendall's tau (REFERENCES.md section 3; Hoeffding 1948).
+    # Kendall's tau (docs/check-values.md section 3; Hoeffding 1948).
     u, v = uv[:, 0], uv[:, 1]
     infl = 8 * fam.cdf(u, v, params) - 4 * u - 4 * v + 2 - 2 * tau
     return float(np.std(infl) / np.sqrt(len(u)))
@@ -243,7 +243,7 @@ def test_sampled_tau_and_rho_close_to_implied(fam, params):
 
 
 def test_student_t_sample_has_tail_dependence():
-    # Joint exceedances below q = 0.01 against C(q, q) (REFERENCES.md section 4: 0.2877 q for
+    # Joint exceedances below q = 0.01 against C(q, q) (docs/check-values.md section 4: 0.2877 q for
     # t(0.5, 4)), binomial standard error; the Gaussian at the same rho has 0.1294 q.
     n, q = 200_000, 0.01
     uv = T.sample(n, (0.5, 4.0), rng=np.random.default_rng(5))
@@ -349,7 +349,7 @@ def test_parameters_broadcast_over_windows(fam, params):
 
 # ------------------------------------------------------------------ tau inversion and errors
 def test_params_from_tau():
-    # rho = sin(pi tau / 2) inverts tau = (2/pi) arcsin(rho) (REFERENCES.md section 3 table:
+    # rho = sin(pi tau / 2) inverts tau = (2/pi) arcsin(rho) (docs/check-values.md section 3 table:
     # tau = 0.5 gives 0.707107).
     assert float(GAUSS.params_from_tau(0.5)[0]) == pytest.approx(0.707107, abs=5e-7)
     rho, nu = T.params_from_tau(np.array([-0.5, 0.5]))
