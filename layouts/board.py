@@ -62,6 +62,16 @@ DIVERGENCE_NOTE = (
     "before the date. Click a pair's timeline link for its history.")
 
 
+def _choice(query: dict, key: str, allowed, default: str, labels, problems: list) -> str:
+    """The query parameter ``key`` if it is one of ``allowed``, else ``default`` with a note."""
+    value = query.get(key, default)
+    if value in allowed:
+        return value
+    problems.append(message(f"{key} in the address: {value!r} is not one of "
+                            f"{', '.join(allowed)}; showing {labels[default]}", kind="problem"))
+    return default
+
+
 def layout(view, query: dict[str, str]) -> html.Div:
     """The page; ``query`` may hold ``date=YYYY-MM-DD``,
     ``tails=nonparametric|averaged|model`` and ``horizon=1w|1m|3m|1y``."""
@@ -74,18 +84,8 @@ def layout(view, query: dict[str, str]) -> html.Div:
             date = asked.strftime("%Y-%m-%d")
         except InputError as exc:
             problems.append(message(str(exc), kind="problem"))
-    source = query.get("tails", DEFAULT_TAIL_SOURCE)
-    if source not in TAIL_SOURCES:
-        problems.append(message(f"tails in the address: {source!r} is not one of "
-                                f"{', '.join(TAIL_SOURCES)}; showing "
-                                f"{SOURCE_LABELS[DEFAULT_TAIL_SOURCE]}", kind="problem"))
-        source = DEFAULT_TAIL_SOURCE
-    horizon = query.get("horizon", DEFAULT_HORIZON)
-    if horizon not in HORIZONS:
-        problems.append(message(f"horizon in the address: {horizon!r} is not one of "
-                                f"{', '.join(HORIZONS)}; showing "
-                                f"{HORIZON_LABELS[DEFAULT_HORIZON]}", kind="problem"))
-        horizon = DEFAULT_HORIZON
+    source = _choice(query, "tails", TAIL_SOURCES, DEFAULT_TAIL_SOURCE, SOURCE_LABELS, problems)
+    horizon = _choice(query, "horizon", HORIZONS, DEFAULT_HORIZON, HORIZON_LABELS, problems)
     picker = dcc.DatePickerSingle(
         id=ids.BOARD_DATE, date=date, display_format="YYYY-MM-DD", first_day_of_week=1,
         min_date_allowed=None if bounds is None else bounds[0].strftime("%Y-%m-%d"),

@@ -37,7 +37,7 @@ def _dump(component) -> str:
     return json.dumps(component, cls=plotly.utils.PlotlyJSONEncoder)
 
 
-def _no_key(blob: str, where: str) -> None:
+def assert_no_key(blob: str, where: str) -> None:
     hit = SETTINGS_KEY_PATTERN.search(blob)
     assert hit is None, f"{where}: settings key shown: ...{blob[hit.start() - 40:hit.end() + 40]}"
 
@@ -46,8 +46,8 @@ def test_the_pattern_finds_every_stored_key(view):
     for key in (view.marginal_key, view.rolling_key, view.signals_key):
         assert SETTINGS_KEY_PATTERN.search(key), key
     assert SETTINGS_KEY_PATTERN.search("signal settings key cusum0.01:4.75-3.5:cap5.25")
-    _no_key(settings_words(view.signals_key), "settings_words")
-    _no_key(view.provenance(), "footer")
+    assert_no_key(settings_words(view.signals_key), "settings_words")
+    assert_no_key(view.provenance(), "footer")
 
 
 def test_settings_in_words(view):
@@ -70,17 +70,17 @@ def test_settings_in_words(view):
 
 def test_no_page_shows_a_settings_key(view, pair):
     for module in (board, timeline, drilldown, episodes, inputs):
-        _no_key(_dump(module.layout(view, {})), module.TITLE)
+        assert_no_key(_dump(module.layout(view, {})), module.TITLE)
     a, b = pair
-    _no_key(_dump(list(show_pair(view, f"{a}/{b}"))), "Timeline callback")
-    _no_key(_dump(list(show_episodes(view, None, ["lower", "upper"],
+    assert_no_key(_dump(list(show_pair(view, f"{a}/{b}"))), "Timeline callback")
+    assert_no_key(_dump(list(show_episodes(view, None, ["lower", "upper"],
                                      ["divergence", "spike", "switch"]))), "Episodes callback")
-    _no_key(_dump(list(show_diagnostics(view, view.store.assets()[0], 10))), "Inputs callback")
+    assert_no_key(_dump(list(show_diagnostics(view, view.store.assets()[0], 10))), "Inputs callback")
     timeline_ = view.store.read_timeline(view.rolling_key, a, b)
     row = timeline_.iloc[-1]
     study = study_pair(view, a, b, row["start"], row["date"], replicates=0)
-    _no_key(_dump(results(study)), "Drill-down results")
-    _no_key(report_html(study), "report")
+    assert_no_key(_dump(results(study)), "Drill-down results")
+    assert_no_key(report_html(study), "report")
 
 
 def test_episodes_as_of_is_the_newest_window_end_in_the_store(view):
