@@ -77,25 +77,27 @@ TAIL_STYLE = MappingProxyType({
 
 # The thresholds the calibration grid of tests/benchmarks/bench_detection.py varied; the
 # others kept their designed values through the tuning.
-_TUNED = frozenset({"cusum_reference", "cusum_entry", "cusum_exit", "cusum_cap",
-                    "window_exit", "exit_days"})
+_TUNED = frozenset({"cusum_entry", "cusum_exit", "cusum_cap", "window_entry", "window_exit",
+                    "switch_entry", "baseline_z"})
 _CALIBRATION_WINDOW = 250
 
 _MEANINGS = MappingProxyType({
-    "cusum_reference": "nats taken off each day's log-likelihood ratio (Clayton or survival "
-                       "Clayton against the Gaussian copula at the same Kendall's tau) before "
-                       "it joins the sequential sum",
+    "cusum_reference": "least nats taken off each day's log-likelihood ratio (Clayton or "
+                       "survival Clayton against the Gaussian copula at the same Kendall's "
+                       "tau) before it joins the sequential sum",
     "cusum_entry": "sequential sum at or above this is active evidence of tail divergence",
     "cusum_exit": "sequential sum below this is quiet",
     "cusum_cap": "ceiling of the sequential sum; bounds how long it takes to calm down",
     "window_entry": "window log-likelihood ratio, best tail-dependent family over the Gaussian, "
-                    "at or above this is active evidence",
+                    "at or above this is active evidence (against the own baseline: its rise "
+                    "over the reference level, in standard deviations)",
     "window_exit": "window log-likelihood ratio below this is quiet",
     "excess_gate": "least standardised tail excess (empirical C(q,q)/q minus the Gaussian value "
                    "at the window's tau, over its s.e.) for the window ratio to open an episode",
     "excess_hold": "least standardised tail excess for the window ratio to keep an episode open",
-    "spike_entry": "robust z-score of the empirical tail coefficient against the pair's own "
-                   "history at or above this is active",
+    "spike_entry": "robust z-score of the empirical tail coefficient (against the own "
+                   "baseline: of its excess over the Gaussian at the window's tau) against "
+                   "the pair's own history at or above this is active",
     "spike_exit": "robust z-score below this is quiet",
     "reference_windows": "window ends in the pair's reference history (ending before the current "
                          "window starts, so no shared day)",
@@ -109,6 +111,15 @@ _MEANINGS = MappingProxyType({
     "entry_days": "consecutive days of active evidence before an episode opens (watch until "
                   "then)",
     "exit_days": "consecutive quiet days that close an episode",
+    "alert_min_tail": "least model-averaged tail coefficient for an episode to open on that "
+                      "tail (a tail no model sees is not alerted on)",
+    "baseline": "1: each statistic measured against the pair's own history before the "
+                "current window, so that a standing heavy tail is a level, not an alert; "
+                "0: against the Gaussian copula at the window's tau",
+    "baseline_z": "standard errors of the reference mean added to it to centre the "
+                  "sequential sum",
+    "baseline_min": "least reference window ends for a baseline; a young pair uses its first "
+                    "ones until the block before its window holds as many",
 })
 
 
@@ -415,7 +426,8 @@ def rules_table(settings: SignalSettings, email: EmailConfig | None = None, *,
                  else f"designed value, kept while the others were tuned{other}")
         if value != getattr(SignalSettings(), f.name):
             calib = "set by the configuration (not the calibrated default)"
-        shown = "inf (statistic off)" if value == np.inf else f"{value:g}"
+        shown = ("yes" if value else "no") if isinstance(value, bool) else (
+            "inf (statistic off)" if value == np.inf else f"{value:g}")
         rows.append({"group": _group(f.name), "setting": f.name, "value": shown,
                      "meaning": _MEANINGS[f.name], "calibration": calib})
     if email is not None:
@@ -432,6 +444,8 @@ def _group(name: str) -> str:
         return "tail spike"
     if name.startswith("switch"):
         return "family switch"
+    if name.startswith("baseline") or name == "alert_min_tail":
+        return "baseline and materiality"
     return "states"
 
 

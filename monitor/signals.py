@@ -201,11 +201,11 @@ class SignalSettings:
     """
 
     cusum_reference: float = 0.01
-    cusum_entry: float = 4.75
-    cusum_exit: float = 3.5
-    cusum_cap: float = 5.25
-    window_entry: float = 8.0
-    window_exit: float = 6.0
+    cusum_entry: float = 5.5
+    cusum_exit: float = 4.5
+    cusum_cap: float = 6.0
+    window_entry: float = 6.0
+    window_exit: float = 4.5
     excess_gate: float = 1.0
     excess_hold: float = 1.0
     spike_entry: float = 3.0
@@ -214,20 +214,27 @@ class SignalSettings:
     switch_min_tail: float = 0.1
     switch_aic_margin: float = 10.0
     switch_windows: int = 60
-    switch_entry: float = 0.9
+    switch_entry: float = np.inf
     switch_exit: float = 0.5
     entry_days: int = 3
     exit_days: int = 5
+    alert_min_tail: float = 0.1
+    baseline: bool = True
+    baseline_z: float = 3.0
+    baseline_min: int = 20
 
     def __post_init__(self) -> None:
-        for name in ("reference_windows", "switch_windows", "entry_days", "exit_days"):
+        if not isinstance(self.baseline, bool | np.bool_):
+            raise TypeError(f"baseline must be True or False, got {self.baseline!r}")
+        for name in ("reference_windows", "switch_windows", "entry_days", "exit_days",
+                     "baseline_min"):
             value = getattr(self, name)
             if isinstance(value, bool) or not isinstance(value, int | np.integer) or value < 1:
                 raise ValueError(f"{name} must be an integer >= 1, got {value!r}")
         for name in ("cusum_reference", "cusum_entry", "cusum_exit", "cusum_cap",
                      "window_entry", "window_exit", "excess_gate", "excess_hold",
                      "spike_entry", "spike_exit", "switch_min_tail", "switch_aic_margin",
-                     "switch_entry", "switch_exit"):
+                     "switch_entry", "switch_exit", "baseline_z", "alert_min_tail"):
             value = getattr(self, name)
             if isinstance(value, bool) or not isinstance(value, int | float | np.floating):
                 raise TypeError(f"{name} must be a number, got {type(value).__name__}")
@@ -251,17 +258,24 @@ class SignalSettings:
         for name in ("window_entry", "spike_entry"):
             if getattr(self, name) <= 0:
                 raise ValueError(f"{name} must be > 0, got {getattr(self, name)}")
+        if self.baseline_z < 0:
+            raise ValueError(f"baseline_z must be >= 0, got {self.baseline_z}")
+        if self.baseline_min > self.reference_windows:
+            raise ValueError(f"baseline_min ({self.baseline_min}) must not exceed "
+                             f"reference_windows ({self.reference_windows})")
 
     @property
     def key(self) -> str:
         """Stable key naming these settings, e.g. for stored states and episodes."""
+        base = (f"base{self.baseline_z:g}:min{self.baseline_min}" if self.baseline
+                else "gaussian") + f":material{self.alert_min_tail:g}"
         return (f"cusum{self.cusum_reference:g}:{self.cusum_entry:g}-{self.cusum_exit:g}"
                 f":cap{self.cusum_cap:g}/window{self.window_entry:g}-{self.window_exit:g}"
                 f":gate{self.excess_gate:g}-{self.excess_hold:g}"
                 f"/spike{self.spike_entry:g}-{self.spike_exit:g}:ref{self.reference_windows}/switch{self.switch_entry:g}-"
                 f"{self.switch_exit:g}:tail{self.switch_min_tail:g}:aic"
                 f"{self.switch_aic_margin:g}:last{self.switch_windows}/days"
-                f"{self.entry_days}-{self.exit_days}/v1")
+                f"{self.entry_days}-{self.exit_days}/{base}/v2")
 
     def thresholds(self, statistic: str) -> tuple[float, float]:
         """(entry, exit) thresholds of a statistic named in :data:`STATISTICS`."""
@@ -652,6 +666,14 @@ def _check_timeline(timeline: pd.DataFrame) -> pd.DataFrame:
     return frame
 
 
+def _at_reference(rolled: NDArray[np.float64], reference_end: NDArray[np.intp]
+                  ) -> NDArray[np.float64]:
+    """A trailing statistic read at each row's reference block: the value the rolling
+    computation has on the row before ``reference_end`` (NaN where there is none)."""
+    end = reference_end - 1
+    return np.where(end >= 0, rolled[np.maximum(end, 0)], np.nan)
+
+
 def _tail_statistics(frame: pd.DataFrame, tail: str, s: SignalSettings,
                      reference_end: NDArray[np.intp], resume_row: int,
                      carried: tuple[float, ...]) -> dict[str, NDArray[np.float64]]:
@@ -668,15 +690,45 @@ def _tail_statistics(frame: pd.DataFrame, tail: str, s: SignalSettings,
         excess = np.where(se > 0, diff / se, np.where(diff > 0, np.inf, 0.0))
     window = num(f"loglik_best_{tail}") - num("loglik_gauss")
     llr = num(f"llr_{tail}")
+    if s.baseline:
+        # Against the pair's own reference block (window ends before the current window's
+        # first day): the CUSUM's centre, the window ratio's level and the excess's history.
+        def trailing(x: NDArray[np.float64]) -> pd.core.window.Rolling:
+            return pd.Series(x).rolling(s.reference_windows, min_periods=s.baseline_min)
+
+        # A young pair's reference is its first baseline_min window ends, until the block
+        # before the current window holds that many; before that there is none.
+        rows = np.arange(llr.size)
+        ref_end = np.where(rows >= s.baseline_min - 1,
+                           np.maximum(reference_end, s.baseline_min), 0)
+        roll = trailing(llr)
+        mean, sd, count = (_at_reference(r.to_numpy(), ref_end)
+                           for r in (roll.mean(), roll.std(), roll.count()))
+        with np.errstate(invalid="ignore"):
+            centre = np.maximum(s.cusum_reference, mean + s.baseline_z * sd / np.sqrt(count))
+        level = _at_reference(
+            trailing(np.where(np.isfinite(window), window, np.nan)).median().to_numpy(),
+            ref_end)
+        # In standard deviations: a likelihood-ratio statistic's variance grows about
+        # twice as fast as its mean, so a heavy-tailed baseline moves more from window to
+        # window. NaN (no evidence) until a level exists.
+        floor = np.maximum(level, 0.0)
+        window = (window - floor) / np.sqrt(1.0 + 2.0 * floor)
+        spike_of = diff
+    else:
+        centre = np.full(llr.size, s.cusum_reference)
+        spike_of = emp
+    steps = llr - centre
     if carried:
         # Continued: the carried levels up to the resume row, the recursion after it.
         sequential = np.full(llr.size, np.nan)
         sequential[resume_row - len(carried) + 1:resume_row + 1] = carried
-        sequential[resume_row + 1:] = cusum(llr[resume_row + 1:], s.cusum_reference,
-                                            s.cusum_cap, start=carried[-1])
+        sequential[resume_row + 1:] = cusum(steps[resume_row + 1:], 0.0, s.cusum_cap,
+                                            start=carried[-1])
     else:
-        sequential = np.asarray(cusum(llr, s.cusum_reference, s.cusum_cap))
-    spike = np.asarray(robust_z_against_history(emp, se, reference_end, s.reference_windows))
+        sequential = np.asarray(cusum(steps, 0.0, s.cusum_cap))
+    spike = np.asarray(robust_z_against_history(spike_of, se, reference_end,
+                                                s.reference_windows))
     other = "upper" if tail == "lower" else "lower"
     model = num(f"tail_{tail}")
     # A family with both tails counts for the heavier one only (both when equal, as for t).
@@ -716,6 +768,15 @@ def _tail_episodes(frame: pd.DataFrame, tail: str, stats: dict[str, NDArray[np.f
     strength[w] = np.where(excess >= s.excess_gate, strength[w], 0.0)
     active_each[w] &= excess >= s.excess_gate
     holding[w] &= excess >= s.excess_hold
+    # Materiality: no episode opens on a tail that, model-averaged, is not there at all
+    # (older timelines without the averaged figure use the selected family's).
+    model = frame[f"tail_{tail}"].to_numpy(dtype=float, na_value=np.nan)
+    if f"tail_{tail}_avg" in frame.columns:
+        avg = frame[f"tail_{tail}_avg"].to_numpy(dtype=float, na_value=np.nan)
+        model = np.where(np.isnan(avg), model, avg)
+    material = ~(model < s.alert_min_tail)
+    strength[:, ~material] = 0.0
+    active_each &= material
     quiet = ~holding.any(axis=0)
     active = active_each.any(axis=0)
     evidence = np.clip(strength.max(axis=0), 0.0, None)

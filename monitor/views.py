@@ -28,7 +28,9 @@ _SIGNALS = re.compile(
     rf"/window(?P<we>{_NUM})-(?P<wx>{_NUM}):gate(?P<gate>{_NUM})-(?P<hold>{_NUM})"
     rf"/spike(?P<se>{_NUM})-(?P<sx>{_NUM}):ref(?P<refw>\d+)"
     rf"/switch(?P<swe>{_NUM})-(?P<swx>{_NUM}):tail(?P<tail>{_NUM}):aic(?P<aic>{_NUM})"
-    rf":last(?P<last>\d+)/days(?P<ed>\d+)-(?P<xd>\d+)/v\d+$")
+    rf":last(?P<last>\d+)/days(?P<ed>\d+)-(?P<xd>\d+)"
+    rf"(?:/(?:base(?P<z>{_NUM}):min(?P<bmin>\d+)|(?P<gauss>gaussian)):material(?P<mat>{_NUM}))?"
+    rf"/v\d+$")
 #: What a stored settings key looks like in text (marginal, rolling or signal part): no page
 #: may show one (tests search every page for it).
 SETTINGS_KEY_PATTERN = re.compile(
@@ -68,12 +70,23 @@ def _signal_words(part: str) -> str:
     default = part == SignalSettings().key
     head = ("signal thresholds: the calibrated defaults" if default
             else "signal thresholds: set by the configuration")
-    return (f"{head} (sequential divergence enters at {m['ce']} and leaves below {m['cx']}, "
-            f"{m['ref']} nats a day taken off, capped at {m['cap']}; window divergence "
-            f"{m['we']}/{m['wx']} with tail-excess gate {m['gate']}/{m['hold']}; tail spike "
-            f"z {m['se']}/{m['sx']} against {m['refw']} reference windows; family switch "
-            f"{m['swe']}/{m['swx']} over the last {m['last']} windows; an episode opens "
-            f"after {m['ed']} active days and closes after {m['xd']} quiet days)")
+    if m["z"] is not None:
+        against = (f"measured against the pair's own {m['refw']} window ends before the "
+                   f"current window, the sequential sum centred {m['z']} standard errors "
+                   f"above their mean, from {m['bmin']} of them on")
+    else:
+        against = "measured against the Gaussian copula at the window's Kendall's tau"
+    switch = ("family switch off" if m["swe"] == "inf" else
+              f"family switch {m['swe']}/{m['swx']} over the last {m['last']} windows")
+    material = ("" if m["mat"] is None else
+                f"; no episode opens on a tail whose model-averaged coefficient is below "
+                f"{m['mat']}")
+    return (f"{head} ({against}; sequential divergence enters at {m['ce']} and leaves below "
+            f"{m['cx']}, {m['ref']} nats a day taken off at least, capped at {m['cap']}; "
+            f"window divergence {m['we']}/{m['wx']} with tail-excess gate "
+            f"{m['gate']}/{m['hold']}; tail spike z {m['se']}/{m['sx']} against "
+            f"{m['refw']} reference windows; {switch}{material}; an episode opens after "
+            f"{m['ed']} active days and closes after {m['xd']} quiet days)")
 
 
 def settings_words(key: str, *, short: bool = False) -> str:

@@ -11,6 +11,7 @@ state machine day by day. Simulation tolerances are stated beside each check.
 from __future__ import annotations
 
 import dataclasses
+import itertools
 
 import numpy as np
 import pandas as pd
@@ -69,8 +70,15 @@ def _ratios_for_path(path) -> np.ndarray:
     return np.where(p[1:] > 0, steps, -p[:-1] - 1.0)
 
 
+# The hand-made timelines test the mechanics against the Gaussian yardstick (no baseline, no
+# materiality gate); the pair's own baseline has its own tests below.
+YARDSTICK = {"baseline": False, "alert_min_tail": 0.0}
+#: The earlier defaults: every statistic against the Gaussian at the window's tau.
+GAUSSIAN_YARDSTICK = SignalSettings(baseline=False, cusum_entry=4.75, cusum_exit=3.5,
+                                    cusum_cap=5.25, window_entry=8.0, window_exit=6.0,
+                                    switch_entry=0.9)
 # Only the sequential statistic, with levels that make hand paths easy to read.
-SEQUENTIAL_ONLY = SignalSettings(cusum_reference=0.0, cusum_entry=1.0, cusum_exit=0.5,
+SEQUENTIAL_ONLY = SignalSettings(**YARDSTICK, cusum_reference=0.0, cusum_entry=1.0, cusum_exit=0.5,
                                  cusum_cap=100.0, window_entry=np.inf, spike_entry=np.inf,
                                  switch_entry=np.inf, entry_days=3, exit_days=2)
 
@@ -233,7 +241,8 @@ def gaussian_and_clayton_signals():
         uv = family(name).sample(n, params, np.random.default_rng(1))
         z = stats.norm.ppf(uv)
         m = pair_metrics(dates, z[:, 0], z[:, 1], rs, window_end_positions(n, rs))
-        out[name] = pair_signals(m.frame)
+        out[name] = pair_signals(m.frame, GAUSSIAN_YARDSTICK)
+        out[f"{name}, own baseline"] = pair_signals(m.frame)
     return out
 
 
@@ -260,21 +269,27 @@ def test_divergence_is_near_zero_on_gaussian_and_positive_on_clayton(
     assert ratio["gaussian"] < 3.0 and ratio["clayton"] > 10.0
     # The sequential statistic: near 0 under the Gaussian, near its ceiling under Clayton.
     # (Bounds chosen to hold for seeds 0-7, not only this one.)
-    s = SignalSettings()
+    s = GAUSSIAN_YARDSTICK
     assert gauss["sequential_lower"].median() < s.cusum_exit
     assert clay["sequential_lower"].iloc[-100:].median() > s.cusum_exit
     assert gauss["alert"].sum() == 0
     assert clay["alert_lower"].mean() > 0.6 and clay["alert_upper"].sum() == 0
     ep = gaussian_and_clayton_signals["clayton"].episodes[0]
     assert ep.tail == "lower" and ep.cause == "divergence" and ep.peak_tail_emp > 0.3
+    # Against the pair's own baseline (the defaults) a Clayton copula that never changes is a
+    # standing condition, not a shift: its excess stays, its alerts go.
+    own = gaussian_and_clayton_signals["clayton, own baseline"].frame
+    assert own["excess_lower"].median() > 0.75
+    assert own["alert"].sum() == 0
+    assert gaussian_and_clayton_signals["gaussian, own baseline"].frame["alert"].sum() == 0
 
 
 def test_appending_rows_never_changes_past_signals(gaussian_and_clayton_signals):
     # Every statistic and the state machine look only backwards (docs/contracts.md: appending data
     # never changes past results), so the signals of a prefix are the prefix of the signals.
-    full = gaussian_and_clayton_signals["clayton"]
-    for cut in (120, 260):
-        part = pair_signals(full.frame.iloc[:cut])
+    for name, cut in itertools.product(("clayton", "clayton, own baseline"), (120, 260, 400)):
+        full = gaussian_and_clayton_signals[name]
+        part = pair_signals(full.frame.iloc[:cut], full.settings)
         cols = [c for c in SIGNAL_COLUMNS if not c.startswith("state")]
         np.testing.assert_array_equal(part.frame[cols].to_numpy(float),
                                       full.frame[cols].iloc[:cut].to_numpy(float))
@@ -291,7 +306,7 @@ def test_gaussian_tail_concordance_matches_reference_values():
             want, abs=5e-5)
 
 
-WINDOW_ONLY = SignalSettings(window_entry=8.0, window_exit=3.0, excess_gate=1.0,
+WINDOW_ONLY = SignalSettings(**YARDSTICK, window_entry=8.0, window_exit=3.0, excess_gate=1.0,
                              excess_hold=0.5, cusum_entry=np.inf, spike_entry=np.inf,
                              switch_entry=np.inf, entry_days=3, exit_days=4)
 
@@ -348,7 +363,7 @@ def test_tail_spike_against_own_history_opens_a_spike_episode():
     emp = np.full(n, 0.3) + 0.02 * np.sin(np.arange(n))
     emp[320:] = 0.8  # the empirical lower tail jumps, the Gaussian benchmark does not move
     frame = _timeline(n, tail_lower_emp=emp)
-    s = SignalSettings(reference_windows=100)
+    s = SignalSettings(reference_windows=100, alert_min_tail=0.0)
     sig = pair_signals(frame, s)
     f = sig.frame
     # The reference of a row is the 100 rows before its window's first day: NaN until then.
@@ -367,7 +382,7 @@ def test_family_switch_into_lower_tail_class():
     aic = np.where(np.arange(n) >= change, -70.0, -50.0)  # AIC 20 better than the Gaussian
     frame = _timeline(n, tail_lower=tail, tail_upper=0.4 * tail, aic=aic,
                       family=np.where(tail > 0, "bb7", "gaussian"))
-    s = SignalSettings()
+    s = SignalSettings(switch_entry=0.9)
     sig = pair_signals(frame, s)
     f = sig.frame
     # By hand: share of lower-tail windows among the last 60 minus their share among the
@@ -394,7 +409,8 @@ def test_settings_are_frozen_validated_and_keyed():
     with pytest.raises(dataclasses.FrozenInstanceError):
         s.cusum_entry = 1.0
     assert s.key == SignalSettings().key
-    assert s.key != SignalSettings(cusum_entry=5.0).key and s.key.endswith("/v1")
+    assert s.key != SignalSettings(cusum_entry=5.0).key and s.key.endswith("/v2")
+    assert SignalSettings(baseline=False).key != s.key
     with pytest.raises(ValueError, match="cusum_exit"):
         SignalSettings(cusum_exit=6.0)
     with pytest.raises(ValueError, match="cusum_cap"):
@@ -488,7 +504,7 @@ def _busy_timeline(n: int, seed: int) -> pd.DataFrame:
         tail_upper=np.where(switched[::-1], 0.2, 0.0))
 
 
-BUSY = SignalSettings(reference_windows=60, switch_windows=20, switch_entry=0.6,
+BUSY = SignalSettings(**YARDSTICK, reference_windows=60, switch_windows=20, switch_entry=0.6,
                       switch_exit=0.3)
 
 
@@ -574,3 +590,86 @@ def test_hysteresis_continues_an_open_spell():
     assert hysteresis(a, q, 3, 2, start=5, open_at_start=False) == [(8, None)]
     with pytest.raises(ValueError, match="start must be in"):
         hysteresis(a, q, 3, 2, start=11)
+
+
+# ------------------------------------------------------------------ the pair's own baseline
+BASELINE_SEQUENTIAL = SignalSettings(reference_windows=100, baseline_min=20, baseline_z=2.0,
+                                     cusum_reference=0.01, cusum_entry=5.0, cusum_exit=4.0,
+                                     cusum_cap=6.0, window_entry=np.inf, spike_entry=np.inf,
+                                     alert_min_tail=0.0)
+
+
+def test_baseline_cusum_is_centred_on_the_reference_block_by_hand():
+    # Page's recursion (Page 1954) on llr_t - c_t, where c_t = max(k, m + z s / sqrt(n)) and
+    # m, s, n are the mean, standard deviation and count of the ratios of the reference block:
+    # the reference_windows window ends before the current window's first day (the young
+    # pair's first baseline_min window ends until that block holds as many).
+    n = 400
+    llr = np.random.default_rng(5).normal(0.06, 0.3, n)  # a standing heavy lower tail
+    frame = _timeline(n, llr_lower=llr)
+    s = BASELINE_SEQUENTIAL
+    sig = pair_signals(frame, s)
+    centre = np.full(n, np.nan)
+    for i in range(n):
+        ref_end = i - WINDOW + 1  # rows before this window's first day
+        if i < s.baseline_min - 1:
+            continue
+        ref_end = max(ref_end, s.baseline_min)
+        block = llr[max(0, ref_end - s.reference_windows):ref_end]
+        centre[i] = max(s.cusum_reference,
+                        block.mean() + s.baseline_z * block.std(ddof=1) / np.sqrt(block.size))
+    want = cusum(np.where(np.isnan(centre), np.nan, llr - np.nan_to_num(centre)), 0.0,
+                 s.cusum_cap)
+    np.testing.assert_allclose(sig.frame["sequential_lower"], want, atol=1e-9)
+    # The same ratios against the Gaussian yardstick (k only) climb to the cap: the standing
+    # tail is an alert there, and not against its own baseline.
+    yard = pair_signals(frame, dataclasses.replace(s, baseline=False))
+    assert yard.frame["sequential_lower"].iloc[-100:].median() > s.cusum_exit
+    assert yard.frame["alert_lower"].mean() > 0.5
+    assert sig.frame["alert_lower"].sum() == 0
+
+
+def test_baseline_cusum_flags_a_rise_against_the_own_history():
+    n, change = 600, 400
+    rng = np.random.default_rng(6)
+    llr = np.where(np.arange(n) < change, rng.normal(0.06, 0.3, n), rng.normal(0.16, 0.3, n))
+    sig = pair_signals(_timeline(n, llr_lower=llr), BASELINE_SEQUENTIAL)
+    (ep,) = [e for e in sig.episodes if e.tail == "lower"]
+    # Drift after the change at least 0.16 - (0.06 + 2 * 0.3 / 10) = 0.04 a day, so the level 5
+    # is reached within about 125 days (a level already above 0 at the change shortens it).
+    delay = int((sig.frame["date"] < ep.start).sum()) - change
+    assert 0 < delay < 150
+
+
+def test_spike_follows_the_excess_so_a_rise_of_tau_alone_is_no_spike():
+    # Regression of the demo's false open episode (a bond pair whose tau rose from 0 to 0.45):
+    # the empirical tail coefficient rose with the Gaussian value at the window's tau and
+    # stayed above its own history, holding the spike statistic over its exit level. Against
+    # the pair's own baseline the spike reads the excess over that Gaussian value instead.
+    n = 500
+    gauss_q = np.where(np.arange(n) < 300, 0.12, 0.45)
+    emp = gauss_q + 0.02 * np.sin(np.arange(n))
+    frame = _timeline(n, tail_lower_emp=emp, gauss_tail_q=gauss_q)
+    only_spike = {"cusum_entry": np.inf, "window_entry": np.inf, "alert_min_tail": 0.0,
+                  "reference_windows": 100}
+    own = pair_signals(frame, SignalSettings(**only_spike))
+    yard = pair_signals(frame, SignalSettings(**only_spike, baseline=False))
+    assert np.nanmax(np.abs(own.frame["spike_lower"])) < 1.0
+    assert own.episodes == ()
+    assert np.nanmax(yard.frame["spike_lower"]) > 3.0 and len(yard.episodes) == 1
+
+
+def test_no_episode_opens_on_a_tail_the_models_do_not_see():
+    # The same strong evidence opens an episode only where the model-averaged tail
+    # coefficient reaches alert_min_tail (0.1 by default); where the column is missing (an
+    # older store) the selected family's coefficient stands in.
+    n = 300
+    frame = _timeline(n, llr_lower=np.full(n, 0.5), tail_lower=0.3,
+                      tail_lower_avg=np.where(np.arange(n) < 150, 0.05, 0.3))
+    s = dataclasses.replace(SEQUENTIAL_ONLY, alert_min_tail=0.1)
+    sig = pair_signals(frame, s)
+    (ep,) = sig.episodes
+    assert ep.onset == frame["date"].iloc[150]
+    old = pair_signals(frame.drop(columns="tail_lower_avg"), s)
+    # The sum reaches the entry level 1 on the second day (0.5 a day from 0).
+    assert old.episodes[0].onset == frame["date"].iloc[1]

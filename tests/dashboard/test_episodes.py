@@ -111,9 +111,14 @@ def test_rules_table_names_every_threshold_and_no_secret(monkeypatch):
     settings = SignalSettings()
     by_name = rules.set_index("setting")
     for f in fields(SignalSettings):
-        assert by_name.loc[f.name, "value"] == f"{getattr(settings, f.name):g}"
+        value = getattr(settings, f.name)
+        want = ("yes" if value else "no") if isinstance(value, bool) else (
+            "inf (statistic off)" if value == np.inf else f"{value:g}")
+        assert by_name.loc[f.name, "value"] == want
         assert by_name.loc[f.name, "meaning"]
-    assert by_name.loc["cusum_entry", "value"] == "4.75"  # README, "Regime signals"
+    assert by_name.loc["cusum_entry", "value"] == "5.5"  # docs/signals.md, the defaults
+    assert by_name.loc["switch_entry", "value"] == "inf (statistic off)"
+    assert by_name.loc["baseline", "value"] == "yes"
     assert by_name.loc["cusum_entry", "calibration"].startswith("tuned")
     assert by_name.loc["entry_days", "calibration"].startswith("designed")
     assert "window is 120" in by_name.loc["cusum_entry", "calibration"]
