@@ -204,13 +204,13 @@ class SignalSettings:
     cusum_entry: float = 5.5
     cusum_exit: float = 4.5
     cusum_cap: float = 6.0
-    window_entry: float = 6.0
-    window_exit: float = 4.5
+    window_entry: float = 8.0
+    window_exit: float = 6.0
     excess_gate: float = 1.0
     excess_hold: float = 1.0
     spike_entry: float = 3.0
     spike_exit: float = 1.5
-    reference_windows: int = 250
+    reference_windows: int = 500
     switch_min_tail: float = 0.1
     switch_aic_margin: float = 10.0
     switch_windows: int = 60
@@ -220,7 +220,7 @@ class SignalSettings:
     exit_days: int = 5
     alert_min_tail: float = 0.1
     baseline: bool = True
-    baseline_z: float = 3.0
+    baseline_z: float = 3.5
     baseline_min: int = 20
 
     def __post_init__(self) -> None:
@@ -760,7 +760,8 @@ def _tail_episodes(frame: pd.DataFrame, tail: str, stats: dict[str, NDArray[np.f
     with np.errstate(invalid="ignore"):
         strength = np.where(finite, values / entry, 0.0)
         active_each = finite & (values >= entry)
-        holding = finite & (values >= exit_)
+        # A statistic switched off (entry inf) neither opens nor holds an episode.
+        holding = finite & (values >= exit_) & np.isfinite(entry)
     # The window statistic's gate has its own hysteresis: the finite-level excess must reach
     # excess_gate to open, and keeps an episode open while it stays at excess_hold or more.
     w = names.index("window")

@@ -14,7 +14,7 @@ Precision is true episodes over all episodes; recall is detected rises over all 
 (a tail going away) may make an episode true but is not counted in the recall, since the
 signals are built for tails growing, not vanishing.
 
->>> truth = {"pairs": [{"pair": ["A", "B"], "segments": [
+>>> truth = {"end": "2021-06-30", "pairs": [{"pair": ["A", "B"], "segments": [
 ...     {"start": "2020-01-01", "end": "2020-12-31", "tail_lower": 0.0, "tail_upper": 0.0},
 ...     {"start": "2021-01-01", "end": "2021-06-30", "tail_lower": 0.6, "tail_upper": 0.0}]}]}
 >>> eps = {("A", "B"): [{"tail": "lower", "start": "2021-03-01", "end": "2021-05-01"},
@@ -28,6 +28,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
+from itertools import pairwise
 
 import pandas as pd
 
@@ -76,7 +77,7 @@ def tail_changes(truth: Mapping, min_change: float = 0.1) -> pd.DataFrame:
     for entry in truth["pairs"]:
         pair = "/".join(entry["pair"])
         segs = entry["segments"]
-        for prev, seg in zip(segs, segs[1:], strict=False):
+        for prev, seg in pairwise(segs):
             for tail in _TAILS:
                 before, after = float(prev[f"tail_{tail}"]), float(seg[f"tail_{tail}"])
                 if abs(after - before) >= min_change:

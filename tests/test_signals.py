@@ -382,7 +382,7 @@ def test_family_switch_into_lower_tail_class():
     aic = np.where(np.arange(n) >= change, -70.0, -50.0)  # AIC 20 better than the Gaussian
     frame = _timeline(n, tail_lower=tail, tail_upper=0.4 * tail, aic=aic,
                       family=np.where(tail > 0, "bb7", "gaussian"))
-    s = SignalSettings(switch_entry=0.9)
+    s = SignalSettings(switch_entry=0.9, reference_windows=250)
     sig = pair_signals(frame, s)
     f = sig.frame
     # By hand: share of lower-tail windows among the last 60 minus their share among the

@@ -21,6 +21,7 @@ from scipy import stats
 from statsmodels.stats.diagnostic import acorr_ljungbox
 
 import synthetic_feeds
+import synthetic_feeds.scoring
 from monitor.copulas import family
 from monitor.empirical import pseudo_observations, tail_dependence
 from monitor.errors import InputError
@@ -88,7 +89,7 @@ def test_registry_lists_four_scenarios_with_one_line_descriptions():
 
 
 def test_package_docstring_examples_run():
-    for module in (synthetic_feeds, synthetic_feeds.scenario):
+    for module in (synthetic_feeds, synthetic_feeds.scenario, synthetic_feeds.scoring):
         result = doctest.testmod(module, optionflags=doctest.ELLIPSIS)
         assert result.failed == 0 and result.attempted > 0
 
@@ -518,3 +519,36 @@ def test_unusable_output_directory_raises_input_error(tmp_path):
     prices, truth = write_scenario("steady-pair", nested, years=1)
     assert prices.exists() and truth.exists()
     assert sorted(p.name for p in nested.iterdir()) == ["prices.csv", "truth.json"]
+
+
+# ----------------------------------------------------------------------------- scoring
+def test_episodes_are_scored_against_the_truth_by_hand():
+    # A worked example (invented truth): a lower tail rises at the start of 2021 and falls
+    # at the start of 2022; a 10-business-day lag extends each segment.
+    from synthetic_feeds.scoring import score_episodes
+    truth = {"end": "2022-12-30", "pairs": [
+        {"pair": ["A", "B"], "segments": [
+            {"start": "2020-01-01", "end": "2020-12-31", "tail_lower": 0.0, "tail_upper": 0.0},
+            {"start": "2021-01-01", "end": "2021-12-31", "tail_lower": 0.5, "tail_upper": 0.0},
+            {"start": "2022-01-03", "end": "2022-12-30", "tail_lower": 0.0, "tail_upper": 0.05},
+        ]},
+        {"pair": ["A", "C"], "segments": [
+            {"start": "2020-01-01", "end": "2020-12-31", "tail_lower": 0.0, "tail_upper": 0.0},
+            {"start": "2021-01-01", "end": "2022-12-30", "tail_lower": 0.7, "tail_upper": 0.0},
+        ]}]}
+    eps = {("A", "B"): [
+        {"tail": "lower", "start": "2021-06-01", "end": "2021-07-01"},   # in the rise: true
+        {"tail": "lower", "start": "2023-01-20", "end": None},           # open, after all lags
+        {"tail": "upper", "start": "2022-02-01", "end": "2022-03-01"},   # upper moved 0.05 only
+        {"tail": "lower", "start": "2022-01-12", "end": "2022-01-20"},   # in the fall: true
+    ]}
+    s = score_episodes(truth, eps, lag_days=10, last_day="2023-02-01")
+    assert s.episodes["true"].tolist() == [True, False, False, True]
+    assert s.precision == 0.5
+    # Only the scored pair's rises count (A/C has no episodes list): one rise, detected.
+    assert s.rises[["pair", "tail", "after"]].values.tolist() == [["A/B", "lower", 0.5]]
+    assert s.recall == 1.0
+    # The lag: an episode starting 9 business days after the fall's segment ends is true.
+    late = score_episodes(truth, {("A", "B"): [
+        {"tail": "lower", "start": "2023-01-12", "end": "2023-01-20"}]}, lag_days=10)
+    assert late.precision == 1.0
