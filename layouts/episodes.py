@@ -44,9 +44,10 @@ EPISODE_LABELS = MappingProxyType({
     "peak_kendall_tau_se": "tau s.e.", "peak_tail_emp": "empirical tail at peak",
     "peak_tail_emp_se": "empirical tail s.e.", "peak_tail_model": "model tail at peak",
     "peak_gauss_tail": "Gaussian tail at peak",
+    "latest_value": "current evidence (x entry)", "latest_date": "evidence as of",
 })
 OPEN_COLUMNS = ("pair", "tail", "cause", "statistic", "onset", "start", "duration_days",
-                 "last_day", "peak_date", "peak_value", "peak_kendall_tau",
+                 "last_day", "latest_value", "peak_date", "peak_value", "peak_kendall_tau",
                  "peak_kendall_tau_se", "peak_tail_emp", "peak_tail_emp_se", "peak_tail_model",
                  "peak_gauss_tail")
 HISTORY_COLUMNS = ("pair", "tail", "status", "cause", "statistic", "onset", "start", "end",

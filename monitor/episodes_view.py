@@ -55,7 +55,7 @@ EPISODE_COLUMNS = (
     "pair", "asset_a", "asset_b", "tail", "status", "onset", "start", "end", "last_day",
     "duration_days", "cause", "statistic", "peak_date", "peak_value", "peak_kendall_tau",
     "peak_kendall_tau_se", "peak_tail_emp", "peak_tail_emp_se", "peak_tail_model",
-    "peak_gauss_tail",
+    "peak_gauss_tail", "latest_date", "latest_value",
 )
 
 #: Documented columns of the alert outbox (the ``outbox`` store table, issue 6).
@@ -182,7 +182,10 @@ def episode_frame(view: StoreView) -> pd.DataFrame:
         (the selected family's coefficient) and ``peak_gauss_tail`` (the Gaussian copula's
         C(q,q)/q at the window's tau), with the standard errors the rolling engine stored
         for that window: ``peak_kendall_tau_se`` (influence function) and
-        ``peak_tail_emp_se`` (binomial).
+        ``peak_tail_emp_se`` (binomial). ``latest_value`` is the evidence (the same ratio) on
+        ``latest_date``: the newest window end while the episode is open, its end once it
+        ended; beside the peak it says whether the evidence is still there (below 1: no
+        statistic at its entry level any more). Both are empty in rows of an older store.
 
     Notes
     -----
@@ -196,8 +199,12 @@ def episode_frame(view: StoreView) -> pd.DataFrame:
         return _empty(EPISODE_COLUMNS)
     counts = _durations(view.store, view.signals_key, view.rolling_key)
     frame = frame.merge(counts, on=["asset_a", "asset_b", "tail", "start"], how="left")
-    for col in ("onset", "start", "end", "peak_date", "last_day"):
+    for col in ("latest_date", "latest_value"):
+        if col not in frame.columns:
+            frame[col] = None
+    for col in ("onset", "start", "end", "peak_date", "last_day", "latest_date"):
         frame[col] = pd.to_datetime(frame[col])
+    frame["latest_value"] = pd.to_numeric(frame["latest_value"], errors="coerce").astype(float)
     frame["pair"] = frame["asset_a"].astype(str) + "/" + frame["asset_b"].astype(str)
     frame["status"] = np.where(frame["end"].isna(), "open", "ended")
     frame["duration_days"] = frame["duration_days"].fillna(0).astype(np.int64)

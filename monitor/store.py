@@ -183,6 +183,10 @@ episodes = sa.Table(
         "peak_value", "peak_tail_emp", "peak_tail_model", "peak_gauss_tail",
         "peak_kendall_tau")],
     sa.Column("updated_at", sa.DateTime, nullable=False),
+    # The evidence on the episode's latest day (its end, or the newest window end while open);
+    # NULL in rows of an older store.
+    sa.Column("latest_date", sa.Date),
+    sa.Column("latest_value", _DOUBLE),
 )
 
 

@@ -67,6 +67,12 @@ def test_episodes_equal_the_signals_of_the_stored_timelines(view):
             at_peak = sig.frame[dates == e.peak_date].iloc[0]
             assert row["peak_kendall_tau_se"] == at_peak["kendall_tau_se"]
             assert row["peak_tail_emp_se"] == at_peak[f"tail_{e.tail}_emp_se"]
+            # the current evidence is the latest day's, beside the peak (never above it)
+            at_last = sig.frame[dates == last].iloc[0]
+            assert row["latest_date"] == last
+            assert row["latest_value"] == pytest.approx(at_last[f"evidence_{e.tail}"],
+                                                        rel=1e-12)
+            assert row["latest_value"] <= row["peak_value"]
             checked += 1
         # the days in alert of each tail are exactly the episodes' durations
         for tail in ("lower", "upper"):
