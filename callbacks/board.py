@@ -10,7 +10,7 @@ import plotly.graph_objects as go
 from dash import Input, Output
 
 from layouts import ids
-from layouts.components import message
+from layouts.components import filter_action, message, shape_columns
 from monitor.board import (
     DEFAULT_HORIZON,
     DEFAULT_TAIL_SOURCE,
@@ -34,7 +34,8 @@ OUTPUTS = ((ids.BOARD_MATRIX_TAU, "figure"), (ids.BOARD_MATRIX_LOWER, "figure"),
            (ids.BOARD_CHANGE_TAU, "figure"), (ids.BOARD_CHANGE_LOWER, "figure"),
            (ids.BOARD_CHANGE_UPPER, "figure"), (ids.BOARD_EXCESS_LOWER, "figure"),
            (ids.BOARD_EXCESS_UPPER, "figure"), (ids.BOARD_CHANGE_NOTE, "children"),
-           (ids.BOARD_NOTE, "children"), (ids.BOARD_MESSAGE, "children"))
+           (ids.BOARD_NOTE, "children"), (ids.BOARD_MESSAGE, "children"),
+           (ids.BOARD_RANKING, "hidden_columns"), (ids.BOARD_RANKING, "filter_action"))
 
 
 def _blank() -> go.Figure:
@@ -42,16 +43,27 @@ def _blank() -> go.Figure:
                                           yaxis={"visible": False}))
 
 
-def _table(data) -> tuple[list[dict], list[dict]]:
+def _table(data) -> tuple[list[dict], list[dict], list[str], str]:
+    """(data, columns, hidden columns, filter action) of the ranking table: the model-based,
+    per-tail state and reference columns start hidden ("Toggle Columns" shows them, the CSV
+    has them all), so that the main ones fit a 1600-pixel screen."""
     frame = ranking_table(data)
     links = [f"[timeline](/timeline?pair={quote(p, safe='/')})" for p in frame["pair"]]
     frame.insert(2, "history", links)
-    columns = [{"name": str(c), "id": str(c)} for c in frame.columns]
+    # Shown headers drop "nonparametric" (the page's note says the tails are C(q,q)/q), so
+    # that no header word is wider than its numbers; the ids keep the full names.
+    columns = [{"name": str(c).replace(" nonparametric", " tail").replace("tail tail", "tail"),
+                "id": str(c)} for c in frame.columns]
     columns[2]["presentation"] = "markdown"
     for c in columns:
         if frame[c["id"]].dtype.kind in "fi":
             c["type"] = "numeric"  # sorts as numbers, not as text
-    return frame.to_dict("records"), columns
+    secondary = [c for c in frame.columns
+                 if "averaged" in c or "selected family" in c or c.startswith("compared with")
+                 or c in ("lower-tail state", "upper-tail state", "tau 95%",
+                          "Gaussian at same tau", "family", "window end")]
+    columns, hidden = shape_columns(columns, secondary=secondary)
+    return frame.to_dict("records"), columns, hidden, filter_action(len(frame))
 
 
 def _change_note(data) -> str:
@@ -78,12 +90,12 @@ def show_board(view, date: str | None, source: str | None,
     except InputError as exc:
         blank = _blank()
         return (blank, blank, blank, [], [], blank, blank, blank, blank, blank, blank, "", "",
-                message(str(exc), kind="problem"))
+                message(str(exc), kind="problem"), [], filter_action(0))
     source = source if source in TAIL_SOURCES else DEFAULT_TAIL_SOURCE
     figures = [matrix_figure(data, q, source) for q in QUANTITIES]
     changes = [change_figure(data, q, source) for q in QUANTITIES]
     excess = [excess_figure(data, t) for t in ("lower", "upper")]
-    rows, columns = _table(data)
+    rows, columns, hidden, filtering = _table(data)
     counts = data.pairs["state"].value_counts()
     standing = int(data.pairs["standing"].fillna("").ne("").sum())
     stale = int(data.pairs["date"].lt(data.pairs["date"].max()).sum())
@@ -100,7 +112,7 @@ def show_board(view, date: str | None, source: str | None,
                "model-averaged tails are not computed by this version."
                if data.averaged_missing else ""))
     return (*figures, rows, columns, summary_figure(data.summary, data.as_of), *changes,
-            *excess, _change_note(data), note, "")
+            *excess, _change_note(data), note, "", hidden, filtering)
 
 
 def register(app, view) -> None:

@@ -297,7 +297,14 @@ def test_board_callback_returns_the_figures_and_the_table(dash_store, view):
     assert rows[0]["pair"] == f"{a}/{b}"
     assert rows[0]["history"] == f"[timeline](/timeline?pair={a}/{b})"
     columns = result[f"{ids.BOARD_RANKING}.columns"]
-    assert columns[2] == {"name": "history", "id": "history", "presentation": "markdown"}
+    assert columns[2] == {"name": "history", "id": "history", "presentation": "markdown",
+                          "hideable": True}
+    # Six rows: no filter row; the model-based columns start hidden (the main ones fit a
+    # 1600-pixel screen), every column can be shown.
+    assert result[f"{ids.BOARD_RANKING}.filter_action"] == "none"
+    hidden = result[f"{ids.BOARD_RANKING}.hidden_columns"]
+    assert "lower tail averaged" in hidden and "upper tail selected family" in hidden
+    assert "divergence (z)" not in hidden and "lower tail nonparametric" not in hidden
     summary = result[f"{ids.BOARD_SUMMARY}.figure"]
     # tau, three figures per tail, two alert shares, pairs counted and carried.
     assert len(summary.data) == 11
@@ -310,7 +317,8 @@ def test_board_callback_returns_the_figures_and_the_table(dash_store, view):
     assert "window 120 days" in note and "real-time" in note and "6 pairs of 4 assets" in note
     assert result[f"{ids.BOARD_MESSAGE}.children"] == ""
     bad = show_board(view, "1999-01-04", "model")
-    assert "outside the stored window ends" in bad[-1].children
+    shown = dict(zip([f"{i}.{p}" for i, p in OUTPUTS], bad, strict=True))
+    assert "outside the stored window ends" in shown[f"{ids.BOARD_MESSAGE}.children"].children
     assert bad[3] == []
 
 

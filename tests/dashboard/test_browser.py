@@ -44,8 +44,15 @@ def _wait_plots(duo, minimum: int, timeout: float = 30) -> None:
     raise AssertionError(f"fewer than {minimum} rendered figures after {timeout} s")
 
 
+# Per table on the page: (scrollWidth, clientWidth, rows, filter rows).
+_TABLE_WIDTHS = """return [...document.querySelectorAll('.dash-spreadsheet-container')].map(
+    e => [e.scrollWidth, e.clientWidth, e.querySelectorAll('tr td.dash-cell').length,
+          e.querySelectorAll('.dash-filter').length]);"""
+
+
 def test_every_page_loads_without_console_errors(served):
     plots = {"/": 3, "/timeline": 1, "/drilldown": 0, "/episodes": 1, "/inputs": 2}
+    served.driver.set_window_size(1600, 1000)
     for page in PAGES:
         served.driver.get(served.server_url + page.path)
         served.wait_for_element(f"#{ids.PAGE} section", timeout=20)
@@ -53,6 +60,12 @@ def test_every_page_loads_without_console_errors(served):
         text = served.find_element("body").text
         assert "not investment advice" in text and "window 120 days" in text, page.path
         _shot(served, page.module)
+        # At 1600 pixels the tables' shown columns fit without a horizontal scroll bar, and
+        # a table with fewer than 20 rows has no filter row.
+        for scroll, client, cells, filters in served.driver.execute_script(_TABLE_WIDTHS):
+            assert scroll <= client + 1, (page.path, scroll, client)
+            if 0 < cells < 20:
+                assert filters == 0, page.path
     assert served.get_logs() == []
 
 
