@@ -10,47 +10,46 @@ a timeline only, with the whole timeline's results: that is what the daily updat
 
 Method
 ------
-For each tail (lower and upper) separately, four statistics are computed on every window end.
-Each has an entry and a lower exit threshold; in :class:`SignalSettings` they sit under the
-names given here.
+For each tail (lower and upper) separately, four statistics are computed on every window end,
+each against the pair's own *reference block*: the ``reference_windows`` window ends before
+the current window's first day (no shared observation); a young pair uses its first
+``baseline_min`` window ends until that block holds as many. ``baseline=False`` measures
+against the Gaussian alone instead. Each statistic has an entry and a lower exit threshold;
+in :class:`SignalSettings` they sit under the names given here.
 
 ``sequential`` (cause ``divergence``)
     A one-sided CUSUM (Page 1954) of the newest day's log-likelihood ratio of a
     tail-dependent copula against the Gaussian with the same Kendall's tau (columns
-    ``llr_lower`` / ``llr_upper``: Clayton / survival Clayton):
-    ``S_t = min(cap, max(0, S_{t-1} + llr_t - k))``, ``S_0 = 0``. Under a Gaussian copula the
-    increments have negative mean (minus a Kullback-Leibler divergence), so ``S`` hovers near
-    0. After a change to a tail-dependent copula with the same tau they have positive mean
-    and ``S`` climbs linearly. The ceiling ``cap`` keeps the time to recover after the tail
-    regime ends bounded; it does not change when the entry level is first reached.
+    ``llr_lower`` / ``llr_upper``: Clayton / survival Clayton), centred on the reference
+    block: ``S_t = min(cap, max(0, S_{t-1} + llr_t - c_t))`` with
+    ``c_t = max(k, m_t + z s_t / sqrt(n_t))`` (mean, standard deviation and count of the
+    block's ratios). A standing heavy tail raises ``m_t`` with the ratios, so only a rise
+    above the pair's own past makes ``S`` climb.
 ``window`` (cause ``divergence``)
     The window's likelihood evidence that the best tail-dependent candidate beats the
-    Gaussian, ``loglik_best_tail - loglik_gauss`` (column ``window_*``), read together with
-    the finite-level excess ``excess_* = (lambda_emp(q) - C_Gauss(q, q)/q) / se``. Here
-    ``lambda_emp(q)`` is the window's C_n(q, q)/q (or the upper analogue) and
-    ``C_Gauss(q, q)/q`` is the Gaussian copula's value at the window's tau, i.e. what the
-    centre alone implies at level q. The statistic opens an episode only while the excess is
-    at least ``excess_gate``, and keeps one open while it is at least ``excess_hold``. The
-    gate tells the tails apart: the best "upper" candidates include families with both tails,
-    which also fit a lower-tail regime.
+    Gaussian, ``w = loglik_best_tail - loglik_gauss``, as its rise over the block's median
+    level ``L >= 0`` in standard deviations, ``(w - L) / sqrt(1 + 2 L)`` (a likelihood-ratio
+    statistic's variance grows about twice as fast as its mean). It is read together with
+    the finite-level excess ``excess_* = (lambda_emp(q) - C_Gauss(q, q)/q) / se``: it opens
+    an episode only while the excess is at least ``excess_gate`` and keeps one open while it
+    is at least ``excess_hold``. The gate tells the tails apart.
 ``spike`` (cause ``spike``)
-    A robust z-score of the window's empirical tail coefficient against the pair's own
-    history: ``(lambda_t - median_ref) / sqrt((IQR_ref / 1.349)^2 + se_t^2)``. The reference
-    is the ``reference_windows`` window ends just before the current window's first day, so
-    they share no observation with it. The s.e. term keeps the score finite when the history
-    is flat.
-``switch`` (cause ``switch``)
-    A persisting change of the selected family's tail class. A window counts as
-    tail-dependent in a tail when the selected family's model coefficient there is at least
-    ``switch_min_tail`` and no smaller than in the other tail (a family with both tails counts
-    for its heavier one, for both when they are equal), and its AIC beats the Gaussian's by at
-    least ``switch_aic_margin``. The
-    statistic is the share of such windows among the last ``switch_windows`` minus their
-    share in the reference windows.
+    A robust z-score of the window's excess ``lambda_emp(q) - C_Gauss(q, q)/q`` against the
+    block: ``(x_t - median_ref) / sqrt((IQR_ref / 1.349)^2 + se_t^2)``. The excess, not the
+    tail coefficient, so that a rise of tau alone does not move it.
+``switch`` (cause ``switch``; off by default)
+    The share of the last ``switch_windows`` windows whose selected family is tail-dependent
+    in that tail (coefficient at least ``switch_min_tail``, no smaller than in the other
+    tail, AIC at least ``switch_aic_margin`` better than the Gaussian's), minus that share in
+    the block.
+
+No episode opens on a tail whose model-averaged coefficient (``tail_*_avg``; the selected
+family's where that is missing) is below ``alert_min_tail``.
 
 State machine, per tail, with hysteresis: a statistic is *active* on a day when it is at or
 above its entry threshold and *quiet* when it is below its exit threshold (missing values
-are quiet). The states are ``calm``, ``watch`` and ``alert``:
+are quiet; a statistic switched off is always quiet). The states are ``calm``, ``watch`` and
+``alert``:
 
 - ``watch``: some statistic is active, but not yet for ``entry_days`` days in a row;
 - ``alert``: an episode opens on the ``entry_days``-th consecutive day with an active
@@ -63,39 +62,8 @@ divergence, then spike, then switch. It also records the first day of that run (
 ``start`` (the first alert day), ``end`` (the last alert day, ``None`` while open), and the
 peak of the evidence, i.e. the largest statistic-to-entry-threshold ratio during the episode.
 
-Calibration
------------
-``tests/benchmarks/bench_detection.py`` tuned the defaults on two scenarios in
-:mod:`synthetic_feeds`, run through the production chain: real-time GARCH filtering, then the
-rolling engine (window 250, step 1, all families, AIC), then these signals. One scenario is
-``tail-shift`` with six calm years: Gaussian at tau 0.35, then Clayton at the same tau. The
-other is ``steady-pair``: Gaussian at tau 0.35 for 20 years, so every alert on it is false.
-The targets were a median delay of at most 100 trading days from the change to the first
-lower-tail alert. On the steady pair, at most 2 % of windows may be in alert, with at most
-one false episode per four years.
-
-The tuning used calibration seeds only (tail-shift 0-119, steady-pair 0-79). Its rule:
-keep the settings with at most 0.5 false episodes per four years, at least 95 % of changes
-detected, and at most a third of changes alerted more than once. Among those, take the one
-with the largest smaller relative margin to the delay and share targets. The chosen settings
-give, on the calibration seeds, a median delay of 78 days, 1.21 % of steady windows in
-alert and 0.28 false episodes per four years. On fresh evaluation seeds (tail-shift
-2000-2039, steady-pair 2000-2023) they give a median delay of 84 days (quartiles 50 / 108,
-all 40 detected), 1.30 % of windows in alert and 0.29 false episodes per four years. On an
-earlier evaluation set (seeds 1000-), seen before the last retuning, they give 91 days,
-2.01 % and 0.34. The false-alarm share rests on few, long false episodes (the worst
-20-year seed spends 9-12 % of its windows in alert), so its sampling error is large. A
-quarter to a third of true changes are alerted twice: the sequential evidence dips once
-before the window statistics have filled.
-
-The CUSUM carries the speed. With exact likelihood ratios and ``k = 0``, false alarms come on
-average no sooner than ``exp(h)`` days apart (Lorden 1971, Ann. Math. Statist. 42; from
-memory). A change is detected after about ``h / KL`` days, where ``KL`` is the
-Clayton-to-Gaussian divergence, about 0.055 nats a day at tau 0.35. Under the Gaussian the
-engine's plug-in ratios drift by -0.04 a day rather than the exact -0.063, and ``k = 0.01``
-offsets that. The window statistics alone need 190 to 200 days, since the window must fill
-with the new regime. The spike statistic is for jumps against the pair's own history. It is
-not built for a change at constant tau and rarely fires on these scenarios.
+The defaults are measured by ``tests/benchmarks/bench_detection.py`` and
+``tests/benchmarks/bench_demo_alerts.py``; docs/signals.md gives the figures.
 """
 
 from __future__ import annotations
@@ -162,7 +130,7 @@ IQR_TO_SIGMA = 1.3489795003921634
 
 @dataclass(frozen=True, slots=True)
 class SignalSettings:
-    """Every threshold of the regime signals; the defaults are calibrated (module docstring).
+    """Every threshold of the regime signals; the defaults are measured in docs/signals.md.
 
     Parameters
     ----------
@@ -193,11 +161,20 @@ class SignalSettings:
     entry_days, exit_days : int
         Consecutive days a statistic must be active to open an episode, and consecutive days
         every statistic must be quiet to close it.
+    alert_min_tail : float
+        Least model-averaged tail coefficient for an episode to open on that tail.
+    baseline : bool
+        Measure the statistics against the pair's reference block (True) or against the
+        Gaussian alone (False, the behaviour before the ``/v2`` key).
+    baseline_z : float
+        Standard errors of the block's mean ratio added to it to centre the CUSUM.
+    baseline_min : int
+        Least window ends of a reference block, at most ``reference_windows``.
 
     Notes
     -----
-    An entry threshold of ``inf`` switches its statistic off. How the defaults were
-    calibrated is in the module docstring.
+    An entry threshold of ``inf`` switches its statistic off: it neither opens nor holds an
+    episode. How the defaults were measured is in docs/signals.md.
     """
 
     cusum_reference: float = 0.01
