@@ -1176,6 +1176,9 @@ class Store:
             t = runs[runs["tail"] == tail].assign(
                 first_date=lambda x: pd.to_datetime(x["first_date"]),
                 last_date=lambda x: pd.to_datetime(x["last_date"]))
+            if t.empty:  # no alert run (an empty frame's key columns are not text)
+                out[f"alert_{tail}"] = 0.0
+                continue
             hit = out.reset_index().merge(t, on=["asset_a", "asset_b"])
             hit = hit[(hit["first_date"] <= hit["date"]) & (hit["date"] <= hit["last_date"])]
             out[f"alert_{tail}"] = out.index.isin(hit["index"]).astype(float)

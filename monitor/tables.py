@@ -556,7 +556,10 @@ def tidy_frame(frame: pd.DataFrame, path: str | Path, lines: np.ndarray | None =
     wide.index.name = "date"
     wide = wide.sort_index()
     empty = [c for c in wide.columns if wide[c].notna().sum() == 0]
-    if empty:
+    if empty and len(wide) == 1 and len(empty) < wide.shape[1]:
+        # One day of closes: a blank cell is an asset with no price that day (a holiday).
+        wide = wide.drop(columns=empty)
+    elif empty:
         raise InputError(f"{path}: column {empty[0]!r} has no values")
     return wide.astype(float)
 

@@ -371,3 +371,39 @@ def test_fit_reads_an_exported_file_with_the_same_options_as_ingest(tmp_path, ca
     assert json.loads(capsys.readouterr().out) == want
     assert cli.main(["fit", str(exported), *args]) == 2
     assert "give --sep ';'" in capsys.readouterr().err
+
+
+def test_a_day_with_one_asset_closed_carries_its_pairs_and_the_next_day_updates(
+        tmp_path, monkeypatch, capsys):
+    # Real open series on two calendars: WTI crude (arch.data.wti, FRED spot price) trades on
+    # days the equity indices do not, and the other way round. A one-day wide file with the
+    # closed asset's cell blank is that asset's holiday; the universe summary then carries
+    # its pairs, and an update on a recent past without any alert (no alert runs to match)
+    # once failed there.
+    from arch.data import wti
+
+    monkeypatch.chdir(tmp_path)
+    monkeypatch.delenv("COMOVE_CONFIG", raising=False)
+    monkeypatch.delenv("COMOVE_STORE", raising=False)
+    oil = wti.load().iloc[:, 0]
+    oil.index = pd.DatetimeIndex(oil.index)
+    closes = _real_closes(386)
+    closes["WTI"] = oil.reindex(closes.index)  # blank on 1999-12-31, 2000-01-03, 2000-07-03
+    history, days = closes.iloc[:370], closes.iloc[370:]
+    daily = _config(tmp_path, "daily")
+    assert _main(capsys, "ingest", _write_exact(history, tmp_path / "history.csv"),
+                 "--config", daily)[0] == 0
+    assert _main(capsys, "update", "--config", daily)[0] == 0
+    blank = days[days.isna().any(axis=1)].index
+    assert len(blank)  # the stretch has a day on which one asset has no price
+    for k in range(len(days)):
+        one = days.iloc[[k]]
+        path = tmp_path / f"day{k}.csv"
+        one.to_csv(path, date_format="%Y-%m-%d")
+        code, out, err = _main(capsys, "ingest", str(path), "--config", daily)
+        assert code == 0, err
+        priced = int(one.notna().sum(axis=1).iloc[0])
+        assert f"stored {priced} new value(s) (prices) for {priced} asset(s)" in out
+        code, out, err = _main(capsys, "update", "--config", daily)
+        assert code == 0, err
+        assert "unexpected" not in err

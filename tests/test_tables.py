@@ -413,6 +413,12 @@ def test_one_row_is_a_valid_file(tmp_path):
     # A day of closes (issue 12): whether it gives returns depends on the store (ingest).
     got = read_series(write(tmp_path, "day.csv", "date,ALDER,BIRCH\n2021-03-05,103.5,50.75\n"))
     assert got.shape == (1, 2) and got.index[0] == pd.Timestamp("2021-03-05")
+    # A blank cell in a one-day file is that asset's holiday: the asset is left out. A day
+    # with no price at all is still refused.
+    got = read_series(write(tmp_path, "hol.csv", "date,ALDER,BIRCH\n2021-03-05,103.5,\n"))
+    assert list(got.columns) == ["ALDER"] and got.iloc[0, 0] == 103.5
+    with pytest.raises(InputError, match=r"column 'ALDER' has no values$"):
+        read_series(write(tmp_path, "none.csv", "date,ALDER,BIRCH\n2021-03-05,,\n"))
 
 
 EXPORT_REFUSALS = [
