@@ -55,8 +55,17 @@ def test_settings_in_words(view):
     assert words.startswith("marginals: GARCH-type filter, real-time mode (refit every 21 days")
     assert "rolling copulas: window 120 days, step 1, all families, selection by AIC, tail " \
            "level q = 0.1" in words
-    assert "signal thresholds: the calibrated defaults (sequential divergence enters at 4.75 " \
-           "and leaves below 3.5, 0.01 nats a day taken off, capped at 5.25" in words
+    assert "signal thresholds: the calibrated defaults (measured against the pair's own 500 " \
+           "window ends before the current window" in words
+    assert "sequential divergence enters at 5.5 and leaves below 4.5, 0.01 nats a day taken " \
+           "off at least, capped at 6;" in words
+    assert "family switch off; no episode opens on a tail whose model-averaged coefficient " \
+           "is below 0.1" in words
+    # The key of an older version reads as words too, never raw.
+    old = view.rolling_key + "|cusum0.01:4.75-3.5:cap5.25/window8-6:gate1-1/spike3-1.5:ref250" \
+        "/switch0.9-0.5:tail0.1:aic10:last60/days3-5/v1"
+    assert "enters at 4.75" in settings_words(old) and "family switch 0.9/0.5" in \
+        settings_words(old)
     assert settings_words(view.signals_key, short=True) == (
         "real-time marginals; window 120 days, step 1, all families, AIC; signal thresholds: "
         "the calibrated defaults")
