@@ -197,8 +197,9 @@ def layout(view, query: dict[str, str]) -> html.Div:
               note="The thresholds that produced these episodes (monitor.signals."
                    "SignalSettings) and the alert e-mail settings of the configuration "
                    f"({view.cfg.source}); credentials appear only as the names of the "
-                   "environment variables that hold them. Calibration: README, "
-                   "'Regime signals'."),
+                   "environment variables that hold them. How the defaults were measured "
+                   "(delay to a tail change, alerts on pairs that never change, precision on "
+                   "the demo): docs/signals.md in the installation."),
         panel("Outbox", _outbox(view),
               note="Alert e-mails queued by the daily update, one per event of a rule in force: "
                    "pending until delivered by 'comove alerts send' (a failed delivery stays "

@@ -17,9 +17,11 @@ TITLE = "Timeline"
 BANDS_NOTE = (
     "Bands are pointwise 95% intervals: tau ± 1.96 influence-function s.e.; the nonparametric "
     "C(q,q)/q with the Wilson interval of its binomial proportion, cut at 1 (C(q,q) cannot "
-    "exceed q). The model-implied tail "
-    "coefficients have no stored standard error (the Drill-down page gives bootstrap "
-    "intervals for a chosen window). Shading: alert episodes, lower tail in vermilion on the "
+    "exceed q). The model-based line is the model-averaged coefficient (each candidate "
+    "family's weighted by its Akaike weight); the selected family's own, which jumps when the "
+    "choice flips between tail-free and tail-dependent families, shows on a click in the "
+    "legend. Model-based coefficients have no stored standard error (the Drill-down page "
+    "gives bootstrap intervals for a chosen window). Shading: alert episodes, lower tail in vermilion on the "
     "tau and lower rows, upper tail in purple on the tau and upper rows.")
 
 

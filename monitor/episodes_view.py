@@ -419,7 +419,7 @@ def rules_table(settings: SignalSettings, email: EmailConfig | None = None, *,
         :data:`RULE_COLUMNS`; values as text. ``calibration`` says whether the grid of
         ``tests/benchmarks/bench_detection.py`` tuned a threshold (calibration seeds of the
         ``tail-shift`` and ``steady-pair`` scenarios, window 250, checked on separate
-        evaluation seeds; README, "Regime signals") or whether it kept its designed value.
+        evaluation seeds; docs/signals.md) or whether it kept its designed value.
     """
     if not isinstance(settings, SignalSettings):
         raise TypeError(f"settings must be SignalSettings, got {type(settings).__name__}")

@@ -319,10 +319,11 @@ def pair_history(view: StoreView, a: str, b: str) -> PairHistory:
                          "(run 'comove update')")
     q = view.rolling.tail_q
     frame = timeline[["date", "start", "n", "kendall_tau", "kendall_tau_se", "family",
-                      "rotation", "converged", "tail_lower", "tail_upper", "tail_lower_emp",
-                      "tail_upper_emp", "gauss_tail_q"]].copy()
-    for col in ("kendall_tau", "kendall_tau_se", "tail_lower", "tail_upper", "tail_lower_emp",
-                "tail_upper_emp", "gauss_tail_q"):
+                      "rotation", "converged", "tail_lower", "tail_upper", "tail_lower_avg",
+                      "tail_upper_avg", "tail_lower_emp", "tail_upper_emp",
+                      "gauss_tail_q"]].copy()
+    for col in ("kendall_tau", "kendall_tau_se", "tail_lower", "tail_upper", "tail_lower_avg",
+                "tail_upper_avg", "tail_lower_emp", "tail_upper_emp", "gauss_tail_q"):
         frame[col] = pd.to_numeric(frame[col]).astype(float)
     low, high = tau_band(frame["kendall_tau"], frame["kendall_tau_se"])
     frame.insert(5, "tau_low", low)
@@ -498,8 +499,10 @@ def timeline_figure(history: PairHistory) -> go.Figure:
     """The pair's timeline: four rows sharing the date axis.
 
     Rows: Kendall's tau with its 95 % band; the lower and the upper tail, each with the
-    nonparametric concordance ``C_n(q,q)/q`` and its Wilson band, the selected family's
-    model-implied coefficient and the Gaussian copula's value at the window's tau; a strip
+    nonparametric concordance ``C_n(q,q)/q`` and its Wilson band, the model-averaged
+    coefficient (Akaike weights), the selected family's own coefficient (hidden until its
+    legend entry is clicked: it flips with the selection) and the Gaussian copula's value at
+    the window's tau; a strip
     of four rows (:data:`STRIP_ROWS`): the selected family, its rotation (shaded light to
     dark: 0, 90, 180, 270 degrees; the hover names both, e.g. "clayton 180°"), and each
     tail's state. Family colours are never state colours, and tau (black) never shares a
@@ -516,7 +519,8 @@ def timeline_figure(history: PairHistory) -> go.Figure:
     -------
     plotly Figure
         Traces in order: tau band (two traces) and tau; per tail the Wilson band (two), the
-        nonparametric line, the model-implied line and the Gaussian same-tau line; the
+        nonparametric line, the model-averaged line, the selected family's line and the
+        Gaussian same-tau line; the
         strip heatmap; legend-only markers for families, rotations, states and episode
         shading. One
         shaded rectangle per episode and row.
@@ -550,10 +554,19 @@ def timeline_figure(history: PairHistory) -> go.Figure:
             hovertemplate=f"{tail} nonparametric %{{y:.3f}} (95%: %{{customdata[0]:.3f}} to "
                           "%{customdata[1]:.3f})<extra></extra>"), row=row, col=1)
         fig.add_trace(go.Scatter(
-            x=x, y=f[f"tail_{tail}"], mode="lines", name="model-implied (selected family)",
-            line={"color": model_colour, "width": 1.5}, legendgroup="model",
+            x=x, y=f[f"tail_{tail}_avg"], mode="lines", name="model-averaged (Akaike weights)",
+            line={"color": model_colour, "width": 1.5}, legendgroup="averaged",
             showlegend=first,
-            hovertemplate=f"{tail} model-implied %{{y:.3f}} (no stored s.e.)<extra></extra>"),
+            hovertemplate=f"{tail} model-averaged %{{y:.3f}} (no stored s.e.)<extra></extra>"),
+            row=row, col=1)
+        # The selected family's own coefficient jumps between 0 and a large value as the
+        # choice flips between tail-free and tail-dependent families: a click in the legend
+        # shows it.
+        fig.add_trace(go.Scatter(
+            x=x, y=f[f"tail_{tail}"], mode="lines", name="model-implied (selected family)",
+            line={"color": model_colour, "width": 1, "dash": "dot"}, legendgroup="model",
+            showlegend=first, visible="legendonly",
+            hovertemplate=f"{tail} selected family %{{y:.3f}} (no stored s.e.)<extra></extra>"),
             row=row, col=1)
         fig.add_trace(go.Scatter(
             x=x, y=f["gauss_tail_q"], mode="lines", name="Gaussian at the same tau",

@@ -123,6 +123,14 @@ def test_timeline_figure_traces(view):
     np.testing.assert_allclose(np.array(tau.y, float), history.frame["kendall_tau"], atol=5e-5)
     assert names.count("nonparametric C(q,q)/q") == 2  # lower and upper rows
     assert names.count("model-implied (selected family)") == 2
+    # issue 12: the model-based line shown is the model-averaged one; the selected family's,
+    # which flips with the selection, waits in the legend.
+    averaged = [t for t in fig.data if t.name == "model-averaged (Akaike weights)"]
+    assert len(averaged) == 2 and all(t.visible is None for t in averaged)
+    np.testing.assert_allclose(np.array(averaged[0].y, float),
+                               history.frame["tail_lower_avg"], atol=5e-5)
+    assert {t.visible for t in fig.data if t.name == "model-implied (selected family)"} == {
+        "legendonly"}
     heat = [t for t in fig.data if t.type == "heatmap"]
     # issue 12: the strip gained a rotation row beneath the family row
     assert len(heat) == 1 and list(heat[0].y) == ["family", "rotation", "lower state",
