@@ -82,6 +82,7 @@ from .errors import InputError
 
 __all__ = [
     "CAUSES",
+    "EARLIER_DEFAULTS",
     "IQR_TO_SIGMA",
     "REQUIRED_COLUMNS",
     "SIGNAL_COLUMNS",
@@ -260,6 +261,13 @@ class SignalSettings:
             raise ValueError(f"unknown statistic {statistic!r}; known: {', '.join(STATISTICS)}")
         prefix = "cusum" if statistic == "sequential" else statistic
         return getattr(self, f"{prefix}_entry"), getattr(self, f"{prefix}_exit")
+
+
+#: The defaults before the pair's own baseline (settings key ``/v1``): every statistic against
+#: the Gaussian at the window's tau. For comparisons (benchmarks, tests), not for monitoring.
+EARLIER_DEFAULTS = SignalSettings(baseline=False, cusum_entry=4.75, cusum_exit=3.5,
+                                  cusum_cap=5.25, window_entry=8.0, window_exit=6.0,
+                                  reference_windows=250, switch_entry=0.9, alert_min_tail=0.0)
 
 
 @dataclass(frozen=True, slots=True)

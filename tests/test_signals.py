@@ -27,6 +27,7 @@ from monitor.rolling import (
     window_end_positions,
 )
 from monitor.signals import (
+    EARLIER_DEFAULTS,
     IQR_TO_SIGMA,
     REQUIRED_COLUMNS,
     SIGNAL_COLUMNS,
@@ -73,10 +74,6 @@ def _ratios_for_path(path) -> np.ndarray:
 # The hand-made timelines test the mechanics against the Gaussian yardstick (no baseline, no
 # materiality gate); the pair's own baseline has its own tests below.
 YARDSTICK = {"baseline": False, "alert_min_tail": 0.0}
-#: The earlier defaults: every statistic against the Gaussian at the window's tau.
-GAUSSIAN_YARDSTICK = SignalSettings(baseline=False, cusum_entry=4.75, cusum_exit=3.5,
-                                    cusum_cap=5.25, window_entry=8.0, window_exit=6.0,
-                                    switch_entry=0.9)
 # Only the sequential statistic, with levels that make hand paths easy to read.
 SEQUENTIAL_ONLY = SignalSettings(**YARDSTICK, cusum_reference=0.0, cusum_entry=1.0, cusum_exit=0.5,
                                  cusum_cap=100.0, window_entry=np.inf, spike_entry=np.inf,
@@ -241,7 +238,7 @@ def gaussian_and_clayton_signals():
         uv = family(name).sample(n, params, np.random.default_rng(1))
         z = stats.norm.ppf(uv)
         m = pair_metrics(dates, z[:, 0], z[:, 1], rs, window_end_positions(n, rs))
-        out[name] = pair_signals(m.frame, GAUSSIAN_YARDSTICK)
+        out[name] = pair_signals(m.frame, EARLIER_DEFAULTS)
         out[f"{name}, own baseline"] = pair_signals(m.frame)
     return out
 
@@ -269,7 +266,7 @@ def test_divergence_is_near_zero_on_gaussian_and_positive_on_clayton(
     assert ratio["gaussian"] < 3.0 and ratio["clayton"] > 10.0
     # The sequential statistic: near 0 under the Gaussian, near its ceiling under Clayton.
     # (Bounds chosen to hold for seeds 0-7, not only this one.)
-    s = GAUSSIAN_YARDSTICK
+    s = EARLIER_DEFAULTS
     assert gauss["sequential_lower"].median() < s.cusum_exit
     assert clay["sequential_lower"].iloc[-100:].median() > s.cusum_exit
     assert gauss["alert"].sum() == 0

@@ -26,16 +26,10 @@ import pandas as pd
 
 from callbacks.serve import prepare_demo
 from monitor.pipeline import rolling_key, rolling_settings
-from monitor.signals import SignalSettings, pair_signals
+from monitor.signals import EARLIER_DEFAULTS, SignalSettings, pair_signals
 from monitor.store import Store
 from synthetic_feeds import TRUTH_FILE
 from synthetic_feeds.scoring import score_episodes
-
-# The earlier defaults (before the pair's own baseline), for the comparison.
-GAUSSIAN_YARDSTICK = SignalSettings(baseline=False, cusum_entry=4.75, cusum_exit=3.5,
-                                    cusum_cap=5.25, window_entry=8.0, window_exit=6.0,
-                                    reference_windows=250, switch_entry=0.9,
-                                    alert_min_tail=0.0)
 
 
 def main() -> None:
@@ -52,7 +46,7 @@ def main() -> None:
     print(f"demo: {len(timelines)} pairs, window {window}; store ready in "
           f"{time.perf_counter() - t0:.0f} s")
     for label, settings in (("defaults (own baseline)", SignalSettings()),
-                            ("earlier defaults (against the Gaussian)", GAUSSIAN_YARDSTICK)):
+                            ("earlier defaults (against the Gaussian)", EARLIER_DEFAULTS)):
         episodes = {pair: pair_signals(t, settings).episodes for pair, t in timelines.items()}
         # Truth pairs may list the assets in the other order; tails do not depend on it.
         order = {tuple(sorted(p["pair"])): tuple(p["pair"]) for p in truth["pairs"]}

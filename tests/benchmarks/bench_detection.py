@@ -55,7 +55,7 @@ import pandas as pd
 
 from monitor.marginals import filter_series
 from monitor.rolling import RollingSettings, pair_metrics, window_end_positions
-from monitor.signals import SignalSettings, pair_signals
+from monitor.signals import EARLIER_DEFAULTS, SignalSettings, pair_signals
 from synthetic_feeds import Scenario, generate
 
 #: Benchmark label -> (scenario, options). Every label but ``tail-shift`` is a null: its
@@ -76,12 +76,6 @@ EVALUATION = {"tail-shift": range(2000, 2020), "steady-pair": range(2000, 2008),
 #: Seeds first used after the defaults were fixed: the independent check.
 FRESH = {"tail-shift": range(3000, 3024), "steady-t": range(3000, 3008),
          "steady-clayton": range(3000, 3008)}
-#: The defaults before the own baseline (every statistic against the Gaussian), for the
-#: before/after comparison.
-GAUSSIAN_YARDSTICK = SignalSettings(baseline=False, cusum_entry=4.75, cusum_exit=3.5,
-                                    cusum_cap=5.25, window_entry=8.0, window_exit=6.0,
-                                    reference_windows=250, switch_entry=0.9,
-                                    alert_min_tail=0.0)
 TARGET_DELAY, TARGET_SHARE, TARGET_EPISODES = 100.0, 2.0, 1.0
 
 
@@ -335,7 +329,7 @@ def main() -> None:
             report(f"{stat} statistic alone", score(timelines, only(defaults, stat)),
                    timelines)
         report("before: every statistic against the Gaussian (the earlier defaults)",
-               score(timelines, GAUSSIAN_YARDSTICK), timelines)
+               score(timelines, EARLIER_DEFAULTS), timelines)
     print(f"\ntotal {time.perf_counter() - t0:.0f} s")
 
 
