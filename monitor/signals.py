@@ -179,9 +179,9 @@ class SignalSettings:
     """
 
     cusum_reference: float = 0.01
-    cusum_entry: float = 5.5
-    cusum_exit: float = 4.5
-    cusum_cap: float = 6.0
+    cusum_entry: float = 5.0
+    cusum_exit: float = 4.0
+    cusum_cap: float = 5.5
     window_entry: float = 8.0
     window_exit: float = 6.0
     excess_gate: float = 1.0

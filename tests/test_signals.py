@@ -406,7 +406,7 @@ def test_settings_are_frozen_validated_and_keyed():
     with pytest.raises(dataclasses.FrozenInstanceError):
         s.cusum_entry = 1.0
     assert s.key == SignalSettings().key
-    assert s.key != SignalSettings(cusum_entry=5.0).key and s.key.endswith("/v2")
+    assert s.key != SignalSettings(cusum_entry=5.25).key and s.key.endswith("/v2")
     assert SignalSettings(baseline=False).key != s.key
     with pytest.raises(ValueError, match="cusum_exit"):
         SignalSettings(cusum_exit=6.0)

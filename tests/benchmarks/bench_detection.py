@@ -74,8 +74,8 @@ CALIBRATION = {"tail-shift": range(24), "steady-pair": range(8),
 EVALUATION = {"tail-shift": range(2000, 2020), "steady-pair": range(2000, 2008),
               **{k: range(2000, 2012) for k in NULLS[1:]}}
 #: Seeds first used after the defaults were fixed: the independent check.
-FRESH = {"tail-shift": range(3000, 3024), "steady-t": range(3000, 3008),
-         "steady-clayton": range(3000, 3008)}
+FRESH = {"tail-shift": range(4000, 4024), "steady-t": range(4000, 4008),
+         "steady-clayton": range(4000, 4008)}
 TARGET_DELAY, TARGET_SHARE, TARGET_EPISODES = 100.0, 2.0, 1.0
 
 

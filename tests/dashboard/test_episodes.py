@@ -122,7 +122,7 @@ def test_rules_table_names_every_threshold_and_no_secret(monkeypatch):
             "inf (statistic off)" if value == np.inf else f"{value:g}")
         assert by_name.loc[f.name, "value"] == want
         assert by_name.loc[f.name, "meaning"]
-    assert by_name.loc["cusum_entry", "value"] == "5.5"  # docs/signals.md, the defaults
+    assert by_name.loc["cusum_entry", "value"] == "5"  # docs/signals.md, the defaults
     assert by_name.loc["switch_entry", "value"] == "inf (statistic off)"
     assert by_name.loc["baseline", "value"] == "yes"
     assert by_name.loc["cusum_entry", "calibration"].startswith("tuned")
@@ -131,7 +131,7 @@ def test_rules_table_names_every_threshold_and_no_secret(monkeypatch):
     assert by_name.loc["alerts.email.password_env", "value"] == "$COMOVE_TEST_SMTP_PASSWORD"
     assert by_name.loc["alerts.email.starttls", "value"] == "true"
     assert "do-not-show-7731" not in rules.to_csv()
-    changed = rules_table(SignalSettings(cusum_entry=5.0))
+    changed = rules_table(SignalSettings(cusum_entry=5.25))
     assert changed.set_index("setting").loc["cusum_entry", "calibration"].startswith("set by")
     assert not changed["group"].eq("alert e-mail").any()
 

@@ -57,8 +57,8 @@ def test_settings_in_words(view):
            "level q = 0.1" in words
     assert "signal thresholds: the calibrated defaults (measured against the pair's own 500 " \
            "window ends before the current window" in words
-    assert "sequential divergence enters at 5.5 and leaves below 4.5, 0.01 nats a day taken " \
-           "off at least, capped at 6;" in words
+    assert "sequential divergence enters at 5 and leaves below 4, 0.01 nats a day taken " \
+           "off at least, capped at 5.5;" in words
     assert "family switch off; no episode opens on a tail whose model-averaged coefficient " \
            "is below 0.1" in words
     # The key of an older version reads as words too, never raw.
