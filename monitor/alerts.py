@@ -8,8 +8,8 @@ Rules (``[[alerts.rules]]``, see :class:`monitor.config.AlertRule`):
 
 - ``episode``: a tail/centre divergence, tail spike or family-switch episode starts (and,
   with ``on_end``, ends). A new episode of the same pair and tail within
-  ``alerts.cooldown_days`` after the previous one ended is recorded but not mailed: about a
-  quarter of the true changes in the detection benchmark raise two episodes in a row.
+  ``alerts.cooldown_days`` after the previous one ended is recorded but not mailed: about
+  half of the true changes in the detection benchmark raise two episodes in a row.
 - ``tail-level``: the tail coefficient (nonparametric C_n(q,q)/q or the selected family's)
   crosses above ``above``.
 - ``tail-rise``: it rose by at least ``rise`` over the last ``days`` window ends.
