@@ -76,7 +76,7 @@ EVALUATION = {"tail-shift": range(2000, 2020), "steady-pair": range(2000, 2008),
 #: Seeds first used after the defaults were fixed: the independent check.
 FRESH = {"tail-shift": range(4000, 4024), "steady-t": range(4000, 4008),
          "steady-clayton": range(4000, 4008)}
-TARGET_DELAY, TARGET_SHARE, TARGET_EPISODES = 100.0, 2.0, 1.0
+TARGET_DELAY, TARGET_SHARE = 100.0, 2.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -151,10 +151,7 @@ class Figures:
     upper_after_change: int
     coverage: float             # share of days in lower alert from first detection to the end
     calm_episodes_per_4y: float
-    steady_share: np.ndarray    # per seed, % of windows in alert
-    steady_episodes: int
-    steady_years: float
-    steady_by: dict[tuple[str, str], int]
+    steady_by: dict[tuple[str, str], int]  # steady-pair false episodes by (tail, statistic)
     nulls: dict[str, tuple[float, float, float]]  # label -> (% windows, max %, episodes / 4y)
 
     @property
@@ -164,14 +161,6 @@ class Figures:
     def delay_quantiles(self) -> tuple[float, float, float]:
         d = self.delays  # undetected count as longer than any detected delay
         return tuple(float(np.quantile(d, p, method="inverted_cdf")) for p in (0.25, .5, .75))
-
-    @property
-    def share(self) -> float:
-        return float(np.mean(self.steady_share))
-
-    @property
-    def episodes_per_4y(self) -> float:
-        return 4.0 * self.steady_episodes / self.steady_years
 
 
 def score(timelines: dict[str, list[Timeline]], settings: SignalSettings) -> Figures:
@@ -191,16 +180,7 @@ def score(timelines: dict[str, list[Timeline]], settings: SignalSettings) -> Fig
             cover.append(sig.frame["alert_lower"][dates >= lower[0].start].mean())
         else:
             delays.append(np.inf)
-    shares, eps, years, by = [], 0, 0.0, {}
-    for t in timelines.get("steady-pair", []):
-        sig = pair_signals(t.frame, settings)
-        dates = pd.to_datetime(sig.frame["date"])
-        shares.append(100.0 * sig.frame["alert"].mean())
-        eps += len(sig.episodes)
-        years += (dates.iloc[-1] - dates.iloc[0]).days / 365.25
-        for e in sig.episodes:
-            by[(e.tail, e.statistic)] = by.get((e.tail, e.statistic), 0) + 1
-    nulls = {}
+    nulls, by = {}, {}
     for label in NULLS:
         null_shares, null_eps, null_years = [], 0, 0.0
         for t in timelines.get(label, []):
@@ -209,13 +189,16 @@ def score(timelines: dict[str, list[Timeline]], settings: SignalSettings) -> Fig
             null_shares.append(100.0 * sig.frame["alert"].mean())
             null_eps += len(sig.episodes)
             null_years += (dates.iloc[-1] - dates.iloc[0]).days / 365.25
+            if label == "steady-pair":
+                for e in sig.episodes:
+                    by[(e.tail, e.statistic)] = by.get((e.tail, e.statistic), 0) + 1
         if null_shares:
             nulls[label] = (float(np.mean(null_shares)), float(np.max(null_shares)),
                             4.0 * null_eps / null_years)
     coverage = float(np.mean(cover)) if cover else float("nan")
     calm_rate = 4.0 * calm_eps / calm_years if calm_years else float("nan")
     return Figures(np.array(delays, dtype=float), first, np.array(after), upper, coverage,
-                   calm_rate, np.array(shares), eps, years, by, nulls)
+                   calm_rate, by, nulls)
 
 
 def report(label: str, fig: Figures, timelines: dict[str, list[Timeline]]) -> None:
