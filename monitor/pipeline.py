@@ -383,24 +383,28 @@ def read_pair_signals(store: Store, cfg: Config, a: str, b: str,
     return pair_signals(timeline, settings)
 
 
-def _episode_row(e, frame: pd.DataFrame) -> dict:
-    """An episode as a store row, with its evidence on its latest day (the end, or the newest
-    window end while open) when ``frame`` holds that day (a continued computation's frame
-    may not hold an end before its new rows: the stored figure then stays)."""
-    row = {"tail": e.tail, "start": e.start.date(), "onset": e.onset.date(),
-           "end": None if e.end is None else e.end.date(), "cause": e.cause,
-           "statistic": e.statistic, "peak_date": e.peak_date.date(),
-           "peak_value": float(e.peak_value), "peak_tail_emp": float(e.peak_tail_emp),
-           "peak_tail_model": float(e.peak_tail_model),
-           "peak_gauss_tail": float(e.peak_gauss_tail),
-           "peak_kendall_tau": float(e.peak_kendall_tau)}
-    dates = pd.to_datetime(frame["date"])
-    latest = dates.iloc[-1] if e.end is None else e.end
-    at = np.flatnonzero(dates.to_numpy() == latest.to_datetime64())
-    if at.size:
-        row["latest_date"] = latest.date()
-        row["latest_value"] = float(frame[f"evidence_{e.tail}"].iloc[at[0]])
-    return row
+def _episode_rows(sig: PairSignals) -> list[dict]:
+    """A pair's episodes as store rows, each with its evidence on its latest day (the end, or
+    the newest window end while open) when the signals' frame holds that day (a continued
+    computation's frame may not hold an end before its new rows: the stored figure then
+    stays)."""
+    dates = pd.to_datetime(sig.frame["date"]).to_numpy()
+    rows = []
+    for e in sig.episodes:
+        row = {"tail": e.tail, "start": e.start.date(), "onset": e.onset.date(),
+               "end": None if e.end is None else e.end.date(), "cause": e.cause,
+               "statistic": e.statistic, "peak_date": e.peak_date.date(),
+               "peak_value": float(e.peak_value), "peak_tail_emp": float(e.peak_tail_emp),
+               "peak_tail_model": float(e.peak_tail_model),
+               "peak_gauss_tail": float(e.peak_gauss_tail),
+               "peak_kendall_tau": float(e.peak_kendall_tau)}
+        latest = dates[-1] if e.end is None else e.end.to_datetime64()
+        at = np.flatnonzero(dates == latest)
+        if at.size:
+            row["latest_date"] = pd.Timestamp(latest).date()
+            row["latest_value"] = float(sig.frame[f"evidence_{e.tail}"].iloc[at[0]])
+        rows.append(row)
+    return rows
 
 
 @dataclass(frozen=True, slots=True)
@@ -563,7 +567,7 @@ def _pair_signals_job(store: Store, job: _SignalJob) -> _PairSignalsOut | None:
     nxt = sig.resume_at(job.keep) or sig.resumed_from
     payload = None if nxt is None else nxt.to_dict()
     since = None if sig.resumed_from is None else sig.resumed_from.date.date()
-    return _PairSignalsOut(job.a, job.b, [_episode_row(e, sig.frame) for e in sig.episodes],
+    return _PairSignalsOut(job.a, job.b, _episode_rows(sig),
                            state_runs(sig.frame), tails, sig.frame.tail(job.keep), since,
                            pd.Timestamp(last["date"]).date(), payload,
                            payload != job.resume)

@@ -589,6 +589,14 @@ def hysteresis(active: ArrayLike, quiet: ArrayLike, entry_days: int, exit_days: 
         after = close + 1
 
 
+def _at_reference(rolled: NDArray[np.float64], reference_end: NDArray[np.intp]
+                  ) -> NDArray[np.float64]:
+    """A trailing statistic read at each row's reference block: the value the rolling
+    computation has on the row before ``reference_end`` (NaN where there is none)."""
+    end = reference_end - 1
+    return np.where(end >= 0, rolled[np.maximum(end, 0)], np.nan)
+
+
 def robust_z_against_history(values: ArrayLike, se: ArrayLike, reference_end: ArrayLike,
                              length: int) -> NDArray[np.float64]:
     """Robust z-score of each value against a trailing block of the same series.
@@ -619,15 +627,13 @@ def robust_z_against_history(values: ArrayLike, se: ArrayLike, reference_end: Ar
     understates.
     """
     x = pd.Series(np.asarray(values, dtype=float))
-    roll = x.rolling(length, min_periods=length)
-    med = roll.median().to_numpy()
-    iqr = (roll.quantile(0.75) - roll.quantile(0.25)).to_numpy()
-    end = np.asarray(reference_end, dtype=np.intp) - 1
-    ok = end >= length - 1
-    at = np.where(ok, end, 0)
-    scale = np.sqrt((iqr[at] / IQR_TO_SIGMA) ** 2 + np.asarray(se, dtype=float) ** 2)
+    roll = x.rolling(length, min_periods=length)  # NaN where the block is short
+    end = np.asarray(reference_end, dtype=np.intp)
+    med = _at_reference(roll.median().to_numpy(), end)
+    iqr = _at_reference((roll.quantile(0.75) - roll.quantile(0.25)).to_numpy(), end)
+    scale = np.sqrt((iqr / IQR_TO_SIGMA) ** 2 + np.asarray(se, dtype=float) ** 2)
     with np.errstate(divide="ignore", invalid="ignore"):
-        z = np.where(ok & (scale > 0), (x.to_numpy() - med[at]) / scale, np.nan)
+        z = np.where(scale > 0, (x.to_numpy() - med) / scale, np.nan)
     return read_only(z)
 
 
@@ -649,14 +655,6 @@ def _check_timeline(timeline: pd.DataFrame) -> pd.DataFrame:
         raise InputError(f"timeline: dates must be strictly increasing (row {bad}, "
                          f"{frame['date'].iloc[bad].date()})")
     return frame
-
-
-def _at_reference(rolled: NDArray[np.float64], reference_end: NDArray[np.intp]
-                  ) -> NDArray[np.float64]:
-    """A trailing statistic read at each row's reference block: the value the rolling
-    computation has on the row before ``reference_end`` (NaN where there is none)."""
-    end = reference_end - 1
-    return np.where(end >= 0, rolled[np.maximum(end, 0)], np.nan)
 
 
 def _tail_statistics(frame: pd.DataFrame, tail: str, s: SignalSettings,
@@ -722,11 +720,14 @@ def _tail_statistics(frame: pd.DataFrame, tail: str, s: SignalSettings,
     recent = pd.Series(counts).rolling(s.switch_windows, min_periods=s.switch_windows).mean()
     past = pd.Series(counts).rolling(s.reference_windows,
                                      min_periods=s.reference_windows).mean().to_numpy()
-    end = reference_end - 1
-    ok = end >= s.reference_windows - 1
-    switch = np.where(ok, recent.to_numpy() - past[np.where(ok, end, 0)], np.nan)
+    switch = recent.to_numpy() - _at_reference(past, reference_end)
+    # Materiality: no episode opens on a tail that, model-averaged, is not there at all
+    # (older timelines without the averaged figure use the selected family's).
+    if f"tail_{tail}_avg" in frame.columns:
+        avg = num(f"tail_{tail}_avg")
+        model = np.where(np.isnan(avg), model, avg)
     return {"excess": excess, "window": window, "sequential": sequential, "spike": spike,
-            "switch": switch}
+            "switch": switch, "material": ~(model < s.alert_min_tail)}
 
 
 def _tail_episodes(frame: pd.DataFrame, tail: str, stats: dict[str, NDArray[np.float64]],
@@ -754,13 +755,7 @@ def _tail_episodes(frame: pd.DataFrame, tail: str, stats: dict[str, NDArray[np.f
     strength[w] = np.where(excess >= s.excess_gate, strength[w], 0.0)
     active_each[w] &= excess >= s.excess_gate
     holding[w] &= excess >= s.excess_hold
-    # Materiality: no episode opens on a tail that, model-averaged, is not there at all
-    # (older timelines without the averaged figure use the selected family's).
-    model = frame[f"tail_{tail}"].to_numpy(dtype=float, na_value=np.nan)
-    if f"tail_{tail}_avg" in frame.columns:
-        avg = frame[f"tail_{tail}_avg"].to_numpy(dtype=float, na_value=np.nan)
-        model = np.where(np.isnan(avg), model, avg)
-    material = ~(model < s.alert_min_tail)
+    material = stats["material"]
     strength[:, ~material] = 0.0
     active_each &= material
     quiet = ~holding.any(axis=0)
