@@ -52,8 +52,8 @@ def _table(data) -> tuple[list[dict], list[dict], list[str], str]:
     frame.insert(2, "history", links)
     # Shown headers drop "nonparametric" (the page's note says the tails are C(q,q)/q), so
     # that no header word is wider than its numbers; the ids keep the full names.
-    columns = [{"name": str(c).replace(" nonparametric", " tail").replace("tail tail", "tail"),
-                "id": str(c)} for c in frame.columns]
+    columns = [{"name": str(c).replace(" tail nonparametric", " tail")
+                .replace(" nonparametric", " tail"), "id": str(c)} for c in frame.columns]
     columns[2]["presentation"] = "markdown"
     for c in columns:
         if frame[c["id"]].dtype.kind in "fi":
