@@ -693,8 +693,9 @@ def _tail_statistics(frame: pd.DataFrame, tail: str, s: SignalSettings,
             trailing(np.where(np.isfinite(window), window, np.nan)).median().to_numpy(),
             ref_end)
         # In standard deviations: a likelihood-ratio statistic's variance grows about
-        # twice as fast as its mean, so a heavy-tailed baseline moves more from window to
-        # window. NaN (no evidence) until a level exists.
+        # twice as fast as its mean (twice the log ratio is noncentral chi-square, mean
+        # k + lambda, variance 2k + 4 lambda; from memory), so a heavy-tailed baseline moves
+        # more from window to window. NaN (no evidence) until a level exists.
         floor = np.maximum(level, 0.0)
         window = (window - floor) / np.sqrt(1.0 + 2.0 * floor)
         spike_of = diff
