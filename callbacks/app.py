@@ -20,8 +20,8 @@ from layouts import ids
 from layouts.pages import PAGES
 from layouts.shell import nav, not_found, shell
 from monitor.config import Config
-from monitor.store import Store
-from monitor.views import StoreView
+from monitor.data.store import Store
+from monitor.views.common import StoreView
 
 #: Environment variable holding the access secret required off the loopback interface.
 SECRET_ENV = "COMOVE_DASHBOARD_SECRET"

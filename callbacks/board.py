@@ -1,6 +1,6 @@
 """Callbacks of the Board page: the date, the horizon and the tail source in; change,
 level and excess matrices, ranking and the universe summary out (all computed by
-:func:`monitor.board.board_data`)."""
+:func:`monitor.views.board.board_data`)."""
 
 from __future__ import annotations
 
@@ -11,7 +11,9 @@ from dash import Input, Output
 
 from layouts import ids
 from layouts.components import filter_action, message, shape_columns
-from monitor.board import (
+from monitor.common.errors import InputError
+from monitor.common.palette import figure_layout
+from monitor.views.board import (
     DEFAULT_HORIZON,
     DEFAULT_TAIL_SOURCE,
     HORIZONS,
@@ -24,8 +26,6 @@ from monitor.board import (
     ranking_table,
     summary_figure,
 )
-from monitor.errors import InputError
-from monitor.palette import figure_layout
 
 #: Outputs of :func:`show_board`, in order.
 OUTPUTS = ((ids.BOARD_MATRIX_TAU, "figure"), (ids.BOARD_MATRIX_LOWER, "figure"),

@@ -14,9 +14,9 @@ from dash import Input, Output, State, dcc, no_update
 from layouts import ids
 from layouts.components import message
 from layouts.drilldown import HIDDEN, VISIBLE, results
-from monitor.drilldown import PairStudy, parse_pair, study_pair
-from monitor.errors import InputError
-from monitor.report import report_filename, report_html
+from monitor.common.errors import InputError
+from monitor.views.drilldown import PairStudy, parse_pair, study_pair
+from monitor.views.report import report_filename, report_html
 
 
 def _reference(mode: str | None, start, end):

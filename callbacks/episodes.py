@@ -7,7 +7,7 @@ from dash import Input, Output
 
 from layouts import ids
 from layouts.episodes import HISTORY_COLUMNS, count_text, episode_records, short_provenance
-from monitor.episodes_view import EpisodeFilter, episode_frame, episodes_figure, filter_episodes
+from monitor.views.episodes import EpisodeFilter, episode_frame, episodes_figure, filter_episodes
 
 
 def show_episodes(view, pair: str | None, tails: list[str] | None, causes: list[str] | None):

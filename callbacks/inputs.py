@@ -8,8 +8,10 @@ from dash import Input, Output
 from layouts import ids
 from layouts.episodes import table_frame, typed_columns
 from layouts.inputs import LAGS
-from monitor.errors import InputError
-from monitor.inputs_view import (
+from monitor.common.errors import InputError
+from monitor.common.palette import figure_layout
+from monitor.views.common import settings_words
+from monitor.views.inputs import (
     acf_figure,
     ljung_box_table,
     marginal_diagnostics,
@@ -17,8 +19,6 @@ from monitor.inputs_view import (
     qq_figure,
     residuals_figure,
 )
-from monitor.palette import figure_layout
-from monitor.views import settings_words
 
 
 def _blank(text: str) -> dict:

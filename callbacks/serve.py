@@ -25,8 +25,8 @@ from pathlib import Path
 
 import pandas as pd
 
+from monitor.common.errors import InputError
 from monitor.config import Config, StoreConfig
-from monitor.errors import InputError
 
 from .app import SECRET_ENV, create_app
 
@@ -91,7 +91,7 @@ def serve(cfg: Config, host: str = "127.0.0.1", port: int = 8050, *,
     """Serve the dashboard of ``cfg``'s store until interrupted."""
     secret = access_secret(host)
     _check_port(host, port)
-    from monitor.store import Store
+    from monitor.data.store import Store
 
     store = Store(cfg.store.url, create=False)
     app = create_app(cfg, store=store, secret=secret)
@@ -115,9 +115,9 @@ def prepare_demo(folder: str | os.PathLike = DEMO_FOLDER, store_url: str | None 
                  *, progress: bool = True) -> Config:
     """Write the demo scenario, ingest it and bring the store up to date (idempotent: a second
     run finds everything stored and only checks it). Returns the demo's configuration."""
-    from monitor.ingest import ingest_sources, read_file_source
-    from monitor.pipeline import update_marginals, update_rolling, update_signals
-    from monitor.store import Store
+    from monitor.data.ingest import ingest_sources, read_file_source
+    from monitor.data.store import Store
+    from monitor.engine.pipeline import update_marginals, update_rolling, update_signals
     from synthetic_feeds import write_scenario
 
     t0 = time.perf_counter()

@@ -12,15 +12,15 @@ from dash import Input, Output, no_update
 
 from layouts import ids
 from layouts.components import filter_action, message, records
-from monitor.errors import InputError
-from monitor.history import (
+from monitor.common.errors import InputError
+from monitor.common.palette import figure_layout
+from monitor.views.timeline import (
     episodes_table,
     pair_history,
     parse_pair,
     study_link,
     timeline_figure,
 )
-from monitor.palette import figure_layout
 
 #: Outputs of :func:`show_pair`, in order.
 OUTPUTS = ((ids.TIMELINE_FIGURE, "figure"), (ids.TIMELINE_NOTE, "children"),

@@ -1,12 +1,15 @@
 """The Board page: the universe as of a date — what changed over a horizon, dependence
 matrices, the excess over the Gaussian copula, pairs ranked by state and divergence, and the
-universe summary over time (figures from :mod:`monitor.board`)."""
+universe summary over time (figures from :mod:`monitor.views.board`)."""
 
 from __future__ import annotations
 
 from dash import dcc, html
 
-from monitor.board import (
+from monitor.common.errors import InputError
+from monitor.common.palette import STATE_COLOURS
+from monitor.stats.signals import UNIVERSE_STALE_LIMIT
+from monitor.views.board import (
     DEFAULT_HORIZON,
     DEFAULT_TAIL_SOURCE,
     HORIZON_LABELS,
@@ -17,10 +20,7 @@ from monitor.board import (
     board_range,
     parse_date,
 )
-from monitor.errors import InputError
-from monitor.history import translucent
-from monitor.palette import STATE_COLOURS
-from monitor.signals import UNIVERSE_STALE_LIMIT
+from monitor.views.timeline import translucent
 
 from . import ids
 from .components import graph, message, panel, table

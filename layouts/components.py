@@ -7,7 +7,7 @@ import pandas as pd
 from dash import dash_table, dcc, html
 from dash.dash_table import FormatTemplate
 
-from monitor.palette import FONT, GROUND, INK, MUTED, RULE, VERMILION
+from monitor.common.palette import FONT, GROUND, INK, MUTED, RULE, VERMILION
 
 from .theme import NOTE_STYLE, PANEL_STYLE
 

@@ -2,7 +2,7 @@
 
 ``layout(view, query)`` builds the controls (prefilled from ``?pair=A/B&start=YYYY-MM-DD&
 end=YYYY-MM-DD``, optionally ``&ref_start=…&ref_end=…``, as the Timeline page links here);
-``results(study)`` turns a :class:`monitor.drilldown.PairStudy` into the two result columns.
+``results(study)`` turns a :class:`monitor.views.drilldown.PairStudy` into the two result columns.
 """
 
 from __future__ import annotations
@@ -11,7 +11,9 @@ from itertools import combinations
 
 from dash import dcc, html
 
-from monitor.drilldown import (
+from monitor.common.errors import InputError
+from monitor.common.palette import MUTED, VERMILION
+from monitor.views.drilldown import (
     REPLICATE_CHOICES,
     PairStudy,
     WindowResult,
@@ -22,9 +24,12 @@ from monitor.drilldown import (
     summary_table,
     tail_table,
 )
-from monitor.drilldown_figures import crash_figure, provenance_line, scatter_figure, tail_figure
-from monitor.errors import InputError
-from monitor.palette import MUTED, VERMILION
+from monitor.views.drilldown_figures import (
+    crash_figure,
+    provenance_line,
+    scatter_figure,
+    tail_figure,
+)
 
 from . import ids
 from .components import graph, message, panel, table

@@ -13,7 +13,10 @@ import numpy as np
 import pandas as pd
 from dash import dcc, html
 
-from monitor.episodes_view import (
+from monitor.common.errors import InputError
+from monitor.stats.signals import CAUSES, TAILS, SignalSettings
+from monitor.views.common import settings_words
+from monitor.views.episodes import (
     OUTBOX_STATES,
     EpisodeFilter,
     episode_frame,
@@ -25,9 +28,6 @@ from monitor.episodes_view import (
     rules_table,
     timeline_link,
 )
-from monitor.errors import InputError
-from monitor.signals import CAUSES, TAILS, SignalSettings
-from monitor.views import settings_words
 
 from . import ids
 from .components import graph, message, panel, shape_columns, table
@@ -194,7 +194,7 @@ def layout(view, query: dict[str, str]) -> html.Div:
                   page_size=30, style_cell_conditional=[
                       {"if": {"column_id": c}, "textAlign": "left", "whiteSpace": "normal",
                        "maxWidth": "520px"} for c in ("meaning", "calibration", "setting")]),
-              note="The thresholds that produced these episodes (monitor.signals."
+              note="The thresholds that produced these episodes (monitor.stats.signals."
                    "SignalSettings) and the alert e-mail settings of the configuration "
                    f"({view.cfg.source}); credentials appear only as the names of the "
                    "environment variables that hold them. How the defaults were measured "

@@ -10,8 +10,9 @@ from types import MappingProxyType
 
 from dash import dcc, html
 
-from monitor.errors import InputError
-from monitor.inputs_view import (
+from monitor.common.errors import InputError
+from monitor.views.common import settings_words
+from monitor.views.inputs import (
     PARAMETER_NAMES,
     coverage_figure,
     coverage_table,
@@ -23,7 +24,6 @@ from monitor.inputs_view import (
     read_presence,
     revision_table,
 )
-from monitor.views import settings_words
 
 from . import ids
 from .components import graph, message, panel, table

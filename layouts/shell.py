@@ -4,8 +4,8 @@ from __future__ import annotations
 
 from dash import dcc, html
 
-from monitor.cli import CAUTION
-from monitor.palette import BLUE, INK, MUTED, PANEL, RULE
+from monitor.common.palette import BLUE, INK, MUTED, PANEL, RULE
+from monitor.common.wording import CAUTION
 
 from . import ids
 from .pages import PAGES

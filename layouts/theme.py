@@ -1,9 +1,9 @@
 """The dashboard's page styles; colours and figure defaults come from
-:mod:`monitor.palette` (shared with the HTML report and alert e-mails)."""
+:mod:`monitor.common.palette` (shared with the HTML report and alert e-mails)."""
 
 from __future__ import annotations
 
-from monitor.palette import FONT, GROUND, INK, MUTED, PANEL, RULE
+from monitor.common.palette import FONT, GROUND, INK, MUTED, PANEL, RULE
 
 PAGE_STYLE = {"backgroundColor": GROUND, "color": INK, "fontFamily": FONT,
               "minHeight": "100vh", "margin": 0}

@@ -1,13 +1,13 @@
 """The Timeline page: one pair's history — Kendall's tau and both tails with their bands,
 the selected family and the tail states over time, alert episodes shaded — and the date
-range to open in the Drill-down page (figures from :mod:`monitor.history`)."""
+range to open in the Drill-down page (figures from :mod:`monitor.views.timeline`)."""
 
 from __future__ import annotations
 
 from dash import dcc, html
 
-from monitor.errors import InputError
-from monitor.history import parse_pair
+from monitor.common.errors import InputError
+from monitor.views.timeline import parse_pair
 
 from . import ids
 from .components import graph, message, panel, table

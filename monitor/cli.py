@@ -16,11 +16,9 @@ from collections.abc import Sequence
 
 import pandas as pd
 
-from .config import Config, load_config
-from .errors import InputError
-
-CAUTION = ("Caution: statistical estimates with model risk, not investment advice; follow your "
-           "firm's model-risk policy and local regulation.")
+from monitor.common.errors import InputError
+from monitor.common.wording import CAUTION
+from monitor.config import Config, load_config
 
 
 class _Parser(argparse.ArgumentParser):
@@ -58,7 +56,7 @@ def _reading(p: argparse.ArgumentParser) -> None:
 
 def _read_options(args: argparse.Namespace):
     """The reading options of the command line, checked."""
-    from .tables import parse_columns, read_options
+    from monitor.data.tables import parse_columns, read_options
 
     columns = parse_columns(args.columns) if args.columns else None
     return read_options(sep=args.sep, decimal=args.decimal, thousands=args.thousands,
@@ -170,10 +168,10 @@ def build_parser() -> argparse.ArgumentParser:
 
 # ----------------------------------------------------------------------------- commands
 def _cmd_fit(args: argparse.Namespace, cfg: Config) -> int:
-    from .copulas import FAMILY_NAMES
-    from .marginals import MarginalSettings
-    from .tables import read_series
-    from .window_study import filtered_pair, study_window
+    from monitor.data.tables import read_series
+    from monitor.engine.window_study import filtered_pair, study_window
+    from monitor.stats.copulas import FAMILY_NAMES
+    from monitor.stats.marginals import MarginalSettings
 
     families = tuple(args.families) if args.families else cfg.rolling.families
     for name in families:
@@ -260,8 +258,13 @@ def render_study(study) -> str:
 
 
 def _cmd_ingest(args: argparse.Namespace, cfg: Config) -> int:
-    from .ingest import expand_paths, ingest_sources, read_file_source, read_sql_table_source
-    from .store import Store
+    from monitor.data.ingest import (
+        expand_paths,
+        ingest_sources,
+        read_file_source,
+        read_sql_table_source,
+    )
+    from monitor.data.store import Store
 
     if args.sql and args.files:
         raise InputError("give files or --sql, not both")
@@ -301,7 +304,7 @@ def _write_csv(frame, out: str | None) -> None:
 
 
 def _cmd_export(args: argparse.Namespace, cfg: Config) -> int:
-    from .store import Store
+    from monitor.data.store import Store
 
     if args.what == "timeline":
         return _export_timeline(args, cfg)
@@ -319,7 +322,7 @@ def _cmd_export(args: argparse.Namespace, cfg: Config) -> int:
 
 
 def _cmd_update(args: argparse.Namespace, cfg: Config) -> int:
-    from .pipeline import run_update
+    from monitor.engine.pipeline import run_update
 
     summary = run_update(cfg, progress=True)
     print("\n".join(summary.lines()), flush=True)
@@ -344,8 +347,8 @@ TIMELINE_COLUMNS = ("date", "n", "kendall_tau", "spearman_rho", "family", "rotat
 
 
 def _export_timeline(args: argparse.Namespace, cfg: Config) -> int:
-    from .pipeline import marginal_settings, read_pair_signals
-    from .store import Store
+    from monitor.data.store import Store
+    from monitor.engine.pipeline import marginal_settings, read_pair_signals
 
     a, b = args.pair
     if a == b:
@@ -393,10 +396,10 @@ def _cmd_demo(args: argparse.Namespace, cfg: Config) -> int:
 
 
 def _cmd_alerts(args: argparse.Namespace, cfg: Config) -> int:
-    from .alert_charts import chart_maker
-    from .mailer import send_pending
-    from .pipeline import rolling_key
-    from .store import Store
+    from monitor.alerts.charts import chart_maker
+    from monitor.alerts.mailer import send_pending
+    from monitor.data.store import Store
+    from monitor.engine.pipeline import rolling_key
 
     with Store(cfg.store.url, create=False) as store:
         if args.dry_run:

@@ -15,9 +15,9 @@ from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
 from typing import Any
 
-from .copulas import FAMILY_NAMES
-from .errors import InputError
-from .tables import ReadOptions, read_options
+from monitor.common.errors import InputError
+from monitor.data.tables import ReadOptions, read_options
+from monitor.stats.copulas import FAMILY_NAMES
 
 DEFAULT_STORE_URL = "sqlite:///comove-data/store.sqlite"
 
@@ -63,7 +63,7 @@ class EmailConfig:
     password_env: str = ""
 
 
-#: Kinds of alert rule (see :mod:`monitor.alerts`).
+#: Kinds of alert rule (see :mod:`monitor.alerts.rules`).
 RULE_KINDS = ("episode", "tail-level", "tail-rise", "universe")
 RULE_TAILS = ("lower", "upper", "both")
 RULE_MEASURES = ("nonparametric", "model")
@@ -135,7 +135,7 @@ class SourceConfig:
     query: str = ""
     kind: str = "prices"
     accept_revisions: bool = False
-    #: Reading options of a file source (see :class:`monitor.tables.ReadOptions`).
+    #: Reading options of a file source (see :class:`monitor.data.tables.ReadOptions`).
     sep: str = ","
     decimal: str = "."
     thousands: str = ""

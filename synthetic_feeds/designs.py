@@ -1,7 +1,7 @@
 """The scenarios: each is a function of its options returning a :class:`~.engine.Design`.
 
 Options are keyword arguments with defaults; bad values raise
-:class:`monitor.errors.InputError` naming the option and the scenario.
+:class:`monitor.common.errors.InputError` naming the option and the scenario.
 """
 
 from __future__ import annotations
@@ -13,7 +13,7 @@ from types import MappingProxyType
 import numpy as np
 import pandas as pd
 
-from monitor.errors import InputError
+from monitor.common.errors import InputError
 
 from .calendars import business_days
 from .engine import Block, Closure, Design, Regime

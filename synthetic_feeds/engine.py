@@ -5,7 +5,7 @@ assets are partitioned into blocks: assets in different blocks (or in no block) 
 independent, and within a block a multivariate copula from :mod:`synthetic_feeds.samplers`
 ties them. So on every date each pair's copula is known exactly (the bivariate margin of its
 block's copula, or independence) and is written to the truth with tau and tail coefficients
-computed by :mod:`monitor.copulas`, so conventions match the rest of the project.
+computed by :mod:`monitor.stats.copulas`, so conventions match the rest of the project.
 
 Uniforms are drawn for every asset on every master date; an asset's draws on the days its venue
 is closed are discarded (it does not trade, so no return happens). The copula therefore holds
@@ -22,8 +22,8 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from monitor.arrays import read_only
-from monitor.copulas import family as copula_family
+from monitor.common.arrays import read_only
+from monitor.stats.copulas import family as copula_family
 
 from . import samplers
 from .calendars import Venue, business_days, trading_mask

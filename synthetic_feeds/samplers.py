@@ -2,7 +2,7 @@
 
 Every sampler returns an array of shape ``(n, d)`` of uniforms in (0, 1). The families are
 chosen because each two-dimensional margin is again a member of a bivariate family of
-:mod:`monitor.copulas`, so the ground truth of every pair is exact:
+:mod:`monitor.stats.copulas`, so the ground truth of every pair is exact:
 
 ========================  =====================================================
 multivariate copula       bivariate margin of columns i, j
@@ -28,7 +28,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import special
 
-#: Uniforms are kept this far from 0 and 1, as in :mod:`monitor.copulas`, so that quantile
+#: Uniforms are kept this far from 0 and 1, as in :mod:`monitor.stats.copulas`, so that quantile
 #: functions of the margins stay finite.
 UNIT_EPS = 1e-15
 

@@ -14,7 +14,7 @@ from types import MappingProxyType
 import numpy as np
 import pandas as pd
 
-from monitor.errors import InputError
+from monitor.common.errors import InputError
 
 from .designs import DESIGNERS, SCENARIO_DESCRIPTIONS
 from .engine import build_truth, simulate

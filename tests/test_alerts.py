@@ -16,11 +16,12 @@ import sqlalchemy as sa
 from aiosmtpd.controller import Controller
 from aiosmtpd.smtp import AuthResult
 
-from monitor import alerts, cli
+from monitor import cli
+from monitor.alerts import rules as alerts
 from monitor.config import AlertRule, AlertsConfig, Config, EmailConfig, RollingConfig, StoreConfig
-from monitor.ingest import ingest_sources, read_file_source
-from monitor.pipeline import update_marginals, update_rolling, update_signals
-from monitor.store import Store, episodes, outbox
+from monitor.data.ingest import ingest_sources, read_file_source
+from monitor.data.store import Store, episodes, outbox
+from monitor.engine.pipeline import update_marginals, update_rolling, update_signals
 from synthetic_feeds import generate
 
 

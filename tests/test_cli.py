@@ -508,7 +508,7 @@ def test_fit_bad_inputs_exit_2_naming_the_culprit(work, case):
 
 
 def test_fit_filter_needs_enough_history(work):
-    # The default real-time GARCH filter needs 251 returns up to --end (monitor.marginals).
+    # The default real-time GARCH filter needs 251 returns up to --end (monitor.stats.marginals).
     line = assert_one_error_line(run(["fit", "returns.csv", "--pair", "ALDER", "BIRCH",
                                       "--end", "2021-06-30"], work))
     assert re.search(r"^error: returns\.csv: column 'ALDER' has \d+ returns up to the window "

@@ -13,8 +13,8 @@ from pathlib import Path
 
 import pytest
 
+from monitor.common.errors import InputError
 from monitor.config import Config, load_config
-from monitor.errors import InputError
 
 # docs/contracts.md, "Family names".
 CONTRACT_FAMILIES = ("independence", "gaussian", "student_t", "clayton", "gumbel", "frank",

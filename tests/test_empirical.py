@@ -1,4 +1,4 @@
-"""Tests for monitor.empirical: rank correlations, empirical copula, tail and exceedance measures.
+"""Tests for monitor.stats.empirical: rank correlations, empirical copula, tail and exceedance measures.
 
 Reference values come from scipy.stats, from docs/check-values.md (sections 3, 4 and 7,
 each recomputed there from the published formulas) and from closed forms. Simulation
@@ -16,8 +16,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import stats
 
-from monitor.copulas import family
-from monitor.empirical import (
+from monitor.stats.copulas import family
+from monitor.stats.empirical import (
     conditional_correlation,
     empirical_copula,
     exceedance_correlation,
@@ -49,7 +49,7 @@ def _gumbel_sample(n: int, theta: float, rng: np.random.Generator) -> np.ndarray
 
     The frailty V is positive stable with Laplace transform exp(-t^(1/theta)), drawn by
     Kanter's (1975, Ann. Probab. 3, 697-707) representation; then U_j = exp(-(E_j/V)^(1/theta))
-    with E_j standard exponential. Independent of monitor.copulas on purpose.
+    with E_j standard exponential. Independent of monitor.stats.copulas on purpose.
     """
     alpha = 1.0 / theta
     angle = rng.uniform(0.0, np.pi, n)

@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from monitor.copulas import FAMILY_NAMES, family
-from monitor.empirical import kendall_tau, pseudo_observations
-from monitor.fitting import (
+from monitor.stats.copulas import FAMILY_NAMES, family
+from monitor.stats.empirical import kendall_tau, pseudo_observations
+from monitor.stats.fitting import (
     candidate_slots,
     fit_batched,
     fit_copula_reference,

@@ -5,10 +5,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from monitor.copulas import family
-from monitor.empirical import pseudo_observations
-from monitor.fitting import CopulaFit, fit_batched
-from monitor.inference import (
+from monitor.stats.copulas import family
+from monitor.stats.empirical import pseudo_observations
+from monitor.stats.fitting import CopulaFit, fit_batched
+from monitor.stats.inference import (
     cramer_von_mises,
     fit_uncertainty,
     goodness_of_fit,

@@ -1,4 +1,4 @@
-"""Tests for ingest (monitor.ingest, the ``ingest`` and ``export returns`` commands, SQL sources
+"""Tests for ingest (monitor.data.ingest, the ``ingest`` and ``export returns`` commands, SQL sources
 and ``[[sources]]`` in the config) on both store backends, SQLite and PostgreSQL.
 
 The contracts are docs/contracts.md: "``comove ingest FILE… [--kind prices|returns]`` validates and
@@ -40,18 +40,18 @@ import sqlalchemy as sa
 from sqlalchemy.pool import NullPool
 
 from monitor import cli
+from monitor.common.errors import InputError
 from monitor.config import SourceConfig, load_config
-from monitor.errors import InputError
-from monitor.ingest import (
+from monitor.data.ingest import (
     coverage,
     expand_paths,
     ingest_sources,
     read_file_source,
     read_sql_table_source,
 )
-from monitor.store import Store, marginal_fits, residuals
-from monitor.store import prices as prices_table
-from monitor.store import returns as returns_table
+from monitor.data.store import Store, marginal_fits, residuals
+from monitor.data.store import prices as prices_table
+from monitor.data.store import returns as returns_table
 
 # ln P is at most ~ln(1e3) ~ 7 here; a few ulps of that (7 * 2.2e-16 * 4 ~ 6e-15) bounds the
 # difference between ln(P_t / P_s) and ln P_t - ln P_s.
@@ -948,7 +948,7 @@ def test_reading_options_refused_with_sql(tmp_path, run):
 
 
 def test_configured_source_with_reading_options(tmp_path, monkeypatch, capsys):
-    from monitor.pipeline import read_configured_sources
+    from monitor.engine.pipeline import read_configured_sources
 
     write(tmp_path, "feeds/export.csv", EXPORTED)
     path = config(tmp_path, """

@@ -1,4 +1,4 @@
-"""Tests for monitor.marginals: GARCH-type marginal filtering with arch.
+"""Tests for monitor.stats.marginals: GARCH-type marginal filtering with arch.
 
 External references: statsmodels' ``acorr_ljungbox`` for the Ljung-Box statistic; arch's own
 ``fix()`` and ``simulate()`` for the variance recursion and simulated data; arch's documented
@@ -22,9 +22,9 @@ from arch.data import nasdaq, sp500
 from arch.univariate import GARCH, ConstantMean, StudentsT
 from statsmodels.stats.diagnostic import acorr_ljungbox
 
-from monitor import marginals
-from monitor.errors import InputError
-from monitor.marginals import (
+from monitor.common.errors import InputError
+from monitor.stats import marginals
+from monitor.stats.marginals import (
     CANDIDATE_SPECS,
     EWMA_DECAY,
     FALLBACK_SPEC,
@@ -104,7 +104,7 @@ def test_constraint_jacobians_are_exact_and_scoped(sim700):
     # 1e-6 on the scaled objective) on simulated GARCH(1,1)-t returns, every candidate spec.
     import arch.univariate.base as arch_base
 
-    from monitor.marginals import _arch_model, _constraint_jacobians, _estimate
+    from monitor.stats.marginals import _arch_model, _constraint_jacobians, _estimate
 
     a = np.array([[0.0, 1.0, -1.0], [0.5, 0.0, 2.0]])
     b = np.array([0.0, -1.0])

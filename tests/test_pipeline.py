@@ -14,9 +14,9 @@ import sqlalchemy as sa
 
 from monitor import cli
 from monitor.config import ComputeConfig, Config, SourceConfig, StoreConfig
-from monitor.ingest import ingest_sources, read_file_source
-from monitor.pipeline import marginal_settings, run_update
-from monitor.store import Store, residuals
+from monitor.data.ingest import ingest_sources, read_file_source
+from monitor.data.store import Store, residuals
+from monitor.engine.pipeline import marginal_settings, run_update
 
 from .conftest import take_snapshot
 
@@ -335,7 +335,7 @@ def test_update_with_too_little_history_says_how_much_each_asset_needs(tmp_path,
 
 
 def test_step_progress_writes_plain_lines_with_elapsed_time_when_not_a_terminal():
-    from monitor.progress import StepProgress
+    from monitor.common.progress import StepProgress
 
     times = iter([0.0, 0.5, 1.5, 2.0, 14.0, 15.0, 30.0])
     stream = io.StringIO()  # not a TTY, as a log file

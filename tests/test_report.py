@@ -15,10 +15,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from monitor.cli import CAUTION
-from monitor.drilldown import PairStudy, window_result
-from monitor.report import html_table, report_filename, report_html
-from monitor.window_study import study_window
+from monitor.common.wording import CAUTION
+from monitor.engine.window_study import study_window
+from monitor.views.drilldown import PairStudy, window_result
+from monitor.views.report import html_table, report_filename, report_html
 from synthetic_feeds import generate
 
 

@@ -18,19 +18,19 @@ import sqlalchemy as sa
 from scipy import stats
 
 from monitor.config import ComputeConfig, Config, RollingConfig, StoreConfig
-from monitor.copulas import family
-from monitor.empirical import pseudo_observations, spearman_rho, tail_dependence
-from monitor.fitting import select_copula
-from monitor.inference import kendall_tau_interval
-from monitor.pipeline import rolling_key, run_update
-from monitor.rolling import (
+from monitor.data.store import Store, metrics
+from monitor.engine.pipeline import rolling_key, run_update
+from monitor.stats.copulas import family
+from monitor.stats.empirical import pseudo_observations, spearman_rho, tail_dependence
+from monitor.stats.fitting import select_copula
+from monitor.stats.inference import kendall_tau_interval
+from monitor.stats.rolling import (
     PairWindows,
     RollingSettings,
     batch_metrics,
     pair_metrics,
     window_end_positions,
 )
-from monitor.store import Store, metrics
 
 
 def _pair(n: int, seed: int):
@@ -132,7 +132,7 @@ def _setup(tmp_path: Path, name: str, prices: pd.DataFrame, **compute) -> Config
     prices.to_csv(path, float_format="%.12g")
     cfg = Config(store=StoreConfig(url=url), rolling=RollingConfig(window=60),
                  compute=ComputeConfig(**({"workers": 1} | compute)))
-    from monitor.ingest import ingest_sources, read_file_source
+    from monitor.data.ingest import ingest_sources, read_file_source
 
     with Store(url) as store:
         ingest_sources(store, [read_file_source(path, "prices")])
@@ -155,7 +155,7 @@ def test_update_is_incremental_and_idempotent(tmp_path):
     assert first.rolling.new_windows == 3 * (319 - 251 - 60 + 1)
     again = run_update(cfg, progress=False)
     assert again.rolling.updated_pairs == 0 and again.rolling.new_windows == 0
-    from monitor.ingest import ingest_sources, read_file_source
+    from monitor.data.ingest import ingest_sources, read_file_source
 
     prices.iloc[:321].to_csv(tmp_path / "day.csv", float_format="%.12g")
     with Store(cfg.store.url) as store:
@@ -174,7 +174,7 @@ def test_a_revision_recomputes_the_affected_windows_like_a_fresh_run(tmp_path):
     # A revised price drops the derived results from its date on (the pair's rolling state
     # too, while older metric rows stay); the next update must recompute the pair, not
     # collide with the rows it kept, and end where a store built from the revised data does.
-    from monitor.ingest import ingest_sources, read_file_source
+    from monitor.data.ingest import ingest_sources, read_file_source
 
     prices = _prices(2, 340, seed=6)
     cfg = _setup(tmp_path, "r", prices)
@@ -249,7 +249,7 @@ def test_dask_backend_gives_identical_results(tmp_path, dask_scheduler):
 
 def test_signals_are_stored_and_the_timeline_exports_per_contract(tmp_path, capsys):
     from monitor import cli
-    from monitor.pipeline import read_pair_signals, signals_key
+    from monitor.engine.pipeline import read_pair_signals, signals_key
 
     prices = _prices(3, 360, seed=6)
     cfg = _setup(tmp_path, "sig", prices)
@@ -281,7 +281,7 @@ def test_signals_are_stored_and_the_timeline_exports_per_contract(tmp_path, caps
 
 
 def test_universe_summary_over_time(tmp_path):
-    from monitor.pipeline import read_pair_signals, read_universe_summary
+    from monitor.engine.pipeline import read_pair_signals, read_universe_summary
 
     prices = _prices(3, 340, seed=8)
     cfg = _setup(tmp_path, "uni", prices)
@@ -319,8 +319,8 @@ def test_daily_signals_continue_to_the_states_and_episodes_of_a_fresh_run(tmp_pa
     # its whole timeline; after days added one, a few and many at a time, and a revision,
     # the stored state runs, episodes and universe summary must be those of a store built
     # in one go.
-    from monitor.ingest import ingest_sources, read_file_source
-    from monitor.pipeline import read_universe_summary, signals_key
+    from monitor.data.ingest import ingest_sources, read_file_source
+    from monitor.engine.pipeline import read_universe_summary, signals_key
 
     prices = _shifting_prices(780, seed=2)
     cfg = _setup(tmp_path, "d", prices.iloc[:700])
@@ -362,8 +362,8 @@ def test_daily_update_reads_recent_residuals_and_gets_the_same_tasks(tmp_path):
     # The daily path reads only recent residuals; its tasks (days, values and window-end
     # positions the workers get) must equal those from the whole history, and a read too
     # short for some pair's window must fall back to the whole history.
-    from monitor.ingest import ingest_sources, read_file_source
-    from monitor.pipeline import (
+    from monitor.data.ingest import ingest_sources, read_file_source
+    from monitor.engine.pipeline import (
         _pair_tasks,
         _rolling_tasks,
         _universe_pairs,
@@ -377,7 +377,7 @@ def test_daily_update_reads_recent_residuals_and_gets_the_same_tasks(tmp_path):
     prices.to_csv(tmp_path / "more.csv", float_format="%.12g")
     with Store(cfg.store.url) as store:
         ingest_sources(store, [read_file_source(tmp_path / "more.csv", "prices")])
-    from monitor.pipeline import update_marginals
+    from monitor.engine.pipeline import update_marginals
 
     with Store(cfg.store.url) as store:
         update_marginals(store, cfg, progress=False)

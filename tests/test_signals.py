@@ -1,4 +1,4 @@
-"""Tests for monitor.signals: CUSUM, hysteresis, divergence, spikes, switches, episodes and the
+"""Tests for monitor.stats.signals: CUSUM, hysteresis, divergence, spikes, switches, episodes and the
 universe summary.
 
 External references: Page (1954, "Continuous inspection schemes", Biometrika 41, 100-115) for
@@ -18,15 +18,15 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from monitor.copulas import family
-from monitor.errors import InputError
-from monitor.rolling import (
+from monitor.common.errors import InputError
+from monitor.stats.copulas import family
+from monitor.stats.rolling import (
     RollingSettings,
     _gaussian_tail_concordance,
     pair_metrics,
     window_end_positions,
 )
-from monitor.signals import (
+from monitor.stats.signals import (
     EARLIER_DEFAULTS,
     IQR_TO_SIGMA,
     REQUIRED_COLUMNS,
@@ -513,7 +513,7 @@ def test_continued_computation_equals_the_whole_timeline(seed):
     # before each resume date) must give the whole timeline's states, statistics and
     # episodes: a property of the method (every statistic but the CUSUM looks a bounded
     # number of rows back), checked here against the plain computation.
-    from monitor.signals import Resume, context_rows
+    from monitor.stats.signals import Resume, context_rows
 
     rng = np.random.default_rng(seed)
     tl = _busy_timeline(1200, seed)
@@ -553,7 +553,7 @@ def test_continued_computation_equals_the_whole_timeline(seed):
 
 
 def test_resume_needs_its_date_and_enough_rows():
-    from monitor.signals import Resume
+    from monitor.stats.signals import Resume
 
     tl = _busy_timeline(300, 0)
     res = pair_signals(tl.iloc[:200], BUSY).resume_at(0)

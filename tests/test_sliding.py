@@ -7,7 +7,7 @@ import pytest
 from numpy.lib.stride_tricks import sliding_window_view
 from scipy import stats
 
-from monitor.sliding import sliding_dominance, sliding_kendall_tau, sliding_ranks
+from monitor.stats.sliding import sliding_dominance, sliding_kendall_tau, sliding_ranks
 
 
 def _series(n, seed, decimals=None):
@@ -63,10 +63,10 @@ def test_windows_outside_the_series_are_refused():
 @pytest.mark.parametrize("decimals", [None, 1, 0])
 def test_stacked_windows_give_the_banded_counts_to_the_bit(decimals):
     # The daily update counts one window of each of hundreds of pairs by sorting the stacked
-    # windows (monitor.rolling._window_statistics); the numbers must be the banded ones
+    # windows (monitor.stats.rolling._window_statistics); the numbers must be the banded ones
     # exactly, ties included, so a daily update equals a backfill to the last bit.
-    from monitor.rolling import _window_statistics
-    from monitor.sliding import window_dominance
+    from monitor.stats.rolling import _window_statistics
+    from monitor.stats.sliding import window_dominance
 
     w = 40
     series = []

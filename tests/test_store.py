@@ -1,4 +1,4 @@
-"""Tests for monitor.store on both backends: SQLite files and a real PostgreSQL server.
+"""Tests for monitor.data.store on both backends: SQLite files and a real PostgreSQL server.
 
 The contract is docs/contracts.md ("Store: SQLAlchemy Core ... every write of a step is one
 transaction") and the module's own schema note: a new store is written at schema version 1, a
@@ -18,8 +18,8 @@ import pytest
 import sqlalchemy as sa
 from sqlalchemy.pool import NullPool
 
-from monitor.errors import InputError
-from monitor.store import (
+from monitor.common.errors import InputError
+from monitor.data.store import (
     SCHEMA_VERSION,
     Store,
     as_tidy,
@@ -261,7 +261,7 @@ def test_a_refused_store_keeps_no_connection_open(pg_database, postgres_url):
 # ----------------------------------------------------------------------------- signals state
 def _metric_frame(days: pd.DatetimeIndex, seed: int) -> pd.DataFrame:
     """Invented metric rows of one pair (every column of the rolling engine)."""
-    from monitor.rolling import METRIC_COLUMNS
+    from monitor.stats.rolling import METRIC_COLUMNS
 
     rng = np.random.default_rng(seed)
     n = len(days)

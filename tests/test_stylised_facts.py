@@ -10,9 +10,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from monitor.empirical import exceedance_correlation, pseudo_observations, tail_dependence
-from monitor.fitting import select_copula
-from monitor.marginals import filter_series, ljung_box
+from monitor.stats.empirical import exceedance_correlation, pseudo_observations, tail_dependence
+from monitor.stats.fitting import select_copula
+from monitor.stats.marginals import filter_series, ljung_box
 
 
 @pytest.fixture(scope="module")

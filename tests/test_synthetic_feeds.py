@@ -22,9 +22,9 @@ from statsmodels.stats.diagnostic import acorr_ljungbox
 
 import synthetic_feeds
 import synthetic_feeds.scoring
-from monitor.copulas import family
-from monitor.empirical import pseudo_observations, tail_dependence
-from monitor.errors import InputError
+from monitor.common.errors import InputError
+from monitor.stats.copulas import family
+from monitor.stats.empirical import pseudo_observations, tail_dependence
 from synthetic_feeds import (
     SCENARIOS,
     generate,
@@ -355,7 +355,7 @@ def test_independence_regime_shows_tau_near_zero(main):
 
 def test_tail_shift_raises_lower_tail_dependence_at_equal_tau():
     # Empirical lambda_L(q) = C_n(q, q)/q at q = 0.1 (Schmidt & Stadtmueller 2006, via
-    # monitor.empirical), pooled over 8 seeds of the default tail-shift scenario. Population
+    # monitor.stats.empirical), pooled over 8 seeds of the default tail-shift scenario. Population
     # values from the closed-form cdfs: Gaussian rho = sin(0.35 pi/2) gives 0.3381, Clayton
     # theta = 0.7/0.65 gives 0.5467 (docs/check-values.md section 4 tabulates the same quantity for
     # other parameters). The innovations carry the copula exactly; raw returns mix in the
@@ -429,7 +429,7 @@ def test_wide_grid_default_size_and_structure():
 ], ids=lambda c: f"{c[0]}-{c[1]}")
 def test_multivariate_samplers_have_the_stated_bivariate_margins(case):
     # Empirical joint cdf of columns 0 and 1 against the bivariate family's cdf in
-    # monitor.copulas (checked there against docs/check-values.md section 1 values); binomial
+    # monitor.stats.copulas (checked there against docs/check-values.md section 1 values); binomial
     # standard errors, |z| < 4.5 at 6 points.
     name, rotation, params, draw = case
     u = draw(40_000, np.random.default_rng(2024))

@@ -1,4 +1,4 @@
-"""Tests for monitor.tables: reading wide and long CSV/Parquet files and refusing bad ones.
+"""Tests for monitor.data.tables: reading wide and long CSV/Parquet files and refusing bad ones.
 
 The input contract is docs/contracts.md ("Input files" and the exit-code rule that every refusal names
 the file, row/date and column at fault). Expected frames are written out by hand; log returns
@@ -16,8 +16,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from monitor.errors import InputError
-from monitor.tables import log_returns, read_series
+from monitor.common.errors import InputError
+from monitor.data.tables import log_returns, read_series
 
 # Fictional universe: tree names, no real tickers.
 WIDE_CSV = (
@@ -362,7 +362,7 @@ def test_log_returns_refuse_non_positive_prices(price, shown):
 # --------------------------------------------------------------------------- exported files
 # The same prices as WIDE_CSV, written as spreadsheets in other locales export them.
 def read_with(tmp_path: Path, name: str, content: str | bytes, **options) -> pd.DataFrame:
-    from monitor.tables import parse_columns, read_options
+    from monitor.data.tables import parse_columns, read_options
 
     if "columns" in options:
         options["columns"] = parse_columns(options["columns"])
@@ -500,7 +500,7 @@ def test_excel_files_are_refused(tmp_path):
     ({"columns": {"ticker": "T"}}, r"^--columns: unknown role 'ticker'; roles: date, asset, "),
 ])
 def test_bad_reading_options_name_the_option(options, message):
-    from monitor.tables import read_options
+    from monitor.data.tables import read_options
 
     with pytest.raises(InputError, match=message):
         read_options(**options)

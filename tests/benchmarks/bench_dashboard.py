@@ -33,8 +33,8 @@ from layouts import episodes as episodes_layout
 from layouts import inputs as inputs_layout
 from layouts import timeline as timeline_layout
 from monitor.config import Config, RollingConfig, StoreConfig
-from monitor.store import Store
-from monitor.views import StoreView
+from monitor.data.store import Store
+from monitor.views.common import StoreView
 
 
 def _time(fn, repeat: int) -> tuple[float, float]:

@@ -6,9 +6,9 @@ Run from the repository root::
         [--workers N] [--cache DIR] [--tail-seeds A:B] [--steady-seeds A:B]
 
 Chain, as in production: percent log returns of the scenario -> real-time GARCH filtering
-(:func:`monitor.marginals.filter_series`, default settings) -> the rolling engine
-(:func:`monitor.rolling.pair_metrics`, window 250, step 1, all families, AIC) -> the signals
-(:func:`monitor.signals.pair_signals`). ``--fast`` replaces the filtering by the scenario's exact
+(:func:`monitor.stats.marginals.filter_series`, default settings) -> the rolling engine
+(:func:`monitor.stats.rolling.pair_metrics`, window 250, step 1, all families, AIC) -> the signals
+(:func:`monitor.stats.signals.pair_signals`). ``--fast`` replaces the filtering by the scenario's exact
 standardised innovations (``Scenario.innovations``); every printed block names which was used.
 
 Scenarios (``synthetic_feeds``):
@@ -53,9 +53,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from monitor.marginals import filter_series
-from monitor.rolling import RollingSettings, pair_metrics, window_end_positions
-from monitor.signals import EARLIER_DEFAULTS, SignalSettings, pair_signals
+from monitor.stats.marginals import filter_series
+from monitor.stats.rolling import RollingSettings, pair_metrics, window_end_positions
+from monitor.stats.signals import EARLIER_DEFAULTS, SignalSettings, pair_signals
 from synthetic_feeds import Scenario, generate
 
 #: Benchmark label -> (scenario, options). Every label but ``tail-shift`` is a null: its

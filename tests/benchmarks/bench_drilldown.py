@@ -10,11 +10,11 @@ change), ranked log returns of two assets on their last n common days.
 
 Timed (single process, best of ``--repeat``):
 
-- **one window**: :func:`monitor.window_study.study_window` with ``bootstrap=B`` -- every
+- **one window**: :func:`monitor.engine.window_study.study_window` with ``bootstrap=B`` -- every
   candidate slot fitted, one parametric bootstrap of B replicates per slot (sampling,
-  re-ranking, all B refits in one :func:`monitor.fitting.fit_batched` call, Cramer-von Mises
+  re-ranking, all B refits in one :func:`monitor.stats.fitting.fit_batched` call, Cramer-von Mises
   statistics) giving every slot's p-value and the selected family's intervals -- plus the
-  page's extra numbers (:func:`monitor.drilldown.window_result`);
+  page's extra numbers (:func:`monitor.views.drilldown.window_result`);
 - **page study**: two such windows (the study and a reference window of the same length), which
   is what the Drill-down page computes for one click;
 - figures and the HTML report of that study;
@@ -22,7 +22,7 @@ Timed (single process, best of ``--repeat``):
 
 Baseline, written as a practitioner would: per replicate and slot, draw n points from the
 fitted copula, rank them with ``scipy.stats.rankdata``, refit with the independent
-``scipy.optimize`` path :func:`monitor.fitting.fit_copula_reference` and compute the
+``scipy.optimize`` path :func:`monitor.stats.fitting.fit_copula_reference` and compute the
 Cramer-von Mises statistic with an n x n comparison. It runs ``--loop-replicates`` replicates
 per slot and its time is scaled to B. Prints seconds and ratios; nothing here is a pass/fail
 test.
@@ -37,11 +37,11 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from monitor.drilldown import PairStudy, window_result
-from monitor.fitting import fit_copula_reference
-from monitor.inference import bootstrap_candidates, fit_uncertainty, goodness_of_fit
-from monitor.report import report_html
-from monitor.window_study import study_window
+from monitor.engine.window_study import study_window
+from monitor.stats.fitting import fit_copula_reference
+from monitor.stats.inference import bootstrap_candidates, fit_uncertainty, goodness_of_fit
+from monitor.views.drilldown import PairStudy, window_result
+from monitor.views.report import report_html
 from synthetic_feeds import generate
 
 

@@ -27,9 +27,9 @@ import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 from scipy import optimize, special, stats
 
-from monitor.copulas import FAMILY_NAMES, family
-from monitor.empirical import kendall_tau, pseudo_observations
-from monitor.fitting import candidate_slots, fit_batched
+from monitor.stats.copulas import FAMILY_NAMES, family
+from monitor.stats.empirical import kendall_tau, pseudo_observations
+from monitor.stats.fitting import candidate_slots, fit_batched
 
 
 def rolling_pseudo_observations(windows: int, n: int, seed: int):

@@ -30,18 +30,18 @@ sys.path.insert(0, str(Path(__file__).parent))
 from bench_fit import loop_fit
 
 from monitor.config import ComputeConfig, Config, StoreConfig
-from monitor.copulas import FAMILY_NAMES
-from monitor.empirical import pseudo_observations
-from monitor.fitting import candidate_slots
-from monitor.ingest import ingest_sources, read_file_source
-from monitor.pipeline import (
+from monitor.data.ingest import ingest_sources, read_file_source
+from monitor.data.store import Store
+from monitor.engine.pipeline import (
     marginal_settings,
     rolling_settings,
     update_marginals,
     update_rolling,
     update_signals,
 )
-from monitor.store import Store
+from monitor.stats.copulas import FAMILY_NAMES
+from monitor.stats.empirical import pseudo_observations
+from monitor.stats.fitting import candidate_slots
 from synthetic_feeds import generate
 
 

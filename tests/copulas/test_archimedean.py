@@ -17,8 +17,8 @@ import pytest
 from scipy import integrate, stats
 from statsmodels.distributions.copula.api import ClaytonCopula, FrankCopula, GumbelCopula
 
-from monitor.copulas import family
-from monitor.copulas.archimedean import _debye
+from monitor.stats.copulas import family
+from monitor.stats.copulas.archimedean import _debye
 
 POINTS = np.array([[0.3, 0.7], [0.05, 0.1], [0.9, 0.95], [0.5, 0.5], [0.2, 0.8], [0.01, 0.99]])
 
@@ -428,7 +428,7 @@ def test_h_inverse_round_trip(name, theta):
 @pytest.mark.parametrize("name", ["gumbel", "frank", "joe"])
 def test_parameters_broadcast_over_windows(name):
     # Parameters of shape (windows, 1) against data of shape (windows, n): each row equals the
-    # scalar evaluation (the contract of monitor.copulas.base).
+    # scalar evaluation (the contract of monitor.stats.copulas.base).
     fam = family(name)
     thetas = {"gumbel": [1.0, 1.7, 9.0], "frank": [-8.0, 0.0, 3.0], "joe": [1.0, 2.5, 12.0]}[name]
     rng = np.random.default_rng(3)

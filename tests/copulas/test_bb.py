@@ -16,8 +16,8 @@ import numpy as np
 import pytest
 from scipy import integrate, special, stats
 
-from monitor.copulas import BB1, BB7, family
-from monitor.copulas.base import CopulaFamily
+from monitor.stats.copulas import BB1, BB7, family
+from monitor.stats.copulas.base import CopulaFamily
 
 
 def _corners(fam):

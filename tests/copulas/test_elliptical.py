@@ -19,8 +19,8 @@ import pytest
 from scipy import integrate, special, stats
 from statsmodels.distributions.copula.api import GaussianCopula, StudentTCopula
 
-from monitor.copulas import CopulaFamily, family
-from monitor.copulas.elliptical import NU_START
+from monitor.stats.copulas import CopulaFamily, family
+from monitor.stats.copulas.elliptical import NU_START
 
 GAUSS = family("gaussian")
 T = family("student_t")
@@ -377,8 +377,8 @@ def test_estimator_fast_paths_equal_the_density():
     # The estimator's prepared likelihoods (Gaussian: three sums per window; Student-t:
     # quantiles interpolated in 1/nu on the rank grid) must equal the sum of the log-density
     # computed with scipy.special.stdtrit / ndtri directly.
-    from monitor.copulas import family as get
-    from monitor.empirical import pseudo_observations
+    from monitor.stats.copulas import family as get
+    from monitor.stats.empirical import pseudo_observations
 
     rng = np.random.default_rng(3)
     nu = np.array([2.0, 2.37, 3.1, 5.5, 9.9, 17.3, 33.0, 59.9, 60.0])

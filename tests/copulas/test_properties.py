@@ -16,8 +16,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from monitor.copulas import FAMILY_NAMES, CopulaFamily, family
-from monitor.empirical import kendall_tau as sample_kendall_tau
+from monitor.stats.copulas import FAMILY_NAMES, CopulaFamily, family
+from monitor.stats.empirical import kendall_tau as sample_kendall_tau
 
 from .cases import all_cases, case_id
 
@@ -260,7 +260,7 @@ def test_estimator_likelihood_on_ranks_with_and_without_a_shared_grid(case):
     # (cached grid transforms, rotated ranks n-1-r) must give the sum of the public
     # log-density, whether they find the ranks themselves or are handed those of the
     # unrotated data, as select_batched does once for all slots.
-    from monitor.copulas.base import rank_grid
+    from monitor.stats.copulas.base import rank_grid
 
     fam, p = _fam(case)
     rng = np.random.default_rng(23)
@@ -282,7 +282,7 @@ def test_grid_likelihood_at_and_past_the_fit_box_ends(name):
     # The grid kernels work in plain space while the powers stay in range and fall back to
     # the log-space forms past it (Clayton u^-200, Gumbel (-ln u)^500, Joe (1-u)^200 leave
     # it at n = 250); every case must equal the public log-density's sum.
-    from monitor.copulas.base import rank_grid
+    from monitor.stats.copulas.base import rank_grid
 
     fam = family(name)
     rng = np.random.default_rng(29)

@@ -9,10 +9,10 @@ from dataclasses import dataclass
 import pytest
 
 from monitor.config import ComputeConfig, Config, RollingConfig, StoreConfig
-from monitor.ingest import ingest_sources, read_file_source
-from monitor.pipeline import update_marginals, update_rolling, update_signals
-from monitor.store import Store
-from monitor.views import StoreView
+from monitor.data.ingest import ingest_sources, read_file_source
+from monitor.data.store import Store
+from monitor.engine.pipeline import update_marginals, update_rolling, update_signals
+from monitor.views.common import StoreView
 from synthetic_feeds import generate
 
 

@@ -1,5 +1,5 @@
-"""The Board page's library (monitor.board), the stored state runs and universe summary it
-reads (monitor.store / monitor.pipeline), and its callback called as a plain function.
+"""The Board page's library (monitor.views.board), the stored state runs and universe summary it
+reads (monitor.data.store / monitor.engine.pipeline), and its callback called as a plain function.
 
 Checks against outside references: scipy's hierarchical clustering for the ordering (the
 leaf order must keep a block of strongly dependent assets together, whatever the input
@@ -22,7 +22,12 @@ from sqlalchemy.pool import NullPool
 from callbacks.board import OUTPUTS, register, show_board
 from layouts import board as board_page
 from layouts import ids
-from monitor.board import (
+from monitor.common.errors import InputError
+from monitor.common.palette import DIVERGING, SEQUENTIAL
+from monitor.data.store import Store, metrics, pair_state
+from monitor.engine.pipeline import signals_key, update_signals
+from monitor.stats.signals import pair_signals, state_runs, universe_key, universe_summary
+from monitor.views.board import (
     CHANGE_COLUMNS,
     board_data,
     change_figure,
@@ -37,12 +42,7 @@ from monitor.board import (
     ranking_table,
     standing_labels,
 )
-from monitor.errors import InputError
-from monitor.palette import DIVERGING, SEQUENTIAL
-from monitor.pipeline import signals_key, state_runs, update_signals
-from monitor.signals import pair_signals, universe_key, universe_summary
-from monitor.store import Store, metrics, pair_state
-from monitor.views import StoreView
+from monitor.views.common import StoreView
 
 from .tree import find, text
 
@@ -538,7 +538,7 @@ def test_standing_label_of_a_student_t_pair_and_not_of_a_gaussian_one():
     & McNeil 2005, The t copula and related copulas, eq. 3.4, from memory) never changes
     but has heavy tails in both: a standing condition. A Gaussian copula with the same
     correlation does not get the label (simulated data, one fixed seed each)."""
-    from monitor.rolling import RollingSettings, pair_metrics, window_end_positions
+    from monitor.stats.rolling import RollingSettings, pair_metrics, window_end_positions
     from synthetic_feeds.samplers import sample_gaussian, sample_student_t
 
     rng = np.random.default_rng(20261202)

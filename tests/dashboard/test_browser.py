@@ -15,7 +15,7 @@ from selenium.webdriver.common.action_chains import ActionChains
 from callbacks.app import create_app
 from layouts import ids
 from layouts.pages import PAGES
-from monitor.store import Store
+from monitor.data.store import Store
 
 pytestmark = pytest.mark.e2e
 

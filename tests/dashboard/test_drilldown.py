@@ -18,8 +18,18 @@ from callbacks.app import create_app
 from callbacks.drilldown import autorun, download_report, run_study
 from layouts import ids
 from layouts.drilldown import layout, results
-from monitor.copulas import family
-from monitor.drilldown import (
+from monitor.common.errors import InputError
+from monitor.data.store import Store
+from monitor.stats.copulas import family
+from monitor.stats.empirical import pseudo_observations, tail_share_interval, wilson_interval
+from monitor.stats.fitting import CopulaFit, fit_batched
+from monitor.stats.inference import (
+    bootstrap_candidates,
+    cramer_von_mises,
+    fit_uncertainty,
+    goodness_of_fit,
+)
+from monitor.views.drilldown import (
     PairStudy,
     choose_reference,
     frechet_hoeffding_bounds,
@@ -30,16 +40,6 @@ from monitor.drilldown import (
     tail_concordance,
     tail_excess,
 )
-from monitor.empirical import pseudo_observations, tail_share_interval, wilson_interval
-from monitor.errors import InputError
-from monitor.fitting import CopulaFit, fit_batched
-from monitor.inference import (
-    bootstrap_candidates,
-    cramer_von_mises,
-    fit_uncertainty,
-    goodness_of_fit,
-)
-from monitor.store import Store
 
 from .tree import find_all, text
 

@@ -1,4 +1,4 @@
-"""The Episodes page and monitor.episodes_view: episodes as the signals define them, the rules
+"""The Episodes page and monitor.views.episodes: episodes as the signals define them, the rules
 without secrets, the outbox reader with and without its table, filters and bad queries."""
 
 from __future__ import annotations
@@ -14,8 +14,12 @@ from plotly.io.json import to_json_plotly
 from callbacks.app import create_app
 from layouts import episodes as page
 from layouts import ids
+from monitor.common.errors import InputError
 from monitor.config import Config, EmailConfig, StoreConfig
-from monitor.episodes_view import (
+from monitor.data.store import Store
+from monitor.stats.signals import SignalSettings, pair_signals
+from monitor.views.common import StoreView
+from monitor.views.episodes import (
     EPISODE_COLUMNS,
     OUTBOX_COLUMNS,
     TAIL_STYLE,
@@ -29,10 +33,6 @@ from monitor.episodes_view import (
     rules_table,
     timeline_link,
 )
-from monitor.errors import InputError
-from monitor.signals import SignalSettings, pair_signals
-from monitor.store import Store
-from monitor.views import StoreView
 
 from .tree import find, registered, texts
 
@@ -137,8 +137,8 @@ def test_rules_table_names_every_threshold_and_no_secret(monkeypatch):
 
 
 def test_outbox_reader_lists_the_queue_newest_first(tmp_path):
-    from monitor import alerts
-    from monitor.store import outbox
+    from monitor.alerts import rules as alerts
+    from monitor.data.store import outbox
 
     with Store(f"sqlite:///{tmp_path / 'box.sqlite'}") as store:
         empty = read_outbox(store)

@@ -1,4 +1,4 @@
-"""The Inputs page and monitor.inputs_view: coverage counted by hand on an ingested file with
+"""The Inputs page and monitor.views.inputs: coverage counted by hand on an ingested file with
 known gaps, ingest and revision history, the stored marginal models, and the residual
 diagnostics checked against statsmodels and arch."""
 
@@ -19,10 +19,12 @@ from statsmodels.tsa.stattools import acf
 from callbacks.app import create_app
 from layouts import ids
 from layouts import inputs as page
+from monitor.common.errors import InputError
 from monitor.config import Config, StoreConfig
-from monitor.errors import InputError
-from monitor.ingest import ingest_sources, read_file_source
-from monitor.inputs_view import (
+from monitor.data.ingest import ingest_sources, read_file_source
+from monitor.data.store import Store, marginal_fits
+from monitor.views.common import StoreView
+from monitor.views.inputs import (
     COVERAGE_COLUMNS,
     autocorrelation,
     coverage_table,
@@ -38,8 +40,6 @@ from monitor.inputs_view import (
     revision_table,
     skewt_cdf,
 )
-from monitor.store import Store, marginal_fits
-from monitor.views import StoreView
 from synthetic_feeds import generate
 
 from .tree import find, registered, texts

@@ -11,8 +11,8 @@ import pytest
 from callbacks.app import SECRET_ENV, create_app
 from callbacks.serve import MIN_SECRET, access_secret, is_loopback
 from monitor import cli
-from monitor.errors import InputError
-from monitor.store import Store
+from monitor.common.errors import InputError
+from monitor.data.store import Store
 
 
 @pytest.mark.parametrize("host", ["127.0.0.1", "127.0.0.2", "::1", "localhost"])

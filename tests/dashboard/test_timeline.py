@@ -1,4 +1,4 @@
-"""The Timeline page's library (monitor.history) and callbacks called as plain functions.
+"""The Timeline page's library (monitor.views.timeline) and callbacks called as plain functions.
 
 Outside references: statsmodels' Wilson interval for the binomial bands, the normal quantile
 for the tau band, and ``pair_signals`` recomputed from the stored timeline for the states and
@@ -25,8 +25,10 @@ from callbacks.timeline import (
 )
 from layouts import ids
 from layouts import timeline as page
-from monitor.errors import InputError
-from monitor.history import (
+from monitor.common.errors import InputError
+from monitor.common.palette import FAMILY_COLOURS, ROTATION_SHADES, SERIES_COLOURS, STATE_COLOURS
+from monitor.stats.signals import pair_signals
+from monitor.views.timeline import (
     EPISODE_COLOURS,
     binomial_band,
     family_runs,
@@ -37,8 +39,6 @@ from monitor.history import (
     tau_band,
     timeline_figure,
 )
-from monitor.palette import FAMILY_COLOURS, ROTATION_SHADES, SERIES_COLOURS, STATE_COLOURS
-from monitor.signals import pair_signals
 
 from .tree import find, text
 

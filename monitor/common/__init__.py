@@ -1,0 +1,1 @@
+"""Shared leaves: errors, array helpers, colours, wording, progress."""

@@ -1,0 +1,1 @@
+"""Data: the store (the only layer that speaks SQL), input tables, ingestion."""

@@ -1,0 +1,1 @@
+"""Engine: settings derived from the config, the update pipeline, the window study."""

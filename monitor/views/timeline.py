@@ -1,0 +1,629 @@
+"""A pair's history: its stored timeline with uncertainty bands, the selected family over time,
+its tail states and alert episodes, and the figure the dashboard's Timeline page shows.
+
+Everything here reads what ``comove update`` stored (metrics, state runs, episodes) through a
+:class:`monitor.views.common.StoreView`; nothing is re-estimated. The bands are pointwise 95 %
+intervals of each window's estimate:
+
+- Kendall's tau: ``tau +- z * se`` with the stored influence-function standard error
+  (column ``kendall_tau_se``; Hoeffding 1948 projection, see :mod:`monitor.stats.rolling`),
+  clipped to [-1, 1];
+- nonparametric tail concordance ``C_n(q, q)/q`` (and its upper analogue): the Wilson score
+  interval of the binomial proportion ``p = lambda * q`` out of ``n`` window days, divided by
+  ``q`` (Wilson 1927); the stored ``tail_*_emp_se`` is the normal approximation of the same
+  binomial model, and unlike ``lambda +- z * se`` the Wilson interval does not collapse to a
+  point when no joint exceedance is seen;
+- the model-implied tail coefficients have no stored standard error (the window study gives
+  bootstrap intervals for a chosen window).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from urllib.parse import urlencode
+
+import numpy as np
+import pandas as pd
+import plotly.graph_objects as go
+from numpy.typing import ArrayLike, NDArray
+from plotly.subplots import make_subplots
+from scipy import stats
+
+from monitor.common.arrays import read_only
+from monitor.common.errors import InputError
+from monitor.common.palette import (
+    FAMILY_COLOURS,
+    MUTED,
+    PURPLE,
+    ROTATION_SHADES,
+    RULE,
+    SERIES_COLOURS,
+    STATE_COLOURS,
+    VERMILION,
+    figure_layout,
+)
+from monitor.stats.empirical import tail_share_interval
+from monitor.stats.signals import STATES, TAILS, states_on
+from monitor.views.common import StoreView
+
+__all__ = [
+    "EPISODE_COLOURS",
+    "PairHistory",
+    "binomial_band",
+    "episode_spans",
+    "episodes_table",
+    "family_runs",
+    "pair_history",
+    "parse_pair",
+    "provenance_note",
+    "rounded_for_plot",
+    "study_link",
+    "tau_axis_range",
+    "tau_band",
+    "timeline_figure",
+    "translucent",
+]
+
+#: Shading of alert episodes on the timeline, per tail.
+EPISODE_COLOURS = {"lower": VERMILION, "upper": PURPLE}
+#: Coverage of every band on the timeline and the board.
+LEVEL = 0.95
+
+
+def _normal_quantile(level: float) -> float:
+    if not 0 < level < 1:
+        raise ValueError(f"level must lie in (0, 1), got {level!r}")
+    return float(stats.norm.ppf(0.5 + level / 2))
+
+
+def tau_band(tau: ArrayLike, se: ArrayLike, level: float = LEVEL
+             ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Pointwise normal interval of Kendall's tau.
+
+    Parameters
+    ----------
+    tau, se : array_like
+        Sample Kendall's tau of each window and its standard error.
+    level : float
+        Coverage, in (0, 1).
+
+    Returns
+    -------
+    (ndarray, ndarray)
+        Lower and upper ends, ``tau -+ z * se`` clipped to [-1, 1] (read-only).
+
+    Notes
+    -----
+    ``z`` is the standard normal ``(1 + level) / 2`` quantile; the s.e. is the
+    influence-function one of the U-statistic (Hoeffding 1948, *Ann. Math. Statist.* 19).
+    """
+    t, s = np.asarray(tau, dtype=float), np.asarray(se, dtype=float)
+    z = _normal_quantile(level)
+    return read_only(np.clip(t - z * s, -1, 1)), read_only(np.clip(t + z * s, -1, 1))
+
+
+def binomial_band(tail: ArrayLike, n: ArrayLike, q: float, level: float = LEVEL
+                  ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Wilson score interval of a finite-level tail concordance ``lambda = p / q``.
+
+    Parameters
+    ----------
+    tail : array_like
+        Nonparametric tail concordance of each window, ``C_n(q, q)/q`` or its upper analogue.
+    n : array_like
+        Observations in each window.
+    q : float
+        The tail level, in (0, 1).
+    level : float
+        Coverage, in (0, 1).
+
+    Returns
+    -------
+    (ndarray, ndarray)
+        Lower and upper ends for ``lambda``, in [0, 1] (read-only).
+
+    Notes
+    -----
+    With ``p = lambda * q`` the share of window days on which both fall in the tail,
+    ``z`` the normal quantile and ``m = n``:
+
+    .. math:: \\frac{p + z^2 / 2m \\pm z \\sqrt{p(1-p)/m + z^2 / 4m^2}}{1 + z^2/m}
+
+    (Wilson 1927, "Probable inference, the law of succession, and statistical inference",
+    *J. Amer. Statist. Assoc.* 22, 209-212), kept inside [0, q] because ``C(q, q) <= q``
+    (:func:`monitor.stats.empirical.tail_share_interval`), divided by ``q``.
+    """
+    if not 0 < q < 1:
+        raise ValueError(f"q must lie in (0, 1), got {q!r}")
+    lo, hi = tail_share_interval(np.asarray(tail, dtype=float) * q, n, q, level)
+    return read_only(lo / q), read_only(hi / q)
+
+
+def parse_pair(text: str | None, pairs: list[tuple[str, str]]) -> tuple[str, str]:
+    """The stored pair a user's text names.
+
+    Parameters
+    ----------
+    text : str or None
+        ``A/B``, in either order, spaces around the names ignored.
+    pairs : list of (str, str)
+        The stored pairs.
+
+    Returns
+    -------
+    (str, str)
+        The pair in stored order.
+
+    Raises
+    ------
+    InputError
+        When ``text`` is empty, not of the form ``A/B`` or names no stored pair.
+    """
+    text = (text or "").strip()
+    if not text:
+        raise InputError("pair: none chosen (write it as A/B)")
+    known = set(pairs)
+    cuts = [i for i, ch in enumerate(text) if ch == "/"]
+    if not cuts:
+        raise InputError(f"pair {text!r}: write it as A/B")
+    for i in cuts:
+        a, b = text[:i].strip(), text[i + 1:].strip()
+        if (a, b) in known:
+            return a, b
+        if (b, a) in known:
+            return b, a
+    example = f"; e.g. {pairs[0][0]}/{pairs[0][1]}" if pairs else ""
+    raise InputError(f"pair {text!r}: no stored timeline under the current settings "
+                     f"({len(pairs)} stored pair(s){example})")
+
+
+def study_link(pair: tuple[str, str], start: pd.Timestamp | str,
+               end: pd.Timestamp | str) -> str:
+    """The Drill-down page's address for a pair and a date range.
+
+    Parameters
+    ----------
+    pair : (str, str)
+    start, end : Timestamp or str
+        First and last date of the range.
+
+    Returns
+    -------
+    str
+        ``/drilldown?pair=A/B&start=YYYY-MM-DD&end=YYYY-MM-DD`` (query URL-encoded).
+    """
+    iso = [pd.Timestamp(d).strftime("%Y-%m-%d") for d in (start, end)]
+    query = urlencode({"pair": f"{pair[0]}/{pair[1]}", "start": iso[0], "end": iso[1]},
+                      safe="/")
+    return f"/drilldown?{query}"
+
+
+def provenance_note(view: StoreView) -> str:
+    """What produced the stored timelines.
+
+    Parameters
+    ----------
+    view : StoreView
+
+    Returns
+    -------
+    str
+        Window, step, selection criterion and number of candidate families, tail level and
+        the marginal filter's mode.
+    """
+    r = view.rolling
+    return (f"window {r.window} days, step {r.step}, family chosen by {r.criterion.upper()} "
+            f"among {len(r.families)}, tail level q = {r.tail_q:g}, marginals "
+            f"{view.cfg.marginals.mode} GARCH-type filter")
+
+
+def family_runs(frame: pd.DataFrame) -> pd.DataFrame:
+    """Runs of the selected family (and rotation) over a timeline.
+
+    Returns
+    -------
+    DataFrame
+        ``family, rotation, first_date, last_date, windows``: one row per run of window ends
+        with the same selection, in date order.
+    """
+    cols = ["family", "rotation", "first_date", "last_date", "windows"]
+    if frame.empty:
+        return pd.DataFrame(columns=cols)
+    fam = frame["family"].astype(str).to_numpy()
+    rot = frame["rotation"].to_numpy(dtype=np.int64)
+    dates = pd.to_datetime(frame["date"]).to_numpy()
+    change = np.flatnonzero((fam[1:] != fam[:-1]) | (rot[1:] != rot[:-1])) + 1
+    first = np.concatenate([[0], change])
+    last = np.concatenate([change - 1, [fam.size - 1]])
+    return pd.DataFrame({"family": fam[first], "rotation": rot[first],
+                         "first_date": dates[first], "last_date": dates[last],
+                         "windows": last - first + 1}, columns=cols)
+
+
+def episode_spans(episodes: pd.DataFrame, last_date: pd.Timestamp | None) -> pd.DataFrame:
+    """Alert episodes as date spans to shade.
+
+    Parameters
+    ----------
+    episodes : DataFrame
+        Stored episodes of one pair (:meth:`monitor.data.store.Store.read_episodes`).
+    last_date : Timestamp or None
+        The pair's last window end: where an open episode's span stops.
+
+    Returns
+    -------
+    DataFrame
+        ``tail, cause, statistic, onset, start, end, open, peak_date, peak_value`` in start
+        order; ``end`` is the last alert day, or ``last_date`` while the episode is open.
+    """
+    cols = ["tail", "cause", "statistic", "onset", "start", "end", "open", "peak_date",
+            "peak_value"]
+    if episodes.empty:
+        return pd.DataFrame(columns=cols)
+    out = episodes[["tail", "cause", "statistic", "onset", "start", "end", "peak_date",
+                    "peak_value"]].copy()
+    out["open"] = out["end"].isna()
+    for col in ("onset", "start", "end", "peak_date"):
+        out[col] = pd.to_datetime(out[col])
+    out.loc[out["open"], "end"] = pd.Timestamp(last_date) if last_date is not None else pd.NaT
+    return out.sort_values(["start", "tail"], kind="stable").reset_index(drop=True)[cols]
+
+
+@dataclass(frozen=True, slots=True)
+class PairHistory:
+    """Everything the Timeline page shows for one pair.
+
+    Attributes
+    ----------
+    pair : (str, str)
+    frame : DataFrame
+        One row per window end: ``date, start, n, kendall_tau, kendall_tau_se, tau_low,
+        tau_high, family, rotation, converged, tail_lower, tail_upper, tail_lower_emp,
+        tail_upper_emp, tail_lower_low, tail_lower_high, tail_upper_low, tail_upper_high,
+        gauss_tail_q, state_lower, state_upper`` (bands at :data:`LEVEL`).
+    families : DataFrame
+        :func:`family_runs` of the frame.
+    episodes : DataFrame
+        :func:`episode_spans` of the stored episodes.
+    tail_q : float
+    provenance : str
+        :func:`provenance_note`.
+    """
+
+    pair: tuple[str, str]
+    frame: pd.DataFrame
+    families: pd.DataFrame
+    episodes: pd.DataFrame
+    tail_q: float
+    provenance: str
+
+
+def pair_history(view: StoreView, a: str, b: str) -> PairHistory:
+    """The stored history of pair ``(a, b)`` (stored order) with its bands and states.
+
+    Raises
+    ------
+    InputError
+        When nothing is stored for the pair under the view's settings.
+
+    Notes
+    -----
+    Three reads: the pair's metric rows, its state runs and its episodes. States come from
+    the stored runs (:func:`monitor.engine.pipeline.states_on`), so they are those of the last
+    ``comove update``; a window end newer than the last signal update has no state.
+    """
+    timeline = view.store.read_timeline(view.rolling_key, a, b)
+    if timeline.empty:
+        raise InputError(f"pair {a}/{b}: no rolling metrics stored under the current settings "
+                         "(run 'comove update')")
+    q = view.rolling.tail_q
+    frame = timeline[["date", "start", "n", "kendall_tau", "kendall_tau_se", "family",
+                      "rotation", "converged", "tail_lower", "tail_upper", "tail_lower_avg",
+                      "tail_upper_avg", "tail_lower_emp", "tail_upper_emp",
+                      "gauss_tail_q"]].copy()
+    for col in ("kendall_tau", "kendall_tau_se", "tail_lower", "tail_upper", "tail_lower_avg",
+                "tail_upper_avg", "tail_lower_emp", "tail_upper_emp", "gauss_tail_q"):
+        frame[col] = pd.to_numeric(frame[col]).astype(float)
+    low, high = tau_band(frame["kendall_tau"], frame["kendall_tau_se"])
+    frame.insert(5, "tau_low", low)
+    frame.insert(6, "tau_high", high)
+    for tail in TAILS:
+        low, high = binomial_band(frame[f"tail_{tail}_emp"], frame["n"], q)
+        frame[f"tail_{tail}_low"] = low
+        frame[f"tail_{tail}_high"] = high
+    runs = view.store.read_state_runs(view.signals_key, (a, b))
+    states = states_on(runs, frame.assign(asset_a=a, asset_b=b))
+    frame = pd.concat([frame, states], axis=1)
+    spans = episode_spans(view.store.read_episodes(view.signals_key, (a, b)),
+                          frame["date"].iloc[-1])
+    return PairHistory((a, b), frame, family_runs(frame), spans, q, provenance_note(view))
+
+
+def episodes_table(history: PairHistory) -> pd.DataFrame:
+    """The pair's episodes as the page's table shows and exports them.
+
+    Parameters
+    ----------
+    history : PairHistory
+
+    Returns
+    -------
+    DataFrame
+        One row per episode: tail, cause, statistic, onset, first and last alert day
+        (``open`` while it runs), peak day and peak evidence.
+    """
+    e = history.episodes
+    if e.empty:
+        return pd.DataFrame(columns=["tail", "cause", "statistic", "onset", "first alert day",
+                                     "last alert day", "peak day", "peak evidence"])
+
+    def iso(col: str) -> pd.Series:
+        return pd.to_datetime(e[col]).dt.strftime("%Y-%m-%d")
+
+    return pd.DataFrame({
+        "tail": e["tail"], "cause": e["cause"], "statistic": e["statistic"],
+        "onset": iso("onset"), "first alert day": iso("start"),
+        "last alert day": iso("end").where(~e["open"].astype(bool), "open"),
+        "peak day": iso("peak_date"),
+        "peak evidence": pd.to_numeric(e["peak_value"]).astype(float).round(2)})
+
+
+# ----------------------------------------------------------------------------- figure
+def translucent(colour: str, alpha: float) -> str:
+    """A palette colour made translucent, for bands and shading.
+
+    Parameters
+    ----------
+    colour : str
+        ``#RRGGBB``.
+    alpha : float
+        Opacity in [0, 1].
+
+    Returns
+    -------
+    str
+        ``rgba(r,g,b,alpha)``.
+    """
+    c = colour.lstrip("#")
+    r, g, b = (int(c[i:i + 2], 16) for i in (0, 2, 4))
+    return f"rgba({r},{g},{b},{alpha})"
+
+
+def _band(fig: go.Figure, x, low, high, colour: str, name: str, row: int, group: str) -> None:
+    fig.add_trace(go.Scatter(x=x, y=high, mode="lines", line={"width": 0}, hoverinfo="skip",
+                             showlegend=False, legendgroup=group), row=row, col=1)
+    fig.add_trace(go.Scatter(x=x, y=low, mode="lines", line={"width": 0}, fill="tonexty",
+                             fillcolor=translucent(colour, 0.2), name=name, legendgroup=group,
+                             hoverinfo="skip"), row=row, col=1)
+
+
+#: Rows of the strip beneath the timeline, top to bottom.
+STRIP_ROWS = ("family", "rotation", "lower state", "upper state")
+
+
+def _strip(frame: pd.DataFrame) -> tuple[np.ndarray, list[str], list[list[float | str]],
+                                          np.ndarray]:
+    """Codes, labels, a stepped colour scale and hover text of the strip: the selected family,
+    its rotation (shaded light to dark by angle) and each tail's state."""
+    fams = list(FAMILY_COLOURS)
+    rots = [f"rotated {r}°" for r in ROTATION_SHADES]
+    labels = [*fams, *rots, *STATES, "no state"]
+    colours = [*FAMILY_COLOURS.values(), *ROTATION_SHADES.values(),
+               *(STATE_COLOURS[s] for s in STATES), RULE]
+    code = {name: i for i, name in enumerate(labels)}
+    fam = frame["family"].astype(str).map(code).fillna(code["independence"]).to_numpy(float)
+    rot_deg = frame["rotation"].astype(int)
+    rot = ("rotated " + rot_deg.astype(str) + "°").map(code).to_numpy(float)
+    label = (frame["family"].astype(str) + " " + rot_deg.astype(str) + "°").to_numpy()
+    rows = [fam, rot]
+    text = [label, label]
+    for tail in TAILS:
+        st = frame[f"state_{tail}"].fillna("no state").astype(str)
+        rows.append(st.map(code).to_numpy(float))
+        text.append(st.to_numpy())
+    k = len(labels)
+    scale = []
+    for i, c in enumerate(colours):
+        scale += [[i / k, c], [(i + 1) / k, c]]
+    return np.vstack(rows), labels, scale, np.vstack(text)
+
+
+def tau_axis_range(low: ArrayLike, high: ArrayLike, pad: float = 0.1,
+                   least: float = 0.2) -> tuple[float, float]:
+    """The tau axis of the timeline: the data's band with some room, inside [-1, 1].
+
+    Parameters
+    ----------
+    low, high : array_like
+        Lower and upper ends of the tau band of each window (NaN ignored).
+    pad : float
+        Share of the data's span added above and below.
+    least : float
+        Smallest span shown, so a flat series still shows its wiggles at a readable scale.
+
+    Returns
+    -------
+    (float, float)
+        ``(lo, hi)`` with ``-1 <= lo < hi <= 1``; ``(-1, 1)`` when no value is finite.
+
+    Notes
+    -----
+    The span is ``max(high) - min(low)``, widened by ``pad`` of itself on each side and to
+    at least ``least`` around its middle; zero is kept in view when the band comes within
+    ``least`` of it, so that the sign of the dependence stays readable.
+    """
+    lo_v = np.asarray(low, dtype=float)
+    hi_v = np.asarray(high, dtype=float)
+    finite = np.concatenate([lo_v[np.isfinite(lo_v)], hi_v[np.isfinite(hi_v)]])
+    if finite.size == 0:
+        return -1.0, 1.0
+    lo, hi = float(finite.min()), float(finite.max())
+    span = hi - lo
+    lo, hi = lo - pad * span, hi + pad * span
+    if hi - lo < least:
+        mid = (hi + lo) / 2
+        lo, hi = mid - least / 2, mid + least / 2
+    if 0 < lo <= least:
+        lo = 0.0
+    if -least <= hi < 0:
+        hi = 0.0
+    return max(-1.0, round(lo, 3)), min(1.0, round(hi, 3))
+
+
+def rounded_for_plot(frame: pd.DataFrame, digits: int = 4) -> pd.DataFrame:
+    """A copy with float columns rounded, for plotting.
+
+    Parameters
+    ----------
+    frame : DataFrame
+    digits : int
+        Decimals kept.
+
+    Returns
+    -------
+    DataFrame
+
+    Notes
+    -----
+    A figure travels to the browser as JSON; thousands of windows in full precision
+    make it far larger for digits nobody reads (the hover shows three).
+    """
+    out = frame.copy()
+    floats = out.select_dtypes("float").columns
+    out[floats] = out[floats].round(digits)
+    return out
+
+
+def timeline_figure(history: PairHistory) -> go.Figure:
+    """The pair's timeline: four rows sharing the date axis.
+
+    Rows: Kendall's tau with its 95 % band; the lower and the upper tail, each with the
+    nonparametric concordance ``C_n(q,q)/q`` and its Wilson band, the model-averaged
+    coefficient (Akaike weights), the selected family's own coefficient (hidden until its
+    legend entry is clicked: it flips with the selection) and the Gaussian copula's value at
+    the window's tau; a strip
+    of four rows (:data:`STRIP_ROWS`): the selected family, its rotation (shaded light to
+    dark: 0, 90, 180, 270 degrees; the hover names both, e.g. "clayton 180°"), and each
+    tail's state. Family colours are never state colours, and tau (black) never shares a
+    colour with the tail series. The tau axis fits the band (:func:`tau_axis_range`); the
+    tail axes span [0, 1]. Alert episodes are shaded (lower-tail episodes on the tau and
+    lower rows, upper-tail ones on the tau and upper rows). The y axes are fixed, so
+    dragging selects a date range.
+
+    Parameters
+    ----------
+    history : PairHistory
+
+    Returns
+    -------
+    plotly Figure
+        Traces in order: tau band (two traces) and tau; per tail the Wilson band (two), the
+        nonparametric line, the model-averaged line, the selected family's line and the
+        Gaussian same-tau line; the
+        strip heatmap; legend-only markers for families, rotations, states and episode
+        shading. One
+        shaded rectangle per episode and row.
+    """
+    f = rounded_for_plot(history.frame)
+    x = f["date"].dt.strftime("%Y-%m-%d").to_numpy()
+    a, b = history.pair
+    fig = make_subplots(rows=4, cols=1, shared_xaxes=True, vertical_spacing=0.035,
+                        row_heights=[0.29, 0.29, 0.29, 0.13], subplot_titles=(
+                            "Kendall's tau (95% band)",
+                            f"Lower tail at q = {history.tail_q:g}",
+                            f"Upper tail at q = {history.tail_q:g}",
+                            "Selected family, its rotation, and the tail states"))
+    tau_colour = SERIES_COLOURS["tau"]
+    emp_colour, model_colour = SERIES_COLOURS["tail_empirical"], SERIES_COLOURS["tail_model"]
+    _band(fig, x, f["tau_low"], f["tau_high"], tau_colour, "tau 95% band", 1, "tau")
+    fig.add_trace(go.Scatter(x=x, y=f["kendall_tau"], mode="lines", name="Kendall's tau",
+                             line={"color": tau_colour, "width": 1.5}, legendgroup="tau",
+                             customdata=np.c_[f["tau_low"], f["tau_high"]],
+                             hovertemplate="tau %{y:.3f} (95%: %{customdata[0]:.3f} to "
+                                           "%{customdata[1]:.3f})<extra></extra>"), row=1, col=1)
+    for row, tail in ((2, "lower"), (3, "upper")):
+        first = tail == "lower"
+        _band(fig, x, f[f"tail_{tail}_low"], f[f"tail_{tail}_high"], emp_colour,
+              "nonparametric 95% band (Wilson)", row, "emp-band")
+        fig.data[-1].showlegend = first
+        fig.add_trace(go.Scatter(
+            x=x, y=f[f"tail_{tail}_emp"], mode="lines", name="nonparametric C(q,q)/q",
+            line={"color": emp_colour, "width": 1.2}, legendgroup="emp", showlegend=first,
+            customdata=np.c_[f[f"tail_{tail}_low"], f[f"tail_{tail}_high"]],
+            hovertemplate=f"{tail} nonparametric %{{y:.3f}} (95%: %{{customdata[0]:.3f}} to "
+                          "%{customdata[1]:.3f})<extra></extra>"), row=row, col=1)
+        fig.add_trace(go.Scatter(
+            x=x, y=f[f"tail_{tail}_avg"], mode="lines", name="model-averaged (Akaike weights)",
+            line={"color": model_colour, "width": 1.5}, legendgroup="averaged",
+            showlegend=first,
+            hovertemplate=f"{tail} model-averaged %{{y:.3f}} (no stored s.e.)<extra></extra>"),
+            row=row, col=1)
+        # The selected family's own coefficient jumps between 0 and a large value as the
+        # choice flips between tail-free and tail-dependent families: a click in the legend
+        # shows it.
+        fig.add_trace(go.Scatter(
+            x=x, y=f[f"tail_{tail}"], mode="lines", name="model-implied (selected family)",
+            line={"color": model_colour, "width": 1, "dash": "dot"}, legendgroup="model",
+            showlegend=first, visible="legendonly",
+            hovertemplate=f"{tail} selected family %{{y:.3f}} (no stored s.e.)<extra></extra>"),
+            row=row, col=1)
+        fig.add_trace(go.Scatter(
+            x=x, y=f["gauss_tail_q"], mode="lines", name="Gaussian at the same tau",
+            line={"color": SERIES_COLOURS["gaussian_same_tau"], "width": 1, "dash": "dot"},
+            legendgroup="gauss",
+            showlegend=first, hovertemplate="Gaussian same-tau %{y:.3f}<extra></extra>"),
+            row=row, col=1)
+    z, labels, scale, text = _strip(f)
+    fig.add_trace(go.Heatmap(x=x, y=list(STRIP_ROWS), z=z, text=text,
+                             colorscale=scale, zmin=-0.5, zmax=len(labels) - 0.5,
+                             showscale=False, hovertemplate="%{y}: %{text}<extra></extra>",
+                             ygap=1), row=4, col=1)
+    seen = set(f["family"].astype(str))
+    for fam, colour in FAMILY_COLOURS.items():
+        if fam in seen:
+            share = float((f["family"].astype(str) == fam).mean())
+            fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name=f"{fam} "
+                                     f"({share:.0%} of windows)", legendgroup="families",
+                                     legendgrouptitle_text="selected family",
+                                     marker={"symbol": "square", "size": 11, "color": colour}),
+                          row=4, col=1)
+    seen_rot = set(f["rotation"].astype(int))
+    for rot, shade in ROTATION_SHADES.items():
+        if rot in seen_rot:
+            share = float((f["rotation"].astype(int) == rot).mean())
+            fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers",
+                                     name=f"{rot}° ({share:.0%})", legendgroup="rotations",
+                                     legendgrouptitle_text="rotation (counter-clockwise)",
+                                     marker={"symbol": "square", "size": 11, "color": shade,
+                                             "line": {"color": MUTED, "width": 1}}),
+                          row=4, col=1)
+    for state in STATES:
+        fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name=state,
+                                 legendgroup="states", legendgrouptitle_text="tail state",
+                                 marker={"symbol": "square", "size": 11,
+                                         "color": STATE_COLOURS[state]}), row=4, col=1)
+    for tail in TAILS:
+        fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers",
+                                 name=f"{tail}-tail alert episode", legendgroup="episodes",
+                                 legendgrouptitle_text="shaded",
+                                 marker={"symbol": "square", "size": 11,
+                                         "color": translucent(EPISODE_COLOURS[tail], 0.35)}),
+                      row=1, col=1)
+    for e in history.episodes.itertuples(index=False):
+        rows = (1, 2) if e.tail == "lower" else (1, 3)
+        for row in rows:
+            fig.add_vrect(x0=e.start, x1=e.end, row=row, col=1, layer="below", line_width=0,
+                          fillcolor=translucent(EPISODE_COLOURS[e.tail], 0.14))
+    fig.update_yaxes(fixedrange=True)
+    fig.update_yaxes(range=list(tau_axis_range(f["tau_low"], f["tau_high"])), row=1, col=1,
+                     zeroline=True, zerolinecolor=RULE)
+    fig.update_yaxes(range=[0, 1], row=2, col=1)
+    fig.update_yaxes(range=[0, 1], row=3, col=1)
+    fig.update_xaxes(showspikes=True, spikemode="across", spikecolor=MUTED, spikethickness=1)
+    fig.update_layout(**figure_layout(
+        height=900, dragmode="zoom", hovermode="x unified",
+        legend={"orientation": "h", "y": -0.05, "yanchor": "top", "x": 0,
+                "font": {"size": 11}, "groupclick": "toggleitem"},
+        margin={"l": 56, "r": 16, "t": 48, "b": 120},
+        title={"text": f"{a} / {b}", "x": 0.01, "font": {"size": 14}}))
+    return fig
