@@ -26,8 +26,6 @@ from dataclasses import dataclass
 from email.message import EmailMessage
 from email.utils import format_datetime, make_msgid
 
-import sqlalchemy as sa
-
 from monitor.common.errors import InputError
 from monitor.config import Config
 
@@ -191,14 +189,8 @@ def send_pending(store, cfg: Config, *, dry_run: bool = False,
         Messages are due but no server, sender or recipients are configured, or a
         credential variable is missing.
     """
-    from monitor.data.store import outbox
-
     now = now or _utcnow()
-    with store.engine.connect() as conn:
-        rows = [dict(r) for r in conn.execute(
-            sa.select(outbox).where(sa.and_(outbox.c.state == "pending",
-                                            outbox.c.next_attempt <= now))
-            .order_by(outbox.c.created, outbox.c.message_id)).mappings()]
+    rows = store.due_messages(now)
     if dry_run:
         e = cfg.alerts.email
         for r in rows:
@@ -255,27 +247,15 @@ def send_pending(store, cfg: Config, *, dry_run: bool = False,
 
 
 def _mark_sent(store, members: list[dict], sent_as: str) -> None:
-    from monitor.data.store import outbox
-
-    with store.transaction() as conn:
-        conn.execute(outbox.update().where(sa.and_(
-            outbox.c.message_id.in_([m["message_id"] for m in members]),
-            outbox.c.state == "pending")).values(
-                state="sent", sent_at=_utcnow(), sent_as=sent_as,
-                attempts=outbox.c.attempts + 1, last_error=None))
+    store.mark_sent([m["message_id"] for m in members], sent_as, _utcnow())
 
 
 def _record_failure(store, members: list[dict], reason: str, cfg: Config,
                     now: dt.datetime) -> None:
-    from monitor.data.store import outbox
-
-    if not members:
-        return
-    with store.transaction() as conn:
-        for m in members:
-            attempts = int(m["attempts"]) + 1
-            wait = min(dt.timedelta(seconds=cfg.alerts.retry_seconds * 2 ** (attempts - 1)),
-                       MAX_RETRY)
-            conn.execute(outbox.update().where(sa.and_(
-                outbox.c.message_id == m["message_id"], outbox.c.state == "pending")).values(
-                    attempts=attempts, last_error=reason[:500], next_attempt=now + wait))
+    failures = []
+    for m in members:
+        attempts = int(m["attempts"]) + 1
+        wait = min(dt.timedelta(seconds=cfg.alerts.retry_seconds * 2 ** (attempts - 1)),
+                   MAX_RETRY)
+        failures.append((m["message_id"], attempts, reason[:500], now + wait))
+    store.record_failures(failures)

@@ -31,10 +31,10 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-import sqlalchemy as sa
 
 from monitor.common.wording import CAUTION
 from monitor.config import AlertRule, AlertsConfig, Config
+from monitor.data.store import Connection, Store, Table
 
 #: Rule in force when the configuration names none.
 DEFAULT_RULES = (AlertRule(name="episodes", kind="episode"),)
@@ -289,23 +289,15 @@ def _html_page(title: str, cells: list[tuple[str, str]], body: str) -> str:
 
 
 # ----------------------------------------------------------------------------- queue
-def queue(conn: sa.Connection, outbox: sa.Table, settings_key: str,
+def queue(conn: Connection, outbox: Table, settings_key: str,
           events: list[AlertEvent]) -> int:
-    """Insert the events not already queued (by message id) into the outbox, in the caller's
-    transaction; returns how many were new."""
-    if not events:
-        return 0
-    ids = [e.message_id for e in events]
-    known = set(conn.execute(sa.select(outbox.c.message_id).where(
-        outbox.c.message_id.in_(ids))).scalars())
-    now = dt.datetime.now(dt.UTC).replace(tzinfo=None)
-    rows = [{"message_id": e.message_id, "settings": settings_key, "rule": e.rule,
-             "kind": e.kind, "asset_a": e.pair[0] if e.pair else None,
-             "asset_b": e.pair[1] if e.pair else None, "tail": e.tail, "event_date": e.date,
-             "subject": e.subject, "body_text": e.text, "body_html": e.html,
-             "state": "pending", "attempts": 0, "last_error": None, "created": now,
-             "next_attempt": now, "sent_at": None, "sent_as": None}
-            for e in {e.message_id: e for e in events}.values() if e.message_id not in known]
-    if rows:
-        conn.execute(outbox.insert(), rows)
-    return len(rows)
+    """Insert the events not already queued (by message id) into the outbox
+    (:data:`monitor.data.store.outbox`), in the caller's transaction; returns how many were
+    new (:meth:`monitor.data.store.Store.queue_messages`)."""
+    messages = [{"message_id": e.message_id, "settings": settings_key, "rule": e.rule,
+                 "kind": e.kind, "asset_a": e.pair[0] if e.pair else None,
+                 "asset_b": e.pair[1] if e.pair else None, "tail": e.tail,
+                 "event_date": e.date, "subject": e.subject, "body_text": e.text,
+                 "body_html": e.html}
+                for e in events]
+    return Store.queue_messages(conn, messages, outbox)

@@ -27,7 +27,6 @@ import pandas as pd
 from monitor.common.errors import InputError
 from monitor.data.store import (
     Store,
-    _now,
     as_tidy,
     checksum_bytes,
     frame_checksum,
@@ -35,6 +34,7 @@ from monitor.data.store import (
     returns,
     values_differ,
 )
+from monitor.data.store_base import utc_now
 from monitor.data.tables import ReadOptions, log_returns, read_series, read_sql_source
 
 KINDS = ("prices", "returns")
@@ -200,7 +200,7 @@ def _refuse_revision(src: Source, changed: pd.DataFrame, what: str) -> None:
 
 
 def _ingest_one(store: Store, conn, src: Source, accept: bool) -> IngestReport:
-    started = _now()
+    started = utc_now()
     wide = src.frame
     assets = [str(c) for c in wide.columns]
     tidy = as_tidy(wide)

@@ -22,11 +22,15 @@ import re
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
 
 from monitor.common.errors import InputError
+
+if TYPE_CHECKING:
+    import sqlalchemy as sa
 
 _PARQUET_MAGIC = b"PAR1"
 #: An OLE2 compound file (legacy .xls) and the zip container of .xlsx/.xlsm/.ods.
@@ -399,7 +403,7 @@ def _read_raw(path: Path, options: ReadOptions = DEFAULT_OPTIONS
     return _read_csv(path, data, options)
 
 
-def _check_header(names: list[str], path: Path) -> None:
+def _check_header(names: list[str], path: str | Path) -> None:
     """Refuse a header with a nameless, repeated or second date column."""
     for k, name in enumerate(names):
         if not name or name.lower().startswith("unnamed:"):
@@ -623,6 +627,21 @@ def _database_message(exc: BaseException) -> str:
     return text.splitlines()[0] if text else type(exc).__name__
 
 
+def _source_statement(query: str | None, table: str | None
+                      ) -> sa.Select[Any] | sa.TextClause:
+    """The statement reading a SQL source: ``SELECT *`` from the table (quoted as an
+    identifier), or the query as written; exactly one of them must be given."""
+    import sqlalchemy as sa
+
+    if table is not None and query is None:
+        return sa.select(sa.text("*")).select_from(sa.table(table))
+    if query is not None and table is None:
+        # The query runs as written: text() would read ':word' (say inside a string literal)
+        # as a bind parameter, so every such colon is escaped with its own pattern.
+        return sa.text(re.sub(r"(?<![:\w\\]):(\w+)(?!:)", r"\\:\1", query))
+    raise InputError("a SQL source needs exactly one of a query and a table")
+
+
 def read_sql_source(url: str, *, query: str | None = None, table: str | None = None
                     ) -> pd.DataFrame:
     """Read series from a SQL source: a whole table or a query, wide or long.
@@ -644,19 +663,12 @@ def read_sql_source(url: str, *, query: str | None = None, table: str | None = N
     """
     import sqlalchemy as sa
 
-    if (query is None) == (table is None):
-        raise InputError("a SQL source needs exactly one of a query and a table")
+    stmt = _source_statement(query, table)
     try:
         shown = sa.engine.make_url(url).render_as_string(hide_password=True)
     except sa.exc.ArgumentError:
         raise InputError(f"SQL source: {url!r} is not a database URL") from None
     name = f"{shown} ({'table ' + repr(table) if table else 'query ' + _show(query, 80)})"
-    if table:
-        stmt = sa.select(sa.text("*")).select_from(sa.table(table))
-    else:
-        # The query runs as written: text() would read ':word' (say inside a string literal)
-        # as a bind parameter, so every such colon is escaped with its own pattern.
-        stmt = sa.text(re.sub(r"(?<![:\w\\]):(\w+)(?!:)", r"\\:\1", query))
     engine = None
     try:
         engine = sa.create_engine(url)

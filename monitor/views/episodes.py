@@ -16,7 +16,6 @@ documented columns.
 
 from __future__ import annotations
 
-import datetime as dt
 from dataclasses import dataclass, fields
 from types import MappingProxyType
 from urllib.parse import quote
@@ -24,12 +23,11 @@ from urllib.parse import quote
 import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
-import sqlalchemy as sa
 
 from monitor.common.errors import InputError
 from monitor.common.palette import BLUE, MUTED, VERMILION, figure_layout
 from monitor.config import EmailConfig
-from monitor.data.store import Store, episodes, metrics, outbox, pair_state
+from monitor.data.store import Store
 from monitor.stats.signals import CAUSES, TAILS, SignalSettings
 from monitor.views.common import StoreView
 
@@ -153,10 +151,7 @@ def monitored_pairs(view: StoreView) -> list[str]:
         ``"A/B"``, sorted; read from the per-pair state table (one row a pair), not from the
         metrics themselves.
     """
-    stmt = sa.select(pair_state.c.asset_a, pair_state.c.asset_b).where(
-        pair_state.c.settings == view.rolling_key)
-    with view.store.engine.connect() as conn:
-        return sorted(f"{a}/{b}" for a, b in conn.execute(stmt).all())
+    return sorted(f"{a}/{b}" for a, b in view.store.monitored_pairs(view.rolling_key))
 
 
 def episode_frame(view: StoreView) -> pd.DataFrame:
@@ -197,7 +192,7 @@ def episode_frame(view: StoreView) -> pd.DataFrame:
     frame = view.store.read_episodes(view.signals_key)
     if frame.empty:
         return _empty(EPISODE_COLUMNS)
-    counts = _durations(view.store, view.signals_key, view.rolling_key)
+    counts = view.store.episode_durations(view.signals_key, view.rolling_key)
     frame = frame.merge(counts, on=["asset_a", "asset_b", "tail", "start"], how="left")
     for col in ("latest_date", "latest_value"):
         if col not in frame.columns:
@@ -212,30 +207,6 @@ def episode_frame(view: StoreView) -> pd.DataFrame:
         frame[col] = pd.to_numeric(frame[col], errors="coerce").astype(float)
     frame = frame.sort_values(["start", "pair", "tail"], ascending=[False, True, True])
     return frame[list(EPISODE_COLUMNS)].reset_index(drop=True)
-
-
-def _durations(store: Store, signals_key: str, rolling_key: str) -> pd.DataFrame:
-    e, m = episodes, metrics
-    # Both bounds of the date range are plain comparisons, so the database walks the
-    # metrics index over the episode's own window ends only.
-    last = sa.func.coalesce(e.c.end, sa.literal(dt.date(9999, 12, 31), sa.Date))
-    pair = sa.and_(m.c.settings == rolling_key, m.c.asset_a == e.c.asset_a,
-                   m.c.asset_b == e.c.asset_b)
-    days = (sa.select(sa.func.count()).select_from(m)
-            .where(pair, m.c.date >= e.c.start, m.c.date <= last).scalar_subquery())
-    latest = sa.select(sa.func.max(m.c.date)).where(pair).scalar_subquery()
-    at_peak = sa.and_(pair, m.c.date == e.c.peak_date)
-    tau_se = sa.select(m.c.kendall_tau_se).where(at_peak).scalar_subquery()
-    emp_se = sa.select(sa.case((e.c.tail == "lower", m.c.tail_lower_emp_se),
-                               else_=m.c.tail_upper_emp_se)).where(at_peak).scalar_subquery()
-    stmt = sa.select(e.c.asset_a, e.c.asset_b, e.c.tail, e.c.start, days.label("duration_days"),
-                     sa.case((e.c.end.is_(None), latest), else_=e.c.end).label("last_day"),
-                     tau_se.label("peak_kendall_tau_se"), emp_se.label("peak_tail_emp_se")
-                     ).where(e.c.settings == signals_key)
-    with store.engine.connect() as conn:
-        rows = conn.execute(stmt).all()
-    return pd.DataFrame(rows, columns=["asset_a", "asset_b", "tail", "start", "duration_days",
-                                       "last_day", "peak_kendall_tau_se", "peak_tail_emp_se"])
 
 
 def _iso(day) -> str:
@@ -500,13 +471,7 @@ def read_outbox(store: Store, *, limit: int = 500) -> pd.DataFrame:
     """
     if isinstance(limit, bool) or not isinstance(limit, int) or limit < 1:
         raise ValueError(f"limit must be a positive integer, got {limit!r}")
-    o = outbox.c
-    cols = [o.created, o.asset_a, o.asset_b, o.tail, o.rule, o.kind, o.event_date, o.subject,
-            o.state, o.attempts, o.last_error, o.next_attempt, o.sent_at]
-    with store.engine.connect() as conn:
-        rows = conn.execute(sa.select(*cols).order_by(o.created.desc(), o.message_id)
-                            .limit(limit)).all()
-    frame = pd.DataFrame(rows, columns=[c.name for c in cols])
+    frame = store.read_outbox(limit)
     pair = frame.pop("asset_a").fillna("") + "/" + frame.pop("asset_b").fillna("")
     frame.insert(1, "pair", pair.where(pair != "/", ""))
     return frame[list(OUTBOX_COLUMNS)]

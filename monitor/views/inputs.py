@@ -29,7 +29,6 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
-import sqlalchemy as sa
 from numpy.typing import ArrayLike, NDArray
 from plotly.subplots import make_subplots
 from scipy import special, stats
@@ -37,7 +36,7 @@ from scipy import special, stats
 from monitor.common.arrays import read_only
 from monitor.common.errors import InputError
 from monitor.common.palette import BLUE, GROUND, MUTED, ORANGE, VERMILION, figure_layout
-from monitor.data.store import Store, marginal_fits, marginal_state, residuals, returns
+from monitor.data.store import Store
 from monitor.stats.marginals import (
     LJUNG_BOX_LAGS,
     FilteredSeries,
@@ -136,11 +135,7 @@ def read_presence(store: Store) -> pd.DataFrame:
     (``group_concat`` / ``string_agg``): parsing them is a single NumPy conversion, where
     fetching one row per stored return would cost seconds for a large universe.
     """
-    text = sa.cast(returns.c.date, sa.String(10))
-    stmt = (sa.select(returns.c.asset, sa.func.aggregate_strings(text, ","))
-            .group_by(returns.c.asset).order_by(returns.c.asset))
-    with store.engine.connect() as conn:
-        rows = conn.execute(stmt).all()
+    rows = store.return_date_lists()
     if not rows:
         return pd.DataFrame(index=pd.DatetimeIndex([], name="date"), dtype=bool)
     per_asset = [np.array(joined.split(","), dtype="datetime64[D]") for _, joined in rows]
@@ -363,26 +358,9 @@ def marginal_table(store: Store, settings_key: str) -> pd.DataFrame:
     Four grouped queries, whatever the number of refits: per asset the fit counts, the
     latest fit's stored record, the specs used and the residual counts.
     """
-    f = marginal_fits
-    key = f.c.settings == settings_key
-    latest = (sa.select(f.c.asset, sa.func.max(f.c.seq).label("seq"),
-                        sa.func.count().label("refits"),
-                        sa.func.sum(sa.case((f.c.fallback != "", 1), else_=0)).label("fb"))
-              .where(key).group_by(f.c.asset).subquery())
-    payloads = (sa.select(latest.c.asset, latest.c.refits, latest.c.fb, f.c.payload)
-                .join(f, sa.and_(key, f.c.asset == latest.c.asset, f.c.seq == latest.c.seq)))
-    specs = (sa.select(f.c.asset, f.c.spec, sa.func.count().label("n")).where(key)
-             .group_by(f.c.asset, f.c.spec))
-    r = residuals
-    counts = (sa.select(r.c.asset, sa.func.count().label("n"), sa.func.min(r.c.date),
-                        sa.func.max(r.c.date))
-              .where(r.c.settings == settings_key).group_by(r.c.asset))
-    states = sa.select(marginal_state.c.asset).where(marginal_state.c.settings == settings_key)
-    with store.engine.connect() as conn:
-        fits = conn.execute(payloads).all()
-        used = conn.execute(specs).all()
-        stored = {a: (n, lo, hi) for a, n, lo, hi in conn.execute(counts).all()}
-        current = set(conn.execute(states).scalars())
+    overview = store.marginal_overview(settings_key)
+    fits, used = overview.latest, overview.specs
+    stored, current = overview.residuals, overview.current
     if not fits:
         return _empty(MARGINAL_COLUMNS)
     spec_text: dict[str, list[tuple[int, str]]] = {}

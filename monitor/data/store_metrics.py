@@ -1,0 +1,305 @@
+"""Rolling metrics in the store: the rolling engine's timeline per settings key and pair (one
+row per window end) and what the next incremental batch of a pair starts from (its last
+window end, tau and warm starts), with the cross-pair reads of the timeline the board and the
+signals step make.
+
+Tables (:mod:`monitor.data.schema`): ``metrics``, ``pair_state``.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+from collections.abc import Iterable
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import sqlalchemy as sa
+
+from monitor.data.schema import metrics, pair_state, signal_resume, universe_daily
+from monitor.data.store_base import (
+    StoreBase,
+    materialises,
+    of_pair,
+    raw_date,
+    row_frame,
+    to_dates,
+    utc_now,
+)
+
+#: A pair's metrics to store: ``(asset_a, asset_b, frame, warm_starts, last_tau, replace_all)``.
+PairMetrics = tuple[str, str, pd.DataFrame, dict[Any, Any], float, bool]
+
+
+def _records(frame: pd.DataFrame, extra: dict[str, Any]) -> list[dict[str, Any]]:
+    """Insert parameters from a metrics frame: ``date``/``start`` as dates, non-finite
+    numbers as NULL, Python scalars; ``extra`` added to every row. Built column by column,
+    which is several times faster than ``DataFrame.to_dict`` on the daily one-row frames."""
+    columns: list[list[Any]] = []
+    for name, col in frame.items():
+        arr = col.to_numpy()
+        if name in ("date", "start"):
+            values: list[Any] = to_dates(arr)
+        elif arr.dtype.kind == "f":
+            values = arr.tolist()
+            for i in np.flatnonzero(~np.isfinite(arr)):
+                values[i] = None
+        else:
+            values = [None if isinstance(x, float) and not np.isfinite(x) else x
+                      for x in arr.tolist()]
+        columns.append(values)
+    names = list(frame.columns)
+    return [{**dict(zip(names, row, strict=True)), **extra}
+            for row in zip(*columns, strict=True)]
+
+
+def _timeline_statements() -> tuple[sa.Select[Any], sa.Select[Any]]:
+    """A pair's metric rows in date order: all of them, and those from the ``p_n``-th
+    window end before ``p_d`` on (all when it has fewer)."""
+    from monitor.stats.rolling import METRIC_COLUMNS
+
+    # Dates come through as the driver gives them (ISO text on SQLite) and are converted
+    # per column: several times faster than converting value by value, which matters when
+    # every pair's timeline is read daily.
+    cols = [raw_date(metrics.c[c]) if c in ("date", "start") else metrics.c[c]
+            for c in METRIC_COLUMNS]
+    whole = sa.select(*cols).where(of_pair(metrics)).order_by(metrics.c.date)
+    first = (sa.select(metrics.c.date)
+             .where(of_pair(metrics), metrics.c.date <= sa.bindparam("p_d"))
+             .order_by(metrics.c.date.desc()).limit(1).offset(sa.bindparam("p_n"))
+             .scalar_subquery())
+    newest = whole.where(metrics.c.date >= sa.func.coalesce(first, dt.date(1, 1, 1)))
+    return whole, newest
+
+
+_SELECT_TIMELINE, _SELECT_TIMELINE_FROM = _timeline_statements()
+
+
+class MetricStore(StoreBase):
+    """The rolling metrics and the pairs' rolling states of a store (a part of
+    :class:`~monitor.data.store.Store`)."""
+
+    def load_pair_states(self, settings_key: str) -> dict[tuple[str, str], dict]:
+        """Every pair's last stored window end, its tau and the warm starts, by pair."""
+        with self.engine.connect() as conn:
+            rows = conn.execute(sa.select(
+                pair_state.c.asset_a, pair_state.c.asset_b, pair_state.c.last_date,
+                pair_state.c.last_tau, pair_state.c.warm_starts).where(
+                pair_state.c.settings == settings_key)).all()
+        out = {}
+        for a, b, last_date, last_tau, warm_json in rows:
+            warm = {(k.split("|")[0], int(k.split("|")[1])): np.array(v, dtype=float)
+                    for k, v in json.loads(warm_json).items()}
+            out[(a, b)] = {"last_date": last_date, "last_tau": last_tau, "warm": warm}
+        return out
+
+    def has_metrics(self, settings_key: str, a: str, b: str) -> bool:
+        """Whether any metric row of the pair is stored under the key."""
+        where = sa.and_(metrics.c.settings == settings_key, metrics.c.asset_a == a,
+                        metrics.c.asset_b == b)
+        with self.engine.connect() as conn:
+            return conn.execute(sa.select(sa.exists().where(where))).scalar_one()
+
+    @staticmethod
+    def save_pair_metrics(conn: sa.Connection, settings_key: str, a: str, b: str,
+                          frame: pd.DataFrame, warm: dict, last_tau: float,
+                          replace_all: bool = False) -> None:
+        """Append a pair's new metric rows and its state, in the caller's transaction
+        (``replace_all`` first drops whatever the pair had under the key)."""
+        MetricStore.save_metrics(conn, settings_key, [(a, b, frame, warm, last_tau, replace_all)])
+
+    @staticmethod
+    def save_metrics(conn: sa.Connection, settings_key: str,
+                     items: list[PairMetrics]) -> int:
+        """:meth:`save_pair_metrics` for many pairs at once (one statement per table, which
+        is what makes the daily update of hundreds of one-row pairs cheap); returns the
+        number of metric rows written.
+
+        Parameters
+        ----------
+        conn : Connection
+            The caller's transaction.
+        settings_key : str
+            Rolling settings key.
+        items : list of tuple
+            ``(asset_a, asset_b, frame, warm_starts, last_tau, replace_all)`` per pair.
+        """
+        replaced = [{"p_s": settings_key, "p_a": a, "p_b": b}
+                    for a, b, *_, replace_all in items if replace_all]
+        if replaced:
+            conn.execute(metrics.delete().where(of_pair(metrics)), replaced)
+            # Resume points are keyed by the signals' settings; their ``rolling`` column
+            # names the metrics they continue.
+            conn.execute(signal_resume.delete().where(
+                signal_resume.c.rolling == sa.bindparam("p_s"),
+                signal_resume.c.asset_a == sa.bindparam("p_a"),
+                signal_resume.c.asset_b == sa.bindparam("p_b")), replaced)
+            # Every date of the universe summary may have used the replaced rows.
+            conn.execute(universe_daily.delete().where(universe_daily.c.settings.startswith(
+                f"{settings_key}|", autoescape=True)))
+        live = [(a, b, frame) for a, b, frame, *_ in items if not frame.empty]
+        rows = []
+        if live:
+            # One frame for all pairs: converting it costs about as much as one pair's.
+            both = pd.concat([f for *_, f in live], ignore_index=True)
+            sizes = [len(f) for *_, f in live]
+            both["asset_a"] = np.repeat([a for a, _, _ in live], sizes)
+            both["asset_b"] = np.repeat([b for _, b, _ in live], sizes)
+            rows = _records(both, {"settings": settings_key})
+        states = []
+        now = utc_now()
+        for a, b, frame, warm, last_tau, _ in items:
+            if frame.empty:
+                continue
+            states.append({
+                "settings": settings_key, "asset_a": a, "asset_b": b,
+                "last_date": pd.Timestamp(frame["date"].iloc[-1]).date(),
+                "last_tau": float(last_tau),
+                "warm_starts": json.dumps({f"{k[0]}|{k[1]}": [float(x) for x in v]
+                                           for k, v in warm.items()}),
+                "updated_at": now})
+        if rows:
+            conn.execute(metrics.insert(), rows)
+        if items:
+            conn.execute(pair_state.delete().where(of_pair(pair_state)),
+                         [{"p_s": settings_key, "p_a": a, "p_b": b} for a, b, *_ in items])
+        if states:
+            conn.execute(pair_state.insert(), states)
+        return len(rows)
+
+    def read_timeline(self, settings_key: str, a: str, b: str, *,
+                      context_from: dt.date | None = None, context_rows: int = 0
+                      ) -> pd.DataFrame:
+        """A pair's stored metric rows, oldest first (columns of the rolling engine).
+
+        With ``context_from``, only the newest rows: those from ``context_rows`` window
+        ends up to and including ``context_from`` on (all rows when it has fewer before).
+        """
+        from monitor.stats.rolling import METRIC_COLUMNS
+
+        params: dict[str, Any] = {"p_s": settings_key, "p_a": a, "p_b": b}
+        if context_from is None:
+            stmt = _SELECT_TIMELINE
+        else:
+            stmt = _SELECT_TIMELINE_FROM
+            params.update(p_d=context_from, p_n=max(context_rows - 1, 0))
+        with self.engine.connect() as conn:
+            rows = conn.execute(stmt, params).fetchall()
+        data = list(zip(*rows, strict=True)) if rows else [()] * len(METRIC_COLUMNS)
+        out = {}
+        for name, values in zip(METRIC_COLUMNS, data, strict=True):
+            kind = metrics.c[name].type.python_type
+            if kind is dt.date:  # ISO text (SQLite) or dates (PostgreSQL)
+                out[name] = np.array(values, dtype="datetime64[D]").astype("datetime64[us]")
+            elif kind in (float, int, bool):
+                # Typed arrays up front (NULL reads as NaN): no per-value type inference.
+                out[name] = np.array(values, dtype=kind)
+            else:
+                out[name] = pd.array(values, dtype="str")
+        return pd.DataFrame(out, columns=list(METRIC_COLUMNS))
+
+    def metrics_as_of(self, settings_key: str, as_of: dt.date,
+                      columns: Iterable[str], back: int = 0) -> pd.DataFrame:
+        """For every pair with a stored rolling state, its latest metric row dated on or before
+        ``as_of``: one query (columns ``asset_a, asset_b`` and ``columns``; ``date`` as a
+        Timestamp when asked for). Pairs with no window end by then are left out.
+
+        With ``back`` > 0, the row ``back`` window ends before that one instead (the pair's
+        own window ends; pairs with fewer are left out).
+
+        Notes
+        -----
+        A common table expression first finds each pair's latest date with a correlated
+        ``max`` over the metrics key (settings, pair, date): one index seek per pair. It is
+        materialised where the database supports it (SQLite >= 3.35, PostgreSQL >= 12), so
+        the planner cannot fold it into a scan of every window end (seconds instead of
+        milliseconds for 435 pairs x 4750 windows).
+        """
+        columns = list(columns)
+        if isinstance(back, bool) or not isinstance(back, int) or back < 0:
+            raise ValueError(f"back must be an integer >= 0, got {back!r}")
+        inner = metrics.alias("later")
+        of_pair = (inner.c.settings == pair_state.c.settings,
+                   inner.c.asset_a == pair_state.c.asset_a,
+                   inner.c.asset_b == pair_state.c.asset_b, inner.c.date <= as_of)
+        if back == 0:
+            latest = sa.select(sa.func.max(inner.c.date)).where(*of_pair).scalar_subquery()
+        else:
+            latest = (sa.select(inner.c.date).where(*of_pair).order_by(inner.c.date.desc())
+                      .limit(1).offset(back).scalar_subquery())
+        with self.engine.connect() as conn:
+            ends = sa.select(pair_state.c.asset_a, pair_state.c.asset_b,
+                             latest.label("last_end")).where(
+                pair_state.c.settings == settings_key).cte("ends")
+            if materialises(conn):
+                ends = ends.prefix_with("MATERIALIZED")
+            stmt = (sa.select(metrics.c.asset_a, metrics.c.asset_b,
+                              *[metrics.c[c] for c in columns])
+                    .select_from(ends.join(metrics, sa.and_(
+                        metrics.c.settings == settings_key,
+                        metrics.c.asset_a == ends.c.asset_a,
+                        metrics.c.asset_b == ends.c.asset_b,
+                        metrics.c.date == ends.c.last_end)))
+                    .order_by(metrics.c.asset_a, metrics.c.asset_b))
+            rows = conn.execute(stmt).all()
+        frame = row_frame(rows, ["asset_a", "asset_b", *columns])
+        for col in ("date", "start"):
+            if col in frame.columns:
+                frame[col] = pd.to_datetime(frame[col])
+        return frame
+
+    def tail_level_counts(self, settings_key: str, first: dt.date, last: dt.date,
+                          level: float, columns: tuple[str, str] = ("tail_lower_avg",
+                                                                    "tail_upper_avg")
+                          ) -> pd.DataFrame:
+        """Per pair, how many of its window ends in ``[first, last]`` have each of two tail
+        columns at or above ``level``: one grouped query over those dates.
+
+        Returns
+        -------
+        DataFrame
+            ``asset_a, asset_b, n_ends`` (window ends with both columns computed: rows of
+            an older comove with NULL there are not counted) and ``n_<column>`` per column.
+        """
+        m = metrics.c
+        a, b = columns
+        known = sa.and_(m[a].is_not(None), m[b].is_not(None))
+
+        def above(col: str) -> sa.ColumnElement:
+            return sa.func.sum(sa.case((sa.and_(known, m[col] >= level), 1), else_=0))
+
+        stmt = (sa.select(m.asset_a, m.asset_b,
+                          sa.func.sum(sa.case((known, 1), else_=0)), above(a), above(b))
+                .where(m.settings == settings_key, m.date >= first, m.date <= last)
+                .group_by(m.asset_a, m.asset_b).order_by(m.asset_a, m.asset_b))
+        with self.engine.connect() as conn:
+            frame = row_frame(conn.execute(stmt).all(),
+                           ["asset_a", "asset_b", "n_ends", f"n_{a}", f"n_{b}"])
+        for c in ("n_ends", f"n_{a}", f"n_{b}"):
+            frame[c] = pd.to_numeric(frame[c]).fillna(0).astype(np.int64)
+        return frame
+
+    def latest_window_end(self, settings_key: str) -> dt.date | None:
+        """The latest stored window end of any pair under a rolling settings key."""
+        with self.engine.connect() as conn:
+            return conn.execute(sa.select(sa.func.max(pair_state.c.last_date)).where(
+                pair_state.c.settings == settings_key)).scalar_one_or_none()
+
+    def monitored_pairs(self, settings_key: str) -> list[tuple[str, str]]:
+        """Pairs with a stored rolling state under a rolling settings key, sorted: the pairs
+        the dashboard lists (one row per pair, so cheap; :meth:`stored_pairs` scans the
+        metrics)."""
+        with self.engine.connect() as conn:
+            return [tuple(r) for r in conn.execute(
+                sa.select(pair_state.c.asset_a, pair_state.c.asset_b).where(
+                    pair_state.c.settings == settings_key)
+                .order_by(pair_state.c.asset_a, pair_state.c.asset_b))]
+
+    def stored_pairs(self, settings_key: str) -> list[tuple[str, str]]:
+        """Pairs with stored metric rows under a rolling settings key, in no particular
+        order."""
+        with self.engine.connect() as conn:
+            return [tuple(r) for r in conn.execute(
+                sa.select(metrics.c.asset_a, metrics.c.asset_b).where(
+                    metrics.c.settings == settings_key).distinct())]
