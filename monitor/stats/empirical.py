@@ -102,7 +102,8 @@ def _check_unit(arr: NDArray[np.float64], name: str) -> None:
         raise ValueError(f"{name} must lie in [0, 1]; found {arr[bad].flat[0]!r}")
 
 
-def _rank_runs(x: NDArray[np.float64]):
+def _rank_runs(x: NDArray[np.float64]) -> tuple[NDArray[np.intp], NDArray[np.intp],
+                                                 NDArray[np.intp], NDArray[np.bool_]]:
     """Sort each row of a 2-D array and locate its runs of tied values.
 
     Returns the sorting permutation, the first and last sorted position of the run each sorted
@@ -141,7 +142,7 @@ def _dense_codes_and_ties(x: NDArray[np.float64]) -> tuple[NDArray[np.int64], ND
     """
     order, first, _, new = _rank_runs(x)
     codes = _scatter(order, np.cumsum(new, axis=-1, dtype=np.int64) - 1)
-    ties = np.sum(np.arange(x.shape[-1]) - first, axis=-1, dtype=np.int64)
+    ties = (np.arange(x.shape[-1]) - first).sum(axis=-1, dtype=np.int64)
     return codes, ties
 
 
@@ -167,7 +168,7 @@ def _inversions(a: NDArray[np.int64]) -> NDArray[np.int64]:
     """
     rows, n = a.shape
     size = 1 << max(0, (n - 1).bit_length())
-    dtype = np.int32 if 2 * n + 1 < np.iinfo(np.int32).max else np.int64
+    dtype: type[np.signedinteger] = np.int32 if 2 * n + 1 < np.iinfo(np.int32).max else np.int64
     a = a.astype(dtype)
     if size > n:
         # Padding larger than every value at the end creates no inversion.
