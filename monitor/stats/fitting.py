@@ -258,15 +258,16 @@ def _fit_valid(fam: CopulaFamily, u: NDArray, v: NDArray, start: ArrayLike | Non
     """:func:`fit_batched` on validated data; ``grid`` optionally holds the rank-grid ranks
     of u and v (see :meth:`CopulaFamily.prepare`)."""
     windows, n = u.shape
-    if tau is None and (start is None or rotation_by_sign):
-        tau = kendall_tau(u, v)
-    tau = None if tau is None else np.broadcast_to(np.asarray(tau, dtype=float), (windows,))
+    # The sample tau of each window, computed (on the data as given) when first needed.
+    taus = None if tau is None else np.broadcast_to(np.asarray(tau, dtype=float), (windows,))
     rotations = np.full(windows, fam.rotation, dtype=np.int64)
     flip = np.zeros(windows, dtype=bool)
     if rotation_by_sign and len(fam.rotations) > 1:
         if fam.rotation not in (0, 180):
             raise ValueError("rotation_by_sign takes a family at rotation 0 or 180")
-        flip = tau < 0
+        if taus is None:
+            taus = kendall_tau(u, v)
+        flip = taus < 0
         rotations[flip] += 90
         u = np.where(flip[:, None], 1.0 - u, u)
         if grid is not None and grid[0] is not None:
@@ -283,9 +284,9 @@ def _fit_valid(fam: CopulaFamily, u: NDArray, v: NDArray, start: ArrayLike | Non
     missing = np.ones(windows, bool) if start is None else np.isnan(start).any(axis=1)
     missing &= _first_rows(windows, chain)  # the only rows fitted from ``start``
     if missing.any():
-        if tau is None:  # only without rotation_by_sign, so u is not flipped
-            tau = kendall_tau(u, v)
-        t = np.where(flip, -tau, tau)[missing]
+        if taus is None:  # u is not flipped: flipping needed the taus
+            taus = kendall_tau(u, v)
+        t = np.where(flip, -taus, taus)[missing]
         start = np.array(start if start is not None else np.empty((windows, k)))
         start[missing] = np.column_stack(fam.start_params(t))
     data = fam.prepare(u, v, grid)
