@@ -23,6 +23,7 @@ from scipy import optimize
 from monitor.common.arrays import read_only
 from monitor.stats.copulas import CopulaFamily, family
 from monitor.stats.copulas.base import UNIT_EPS, rank_grid
+from monitor.stats.criteria import check_criterion, information_criterion
 from monitor.stats.empirical import kendall_tau
 
 #: Finite-difference steps in transformed coordinates: central differences for gradient and
@@ -77,15 +78,20 @@ class BatchFit:
     def n_params(self) -> int:
         return len(self.param_names)
 
+    def score(self, criterion: str) -> NDArray[np.float64]:
+        """The information criterion ("aic" or "bic") of every window (see
+        :func:`monitor.stats.criteria.information_criterion`)."""
+        return information_criterion(self.loglik, self.n_params, self.n, criterion)
+
     @property
     def aic(self) -> NDArray[np.float64]:
         """Akaike information criterion 2k - 2 loglik (Akaike 1974)."""
-        return 2.0 * self.n_params - 2.0 * self.loglik
+        return self.score("aic")
 
     @property
     def bic(self) -> NDArray[np.float64]:
         """Bayesian information criterion k log n - 2 loglik (Schwarz 1978)."""
-        return self.n_params * np.log(self.n) - 2.0 * self.loglik
+        return self.score("bic")
 
     def window(self, i: int) -> CopulaFit:
         """The fit of window ``i`` as a :class:`CopulaFit`."""
@@ -138,13 +144,20 @@ class CopulaFit:
     def n_params(self) -> int:
         return len(self.params)
 
+    def score(self, criterion: str) -> float:
+        """The information criterion ("aic" or "bic") of the fit (see
+        :func:`monitor.stats.criteria.information_criterion`)."""
+        return float(information_criterion(self.loglik, self.n_params, self.n, criterion))
+
     @property
     def aic(self) -> float:
-        return 2.0 * self.n_params - 2.0 * self.loglik
+        """Akaike information criterion 2k - 2 loglik (Akaike 1974)."""
+        return self.score("aic")
 
     @property
     def bic(self) -> float:
-        return self.n_params * float(np.log(self.n)) - 2.0 * self.loglik
+        """Bayesian information criterion k log n - 2 loglik (Schwarz 1978)."""
+        return self.score("bic")
 
     @property
     def label(self) -> str:
@@ -559,9 +572,6 @@ def fit_copula_reference(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike) ->
 
 
 # ----------------------------------------------------------------------------- selection
-CRITERIA = ("aic", "bic")
-
-
 def candidate_slots(names: tuple[str, ...] | list[str]) -> list[CopulaFamily]:
     """The fitting slots for a candidate set: each rotatable family twice (rotation 0 and its
     survival rotation 180, each turned by 90 degrees on windows with negative tau), every other
@@ -573,12 +583,6 @@ def candidate_slots(names: tuple[str, ...] | list[str]) -> list[CopulaFamily]:
         if len(fam.rotations) > 1:
             slots.append(family(name, 180))
     return slots
-
-
-def _check_criterion(criterion: str) -> str:
-    if criterion not in CRITERIA:
-        raise ValueError(f"criterion must be one of {', '.join(CRITERIA)}; got {criterion!r}")
-    return criterion
 
 
 @dataclass(frozen=True, slots=True)
@@ -623,14 +627,13 @@ def select_copula(u: ArrayLike, v: ArrayLike, families: tuple[str, ...] | list[s
     """
     from monitor.stats.copulas import FAMILY_NAMES
 
-    _check_criterion(criterion)
+    check_criterion(criterion)
     names = tuple(families) if families is not None else FAMILY_NAMES
     u2, v2 = _validate_batch(u, v)
     tau = kendall_tau(u2, v2)
     fits = [fit_batched(fam, u2, v2, tau=tau, rotation_by_sign=True).window(0)
             for fam in candidate_slots(names)]
-    key = (lambda f: f.aic) if criterion == "aic" else (lambda f: f.bic)
-    order = sorted(range(len(fits)), key=lambda i: (key(fits[i]), i))
+    order = sorted(range(len(fits)), key=lambda i: (fits[i].score(criterion), i))
     return Selection(tuple(fits[i] for i in order), criterion, u2.shape[1], float(tau[0]))
 
 
@@ -644,7 +647,7 @@ class BatchSelection:
 
     def score(self) -> NDArray[np.float64]:
         """Criterion values, shape (slots, windows)."""
-        return np.stack([getattr(f, self.criterion) for f in self.fits])
+        return np.stack([f.score(self.criterion) for f in self.fits])
 
 
 def select_batched(u: ArrayLike, v: ArrayLike, families: tuple[str, ...] | list[str] | None = None,
@@ -659,7 +662,7 @@ def select_batched(u: ArrayLike, v: ArrayLike, families: tuple[str, ...] | list[
     """
     from monitor.stats.copulas import FAMILY_NAMES
 
-    _check_criterion(criterion)
+    check_criterion(criterion)
     names = tuple(families) if families is not None else FAMILY_NAMES
     u2, v2 = _validate_batch(u, v)
     tau = kendall_tau(u2, v2) if tau is None else np.asarray(tau, dtype=float)
@@ -670,7 +673,7 @@ def select_batched(u: ArrayLike, v: ArrayLike, families: tuple[str, ...] | list[
                    _MAX_ITER, grid)
         for fam in candidate_slots(names)
     )
-    scores = np.stack([getattr(f, criterion) for f in fits])
+    scores = np.stack([f.score(criterion) for f in fits])
     return BatchSelection(fits, criterion, read_only(np.argmin(scores, axis=0)))
 
 

@@ -71,6 +71,7 @@ from scipy import signal, stats
 
 from monitor.common.arrays import read_only
 from monitor.common.errors import InputError
+from monitor.stats.criteria import information_criterion
 
 __all__ = [
     "CANDIDATE_SPECS",
@@ -769,7 +770,7 @@ def _fallback_estimate(y: NDArray[np.float64]) -> _Estimate:
               "beta": EWMA_DECAY}
     eps, sigma2 = _filter(FALLBACK_SPEC, params, y)
     loglik = float(-0.5 * np.sum(np.log(2.0 * np.pi * sigma2) + eps * eps / sigma2))
-    bic = -2.0 * loglik + math.log(eps.shape[0])
+    bic = float(information_criterion(loglik, 1, eps.shape[0], "bic"))  # k = 1: mu
     sigma = np.sqrt(sigma2)
     return _Estimate(FALLBACK_SPEC, params, loglik, bic, eps / sigma, sigma, "", False, {})
 

@@ -33,6 +33,7 @@ import pandas as pd
 from numpy.lib.stride_tricks import sliding_window_view
 
 from monitor.stats.copulas import FAMILY_NAMES, family
+from monitor.stats.criteria import information_criterion
 from monitor.stats.empirical import kendall_tau, pseudo_observations, spearman_rho, tail_dependence
 from monitor.stats.fitting import akaike_weights, model_average, select_batched
 from monitor.stats.sliding import (
@@ -215,9 +216,9 @@ def batch_metrics(items: list[PairWindows], settings: RollingSettings) -> list[P
     k_best = np.array([fits[s].n_params for s in best])
     ll_best = loglik[best, cols]
 
-    def aic_or_bic(ll, k):
-        return (2 * k - 2 * ll) if settings.criterion == "aic" else (k * np.log(w) - 2 * ll)
-
+    # The stored "aic" columns hold the settings' criterion (AIC or BIC).
+    score_best = information_criterion(ll_best, k_best, w, settings.criterion)
+    score_gauss = information_criterion(loglik[gauss], 1, w, settings.criterion)
     tail_floor = 1e-6
     ll_lower = np.where(lower > tail_floor, loglik, -np.inf).max(axis=0)
     ll_upper = np.where(upper > tail_floor, loglik, -np.inf).max(axis=0)
@@ -239,8 +240,8 @@ def batch_metrics(items: list[PairWindows], settings: RollingSettings) -> list[P
         "n": np.full(rows, w),
         "kendall_tau": tau, "kendall_tau_se": tau_se, "spearman_rho": rho_s,
         "family": names, "rotation": rots, "param1": params[:, 0], "param2": params[:, 1],
-        "converged": conv, "loglik": ll_best, "aic": aic_or_bic(ll_best, k_best),
-        "loglik_gauss": loglik[gauss], "aic_gauss": aic_or_bic(loglik[gauss], 1),
+        "converged": conv, "loglik": ll_best, "aic": score_best,
+        "loglik_gauss": loglik[gauss], "aic_gauss": score_gauss,
         "tail_lower": lower[best, cols], "tail_upper": upper[best, cols],
         "tail_lower_emp": emp_lo, "tail_upper_emp": emp_hi,
         "tail_lower_emp_se": binomial_se(emp_lo), "tail_upper_emp_se": binomial_se(emp_hi),
