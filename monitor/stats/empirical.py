@@ -1010,23 +1010,7 @@ def exceedance_correlation(x: ArrayLike, y: ArrayLike, xi: ArrayLike, *,
     level = np.asarray(xi, dtype=float)
     if not np.isfinite(level).all():
         raise ValueError("xi must be finite")
-    constant = np.zeros(a.shape[:-1], dtype=bool)
-    if scale == "standardised":
-        sa = a.std(axis=-1, ddof=1, keepdims=True)
-        sb = b.std(axis=-1, ddof=1, keepdims=True)
-        constant = (sa[..., 0] <= 0.0) | (sb[..., 0] <= 0.0)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            za = (a - a.mean(axis=-1, keepdims=True)) / sa
-            zb = (b - b.mean(axis=-1, keepdims=True)) / sb
-        za = np.where(constant[..., None], 0.0, za)
-        zb = np.where(constant[..., None], 0.0, zb)
-    elif scale == "quantile":
-        bad = ~((level > 0.0) & (level < 1.0))
-        if bad.any():
-            raise ValueError(f"quantile levels xi must lie in (0, 1); found {level[bad].flat[0]!r}")
-        za, zb = pseudo_observations(a), pseudo_observations(b)
-    else:
-        za, zb = a, b
+    za, zb, constant = _on_threshold_scale(a, b, level, scale)
     try:
         shape = np.broadcast_shapes(a.shape[:-1], level.shape)
     except ValueError:
@@ -1055,6 +1039,30 @@ def exceedance_correlation(x: ArrayLike, y: ArrayLike, xi: ArrayLike, *,
         reason_upper=read_only(why_up),
         reason_lower=read_only(why_down),
     )
+
+
+def _on_threshold_scale(a: NDArray[np.float64], b: NDArray[np.float64],
+                        level: NDArray[np.float64], scale: str
+                        ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.bool_]]:
+    """``x`` and ``y`` on the scale the thresholds apply to (see
+    :func:`exceedance_correlation`), and the windows where x or y is constant (only the
+    standardised scale marks them; their values are then 0)."""
+    constant = np.zeros(a.shape[:-1], dtype=bool)
+    if scale == "standardised":
+        sa = a.std(axis=-1, ddof=1, keepdims=True)
+        sb = b.std(axis=-1, ddof=1, keepdims=True)
+        constant = (sa[..., 0] <= 0.0) | (sb[..., 0] <= 0.0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            za = (a - a.mean(axis=-1, keepdims=True)) / sa
+            zb = (b - b.mean(axis=-1, keepdims=True)) / sb
+        return (np.where(constant[..., None], 0.0, za), np.where(constant[..., None], 0.0, zb),
+                constant)
+    if scale == "quantile":
+        bad = ~((level > 0.0) & (level < 1.0))
+        if bad.any():
+            raise ValueError(f"quantile levels xi must lie in (0, 1); found {level[bad].flat[0]!r}")
+        return pseudo_observations(a), pseudo_observations(b), constant
+    return a, b, constant
 
 
 def wilson_interval(share: ArrayLike, n: ArrayLike, level: float = 0.95
