@@ -62,8 +62,7 @@ divergence, then spike, then switch. It also records the first day of that run (
 ``start`` (the first alert day), ``end`` (the last alert day, ``None`` while open), and the
 peak of the evidence, i.e. the largest statistic-to-entry-threshold ratio during the episode.
 
-The defaults are measured by ``tests/benchmarks/bench_detection.py`` and
-``tests/benchmarks/bench_demo_alerts.py``; docs/signals.md gives the figures.
+Calibration of the defaults: docs/signals.md, 'Calibration' and 'Precision on the demo'.
 """
 
 from __future__ import annotations
@@ -134,7 +133,8 @@ IQR_TO_SIGMA = 1.3489795003921634
 
 @dataclass(frozen=True, slots=True)
 class SignalSettings:
-    """Every threshold of the regime signals; the defaults are measured in docs/signals.md.
+    """Every threshold of the regime signals (calibration of the defaults: docs/signals.md,
+    'Calibration').
 
     Parameters
     ----------
@@ -169,7 +169,7 @@ class SignalSettings:
         Least model-averaged tail coefficient for an episode to open on that tail.
     baseline : bool
         Measure the statistics against the pair's reference block (True) or against the
-        Gaussian alone (False, the behaviour before the ``/v2`` key).
+        Gaussian at the window's tau alone (False).
     baseline_z : float
         Standard errors of the block's mean ratio added to it to centre the CUSUM.
     baseline_min : int
@@ -178,7 +178,7 @@ class SignalSettings:
     Notes
     -----
     An entry threshold of ``inf`` switches its statistic off: it neither opens nor holds an
-    episode. How the defaults were measured is in docs/signals.md.
+    episode.
     """
 
     cusum_reference: float = 0.01
@@ -266,8 +266,9 @@ class SignalSettings:
         return getattr(self, f"{prefix}_entry"), getattr(self, f"{prefix}_exit")
 
 
-#: The defaults before the pair's own baseline (settings key ``/v1``): every statistic against
-#: the Gaussian at the window's tau. For comparisons (benchmarks, tests), not for monitoring.
+#: Comparison settings: every statistic against the Gaussian at the window's tau
+#: (``baseline=False``), with thresholds of its own. For comparisons (benchmarks, tests), not
+#: for monitoring; the "before" column of docs/signals.md, 'Calibration'.
 EARLIER_DEFAULTS = SignalSettings(baseline=False, cusum_entry=4.75, cusum_exit=3.5,
                                   cusum_cap=5.25, window_entry=8.0, window_exit=6.0,
                                   reference_windows=250, switch_entry=0.9, alert_min_tail=0.0)
