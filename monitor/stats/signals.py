@@ -889,16 +889,7 @@ def pair_signals(timeline: pd.DataFrame, settings: SignalSettings | None = None,
     starts = frame["start"].to_numpy()
     # Reference windows end before the current window's first day: no shared observation.
     reference_end = np.searchsorted(dates, starts, side="left")
-    row, first_row = -1, 0
-    if resume is not None:
-        row = int(np.searchsorted(dates, resume.date.to_datetime64()))
-        if row == len(dates) or dates[row] != resume.date.to_datetime64():
-            raise InputError(f"timeline: the resume date {resume.date.date()} is not one of "
-                             "its window ends")
-        first_row = row - carry_rows(s) + 1
-        if first_row < 0 or any(len(resume.cusum[t]) != carry_rows(s) for t in TAILS):
-            raise InputError(f"timeline: too few rows up to the resume date "
-                             f"{resume.date.date()}")
+    row, first_row = (-1, 0) if resume is None else _resume_rows(dates, resume, s)
     new: dict[str, object] = {}
     episodes: list[Episode] = []
     any_alert = np.zeros(len(frame), dtype=bool)
@@ -923,6 +914,21 @@ def pair_signals(timeline: pd.DataFrame, settings: SignalSettings | None = None,
         out = out.iloc[row + 1:].reset_index(drop=True)
     episodes.sort(key=lambda e: (e.start, TAILS.index(e.tail)))
     return PairSignals(out, tuple(episodes), s, resume)
+
+
+def _resume_rows(dates: NDArray[np.datetime64], resume: Resume, s: SignalSettings
+                 ) -> tuple[int, int]:
+    """The row of the resume date and the first row of the carried CUSUM levels; InputError
+    when the date is not a window end of the timeline or too few rows lead up to it."""
+    row = int(np.searchsorted(dates, resume.date.to_datetime64()))
+    if row == len(dates) or dates[row] != resume.date.to_datetime64():
+        raise InputError(f"timeline: the resume date {resume.date.date()} is not one of "
+                         "its window ends")
+    first_row = row - carry_rows(s) + 1
+    if first_row < 0 or any(len(resume.cusum[t]) != carry_rows(s) for t in TAILS):
+        raise InputError(f"timeline: too few rows up to the resume date "
+                         f"{resume.date.date()}")
+    return row, first_row
 
 
 def context_rows(settings: SignalSettings, window_rows: int) -> int:
