@@ -71,7 +71,7 @@ import dataclasses
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from types import MappingProxyType
-from typing import Any, TypedDict
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -739,17 +739,6 @@ def _tail_statistics(frame: pd.DataFrame, tail: str, s: SignalSettings,
              "switch": switch}, ~(model < s.alert_min_tail))
 
 
-class _Peak(TypedDict):
-    """The peak fields of an :class:`Episode`."""
-
-    peak_date: pd.Timestamp
-    peak_value: float
-    peak_tail_emp: float
-    peak_tail_model: float
-    peak_gauss_tail: float
-    peak_kendall_tau: float
-
-
 def _tail_episodes(frame: pd.DataFrame, tail: str, stats: dict[str, NDArray[np.float64]],
                    material: NDArray[np.bool_], s: SignalSettings, first_row: int,
                    decide_from: int, continued: Episode | None
@@ -785,13 +774,14 @@ def _tail_episodes(frame: pd.DataFrame, tail: str, stats: dict[str, NDArray[np.f
     alert = np.zeros(n, dtype=bool)
     dates = frame["date"]
 
-    def at(row: int) -> _Peak:
+    def at(row: int) -> dict[str, Any]:
+        """The ``peak_*`` fields of an :class:`Episode` peaking on ``row``."""
         r = frame.iloc[row]
-        return _Peak(peak_date=dates[row], peak_value=float(evidence[row]),
-                     peak_tail_emp=float(r[f"tail_{tail}_emp"]),
-                     peak_tail_model=float(r[f"tail_{tail}"]),
-                     peak_gauss_tail=float(r["gauss_tail_q"]),
-                     peak_kendall_tau=float(r["kendall_tau"]))
+        return {"peak_date": dates[row], "peak_value": float(evidence[row]),
+                "peak_tail_emp": float(r[f"tail_{tail}_emp"]),
+                "peak_tail_model": float(r[f"tail_{tail}"]),
+                "peak_gauss_tail": float(r["gauss_tail_q"]),
+                "peak_kendall_tau": float(r["kendall_tau"])}
 
     episodes = []
     spells = hysteresis(active[first_row:], quiet[first_row:], s.entry_days, s.exit_days,
