@@ -293,18 +293,19 @@ def _fit_valid(fam: CopulaFamily, u: NDArray, v: NDArray, start: ArrayLike | Non
                         read_only(np.zeros((windows, 0))), read_only(ll),
                         read_only(np.ones(windows, bool)),
                         read_only(np.zeros(windows, np.int64)), n)
-    start = None if start is None else np.broadcast_to(np.asarray(start, dtype=float),
-                                                       (windows, k))
-    missing = np.ones(windows, bool) if start is None else np.isnan(start).any(axis=1)
-    missing &= _first_rows(windows, chain)  # the only rows fitted from ``start``
+    # NaN marks a row without a warm start.
+    starts = (np.full((windows, k), np.nan) if start is None
+              else np.broadcast_to(np.asarray(start, dtype=float), (windows, k)))
+    # The first rows are the only ones fitted from ``starts``; missing ones start from tau.
+    missing = np.isnan(starts).any(axis=1) & _first_rows(windows, chain)
     if missing.any():
         if taus is None:  # u is not flipped: flipping needed the taus
             taus = kendall_tau(u, v)
         t = np.where(flip, -taus, taus)[missing]
-        start = np.array(start if start is not None else np.empty((windows, k)))
-        start[missing] = np.column_stack(fam.start_params(t))
+        starts = np.array(starts)
+        starts[missing] = np.column_stack(fam.start_params(t))
     data = fam.prepare(u, v, grid)
-    params, ll, conv, iters = _solve(fam, data, start, chain, max_iter, n)
+    params, ll, conv, iters = _solve(fam, data, starts, chain, max_iter, n)
     return BatchFit(fam.name, fam.param_names, read_only(rotations), read_only(params),
                     read_only(ll), read_only(conv), read_only(iters), n)
 
@@ -326,7 +327,10 @@ def _first_rows(windows: int, chain: int) -> NDArray[np.bool_]:
     return rows
 
 
-def _solve(fam, data, start, chain, max_iter, n):
+def _solve(fam: CopulaFamily, data: tuple, start: NDArray, chain: int, max_iter: int, n: int
+           ) -> tuple[NDArray, NDArray, NDArray[np.bool_], NDArray[np.int64]]:
+    """:func:`_newton` on every row of ``start``, coarse to fine along the chain when
+    ``chain`` asks for it (see :func:`fit_batched`)."""
     windows, k = start.shape
     step = _chain_step(windows, chain)
     if step == 1:
