@@ -7,7 +7,7 @@ from numpy.typing import ArrayLike, NDArray
 
 
 def read_only(a: ArrayLike) -> NDArray:
-    """A read-only copy of ``a`` (results are immutable: STYLE.md, frozen results)."""
+    """A read-only copy of ``a`` (results are immutable: DEVELOPERS.md, 'Conventions')."""
     arr = np.array(a)
     arr.flags.writeable = False
     return arr

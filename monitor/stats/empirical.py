@@ -102,7 +102,8 @@ def _check_unit(arr: NDArray[np.float64], name: str) -> None:
         raise ValueError(f"{name} must lie in [0, 1]; found {arr[bad].flat[0]!r}")
 
 
-def _rank_runs(x: NDArray[np.float64]):
+def _rank_runs(x: NDArray[np.float64]) -> tuple[NDArray[np.intp], NDArray[np.intp],
+                                                 NDArray[np.intp], NDArray[np.bool_]]:
     """Sort each row of a 2-D array and locate its runs of tied values.
 
     Returns the sorting permutation, the first and last sorted position of the run each sorted
@@ -141,7 +142,7 @@ def _dense_codes_and_ties(x: NDArray[np.float64]) -> tuple[NDArray[np.int64], ND
     """
     order, first, _, new = _rank_runs(x)
     codes = _scatter(order, np.cumsum(new, axis=-1, dtype=np.int64) - 1)
-    ties = np.sum(np.arange(x.shape[-1]) - first, axis=-1, dtype=np.int64)
+    ties = (np.arange(x.shape[-1]) - first).sum(axis=-1, dtype=np.int64)
     return codes, ties
 
 
@@ -167,7 +168,7 @@ def _inversions(a: NDArray[np.int64]) -> NDArray[np.int64]:
     """
     rows, n = a.shape
     size = 1 << max(0, (n - 1).bit_length())
-    dtype = np.int32 if 2 * n + 1 < np.iinfo(np.int32).max else np.int64
+    dtype: type[np.signedinteger] = np.int32 if 2 * n + 1 < np.iinfo(np.int32).max else np.int64
     a = a.astype(dtype)
     if size > n:
         # Padding larger than every value at the end creates no inversion.
@@ -1009,23 +1010,7 @@ def exceedance_correlation(x: ArrayLike, y: ArrayLike, xi: ArrayLike, *,
     level = np.asarray(xi, dtype=float)
     if not np.isfinite(level).all():
         raise ValueError("xi must be finite")
-    constant = np.zeros(a.shape[:-1], dtype=bool)
-    if scale == "standardised":
-        sa = a.std(axis=-1, ddof=1, keepdims=True)
-        sb = b.std(axis=-1, ddof=1, keepdims=True)
-        constant = (sa[..., 0] <= 0.0) | (sb[..., 0] <= 0.0)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            za = (a - a.mean(axis=-1, keepdims=True)) / sa
-            zb = (b - b.mean(axis=-1, keepdims=True)) / sb
-        za = np.where(constant[..., None], 0.0, za)
-        zb = np.where(constant[..., None], 0.0, zb)
-    elif scale == "quantile":
-        bad = ~((level > 0.0) & (level < 1.0))
-        if bad.any():
-            raise ValueError(f"quantile levels xi must lie in (0, 1); found {level[bad].flat[0]!r}")
-        za, zb = pseudo_observations(a), pseudo_observations(b)
-    else:
-        za, zb = a, b
+    za, zb, constant = _on_threshold_scale(a, b, level, scale)
     try:
         shape = np.broadcast_shapes(a.shape[:-1], level.shape)
     except ValueError:
@@ -1054,6 +1039,30 @@ def exceedance_correlation(x: ArrayLike, y: ArrayLike, xi: ArrayLike, *,
         reason_upper=read_only(why_up),
         reason_lower=read_only(why_down),
     )
+
+
+def _on_threshold_scale(a: NDArray[np.float64], b: NDArray[np.float64],
+                        level: NDArray[np.float64], scale: str
+                        ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.bool_]]:
+    """``x`` and ``y`` on the scale the thresholds apply to (see
+    :func:`exceedance_correlation`), and the windows where x or y is constant (only the
+    standardised scale marks them; their values are then 0)."""
+    constant = np.zeros(a.shape[:-1], dtype=bool)
+    if scale == "standardised":
+        sa = a.std(axis=-1, ddof=1, keepdims=True)
+        sb = b.std(axis=-1, ddof=1, keepdims=True)
+        constant = (sa[..., 0] <= 0.0) | (sb[..., 0] <= 0.0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            za = (a - a.mean(axis=-1, keepdims=True)) / sa
+            zb = (b - b.mean(axis=-1, keepdims=True)) / sb
+        return (np.where(constant[..., None], 0.0, za), np.where(constant[..., None], 0.0, zb),
+                constant)
+    if scale == "quantile":
+        bad = ~((level > 0.0) & (level < 1.0))
+        if bad.any():
+            raise ValueError(f"quantile levels xi must lie in (0, 1); found {level[bad].flat[0]!r}")
+        return pseudo_observations(a), pseudo_observations(b), constant
+    return a, b, constant
 
 
 def wilson_interval(share: ArrayLike, n: ArrayLike, level: float = 0.95

@@ -14,6 +14,7 @@ independent one-window path through :func:`scipy.optimize.minimize` used to chec
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -23,6 +24,7 @@ from scipy import optimize
 from monitor.common.arrays import read_only
 from monitor.stats.copulas import CopulaFamily, family
 from monitor.stats.copulas.base import UNIT_EPS, rank_grid
+from monitor.stats.criteria import check_criterion, information_criterion
 from monitor.stats.empirical import kendall_tau
 
 #: Finite-difference steps in transformed coordinates: central differences for gradient and
@@ -31,7 +33,7 @@ _FD_STEP = 1e-4
 _FD_GRADIENT_STEP = 1e-6
 #: Numbers per block when evaluating log-likelihoods over many windows.
 _BLOCK = 1 << 15
-#: Newton stops after a step when it estimates less than this gain left (see _newton);
+#: Newton stops after a step when it estimates less than this gain left (see _settled);
 #: only local steps (predicted gain below _SETTLE_STEP) qualify.
 _SETTLE_GAIN = 2.5e-5
 _SETTLE_STEP = 1e-2
@@ -77,15 +79,20 @@ class BatchFit:
     def n_params(self) -> int:
         return len(self.param_names)
 
+    def score(self, criterion: str) -> NDArray[np.float64]:
+        """The information criterion ("aic" or "bic") of every window (see
+        :func:`monitor.stats.criteria.information_criterion`)."""
+        return information_criterion(self.loglik, self.n_params, self.n, criterion)
+
     @property
     def aic(self) -> NDArray[np.float64]:
         """Akaike information criterion 2k - 2 loglik (Akaike 1974)."""
-        return 2.0 * self.n_params - 2.0 * self.loglik
+        return self.score("aic")
 
     @property
     def bic(self) -> NDArray[np.float64]:
         """Bayesian information criterion k log n - 2 loglik (Schwarz 1978)."""
-        return self.n_params * np.log(self.n) - 2.0 * self.loglik
+        return self.score("bic")
 
     def window(self, i: int) -> CopulaFit:
         """The fit of window ``i`` as a :class:`CopulaFit`."""
@@ -138,13 +145,20 @@ class CopulaFit:
     def n_params(self) -> int:
         return len(self.params)
 
+    def score(self, criterion: str) -> float:
+        """The information criterion ("aic" or "bic") of the fit (see
+        :func:`monitor.stats.criteria.information_criterion`)."""
+        return float(information_criterion(self.loglik, self.n_params, self.n, criterion))
+
     @property
     def aic(self) -> float:
-        return 2.0 * self.n_params - 2.0 * self.loglik
+        """Akaike information criterion 2k - 2 loglik (Akaike 1974)."""
+        return self.score("aic")
 
     @property
     def bic(self) -> float:
-        return self.n_params * float(np.log(self.n)) - 2.0 * self.loglik
+        """Bayesian information criterion k log n - 2 loglik (Schwarz 1978)."""
+        return self.score("bic")
 
     @property
     def label(self) -> str:
@@ -242,7 +256,7 @@ def fit_batched(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike, *,
     below 1e-4, when an accepted step changes no coordinate by more than 1e-7 and the
     log-likelihood by less than 1e-9, when the projected gradient is below 1e-7, or once an
     accepted full step's gain agrees with its prediction closely enough that less than
-    2.5e-5 nats are estimated to be left (``_SETTLE_GAIN``; see ``_newton``). Windows that
+    2.5e-5 nats are estimated to be left (``_SETTLE_GAIN``; see ``_settled``). Windows that
     hit ``max_iter`` are reported with ``converged`` False; their estimates are never
     replaced. With ``chain`` the later rows borrow a neighbour's Hessian for two iterations
     and use forward-difference gradients (step 1e-6) meanwhile.
@@ -258,15 +272,16 @@ def _fit_valid(fam: CopulaFamily, u: NDArray, v: NDArray, start: ArrayLike | Non
     """:func:`fit_batched` on validated data; ``grid`` optionally holds the rank-grid ranks
     of u and v (see :meth:`CopulaFamily.prepare`)."""
     windows, n = u.shape
-    if tau is None and (start is None or rotation_by_sign):
-        tau = kendall_tau(u, v)
-    tau = None if tau is None else np.broadcast_to(np.asarray(tau, dtype=float), (windows,))
+    # The sample tau of each window, computed (on the data as given) when first needed.
+    taus = None if tau is None else np.broadcast_to(np.asarray(tau, dtype=float), (windows,))
     rotations = np.full(windows, fam.rotation, dtype=np.int64)
     flip = np.zeros(windows, dtype=bool)
     if rotation_by_sign and len(fam.rotations) > 1:
         if fam.rotation not in (0, 180):
             raise ValueError("rotation_by_sign takes a family at rotation 0 or 180")
-        flip = tau < 0
+        if taus is None:
+            taus = kendall_tau(u, v)
+        flip = taus < 0
         rotations[flip] += 90
         u = np.where(flip[:, None], 1.0 - u, u)
         if grid is not None and grid[0] is not None:
@@ -278,18 +293,19 @@ def _fit_valid(fam: CopulaFamily, u: NDArray, v: NDArray, start: ArrayLike | Non
                         read_only(np.zeros((windows, 0))), read_only(ll),
                         read_only(np.ones(windows, bool)),
                         read_only(np.zeros(windows, np.int64)), n)
-    start = None if start is None else np.broadcast_to(np.asarray(start, dtype=float),
-                                                       (windows, k))
-    missing = np.ones(windows, bool) if start is None else np.isnan(start).any(axis=1)
-    missing &= _first_rows(windows, chain)  # the only rows fitted from ``start``
+    # NaN marks a row without a warm start.
+    starts = (np.full((windows, k), np.nan) if start is None
+              else np.broadcast_to(np.asarray(start, dtype=float), (windows, k)))
+    # The first rows are the only ones fitted from ``starts``; missing ones start from tau.
+    missing = np.isnan(starts).any(axis=1) & _first_rows(windows, chain)
     if missing.any():
-        if tau is None:  # only without rotation_by_sign, so u is not flipped
-            tau = kendall_tau(u, v)
-        t = np.where(flip, -tau, tau)[missing]
-        start = np.array(start if start is not None else np.empty((windows, k)))
-        start[missing] = np.column_stack(fam.start_params(t))
+        if taus is None:  # u is not flipped: flipping needed the taus
+            taus = kendall_tau(u, v)
+        t = np.where(flip, -taus, taus)[missing]
+        starts = np.array(starts)
+        starts[missing] = np.column_stack(fam.start_params(t))
     data = fam.prepare(u, v, grid)
-    params, ll, conv, iters = _solve(fam, data, start, chain, max_iter, n)
+    params, ll, conv, iters = _solve(fam, data, starts, chain, max_iter, n)
     return BatchFit(fam.name, fam.param_names, read_only(rotations), read_only(params),
                     read_only(ll), read_only(conv), read_only(iters), n)
 
@@ -311,7 +327,10 @@ def _first_rows(windows: int, chain: int) -> NDArray[np.bool_]:
     return rows
 
 
-def _solve(fam, data, start, chain, max_iter, n):
+def _solve(fam: CopulaFamily, data: tuple, start: NDArray, chain: int, max_iter: int, n: int
+           ) -> tuple[NDArray, NDArray, NDArray[np.bool_], NDArray[np.int64]]:
+    """:func:`_newton` on every row of ``start``, coarse to fine along the chain when
+    ``chain`` asks for it (see :func:`fit_batched`)."""
     windows, k = start.shape
     step = _chain_step(windows, chain)
     if step == 1:
@@ -351,7 +370,8 @@ def _solve(fam, data, start, chain, max_iter, n):
 
 
 def _newton(fam: CopulaFamily, data: tuple, start: NDArray, max_iter: int, n: int,
-            hess0: NDArray | None = None):
+            hess0: NDArray | None = None
+            ) -> tuple[NDArray, NDArray, NDArray[np.bool_], NDArray[np.int64], NDArray]:
     """Trust-region Newton on every window; returns estimates, logliks, flags, iterations and
     the last finite-difference Hessians (in the optimiser's coordinates).
 
@@ -359,151 +379,245 @@ def _newton(fam: CopulaFamily, data: tuple, start: NDArray, max_iter: int, n: in
     with it, the given Hessian is kept for two iterations while steps succeed and only the
     gradient is taken (forward differences), the Hessian being recomputed after a rejected
     step or after those two iterations.
+
+    Each iteration, on the windows still running: derivatives where the point is new
+    (:func:`_refresh_derivatives`), a projected, trust-region-limited Newton step
+    (:func:`_propose`), the log-likelihood at the trial point, and the update of points,
+    radii and convergence flags (:func:`_take_step`).
     """
     xlo, xhi, to_x, to_p = _coordinates(fam)
-    windows, k = start.shape
-    h, hg = _FD_STEP, _FD_GRADIENT_STEP
-    eye = np.eye(k)
-    step_rows = max(1, _BLOCK // n)
+    obj = _Objective(fam, data, xlo, xhi, to_p, max(1, _BLOCK // n))
+    st = _NewtonState.at(obj, to_x(start.copy()), hess0)
+    reuse = hess0 is not None
+    for _ in range(max_iter):
+        idx = np.flatnonzero(st.active)
+        if idx.size == 0:
+            break
+        st.iterations[idx] += 1
+        _refresh_derivatives(obj, st, idx)
+        step = _propose(obj, st.x[idx], st.grad[idx].copy(), st.hess[idx].copy(),
+                        st.radius[idx])
+        fn = np.full(idx.size, -np.inf)
+        trial = np.flatnonzero(~step.done)
+        if trial.size:
+            fn[trial] = obj.loglik(fam.take(data, idx[trial]), step.xn[trial])
+        _take_step(st, idx, step, fn, reuse)
+    return to_p(st.x), st.f, st.converged, st.iterations, st.hess
 
-    def loglik(d, x):
-        p = to_p(x)
+
+@dataclass(frozen=True, slots=True)
+class _Objective:
+    """The pseudo-log-likelihood of each window as a function of the optimiser's coordinates
+    ``x`` (inside the box ``xlo``..``xhi``), with its finite-difference derivatives."""
+
+    fam: CopulaFamily
+    data: tuple
+    xlo: NDArray
+    xhi: NDArray
+    to_p: Callable[[NDArray], NDArray]
+    block_rows: int
+
+    def loglik(self, d: tuple, x: NDArray) -> NDArray:
+        """Log-likelihood of the windows of prepared data ``d`` at ``x`` (-inf where not
+        finite)."""
+        p = self.to_p(x)
+        k, rows = p.shape[1], self.block_rows
         # Blocks of about 2**15 numbers stay in cache through the family's chain of NumPy
         # temporaries: markedly faster than one pass over all windows.
         val = np.concatenate([
-            fam.loglik_prepared(fam.take(d, slice(lo, lo + step_rows)),
-                                tuple(p[lo:lo + step_rows, j] for j in range(k)))
-            for lo in range(0, len(x), step_rows)
+            self.fam.loglik_prepared(self.fam.take(d, slice(lo, lo + rows)),
+                                     tuple(p[lo:lo + rows, j] for j in range(k)))
+            for lo in range(0, len(x), rows)
         ]) if len(x) else np.empty(0)
         return np.where(np.isfinite(val), val, -np.inf)
 
-    def stencil(rows):
-        """Central-difference gradient and Hessian at x[rows] (kept inside the box)."""
-        d = fam.take(data, rows)
-        xc = np.clip(x[rows], xlo + h, xhi - h)
-        moved = np.any(xc != x[rows], axis=1)
-        fc = f[rows].copy()
+    def stencil(self, rows: NDArray[np.intp], x: NDArray, f: NDArray
+                ) -> tuple[NDArray, NDArray]:
+        """Central-difference gradient and Hessian of the windows ``rows`` at their points
+        ``x`` (log-likelihoods ``f``), the stencil kept inside the box."""
+        h = _FD_STEP
+        k = x.shape[1]
+        eye = np.eye(k)
+        d = self.fam.take(self.data, rows)
+        xc = np.clip(x, self.xlo + h, self.xhi - h)
+        moved = np.any(xc != x, axis=1)
+        fc = f.copy()
         if moved.any():
-            fc[moved] = loglik(fam.take(d, np.flatnonzero(moved)), xc[moved])
-        fp = np.column_stack([loglik(d, xc + h * eye[j]) for j in range(k)])
-        fm = np.column_stack([loglik(d, xc - h * eye[j]) for j in range(k)])
+            fc[moved] = self.loglik(self.fam.take(d, np.flatnonzero(moved)), xc[moved])
+        fp = np.column_stack([self.loglik(d, xc + h * eye[j]) for j in range(k)])
+        fm = np.column_stack([self.loglik(d, xc - h * eye[j]) for j in range(k)])
         g = (fp - fm) / (2 * h)
         hs = np.zeros((rows.size, k, k))
         for j in range(k):
             hs[:, j, j] = (fp[:, j] - 2 * fc + fm[:, j]) / h**2
         if k == 2:
-            cross = (loglik(d, xc + h * (eye[0] + eye[1])) - fp[:, 0] - fp[:, 1] + fc) / h**2
+            cross = (self.loglik(d, xc + h * (eye[0] + eye[1])) - fp[:, 0] - fp[:, 1]
+                     + fc) / h**2
             hs[:, 0, 1] = hs[:, 1, 0] = cross
         return np.where(np.isfinite(g), g, 0.0), np.where(np.isfinite(hs), hs, -1.0)
 
-    def gradient(rows):
+    def gradient(self, rows: NDArray[np.intp], x: NDArray, f: NDArray) -> NDArray:
         """Forward-difference gradient alone (the Hessian is kept), inside the box: its
         bias, half the step times the curvature, moves the optimum by about 5e-7."""
-        d = fam.take(data, rows)
-        xr = x[rows]
+        hg = _FD_GRADIENT_STEP
+        k = x.shape[1]
+        eye = np.eye(k)
+        d = self.fam.take(self.data, rows)
         g = np.empty((rows.size, k))
         for j in range(k):
-            sign = np.where(xr[:, j] + hg > xhi[j], -1.0, 1.0)
-            g[:, j] = (loglik(d, xr + (sign * hg)[:, None] * eye[j]) - f[rows]) / (sign * hg)
+            sign = np.where(x[:, j] + hg > self.xhi[j], -1.0, 1.0)
+            g[:, j] = (self.loglik(d, x + (sign * hg)[:, None] * eye[j]) - f) / (sign * hg)
         return np.where(np.isfinite(g), g, 0.0)
 
-    x = to_x(start.copy())
-    f = loglik(data, x)
-    radius = np.full(windows, 1.0)
-    active = np.isfinite(f)
-    converged = np.zeros(windows, dtype=bool)
-    iterations = np.zeros(windows, dtype=np.int64)
-    grad = np.zeros((windows, k))
-    reuse = hess0 is not None
-    hess = np.array(hess0, dtype=float) if reuse else np.zeros((windows, k, k))
-    has_hess = np.full(windows, reuse)
-    fresh = np.zeros(windows, dtype=bool)  # gradient valid at the current x
 
-    for _ in range(max_iter):
-        idx = np.flatnonzero(active)
-        if idx.size == 0:
-            break
-        iterations[idx] += 1
-        need = idx[~fresh[idx]]
-        full = need[~has_hess[need]]
-        if full.size:
-            grad[full], hess[full] = stencil(full)
-            has_hess[full] = True
-        quick = need[has_hess[need] & ~np.isin(need, full)]
-        if quick.size:
-            grad[quick] = gradient(quick)
-        fresh[need] = True
+@dataclass(frozen=True, slots=True)
+class _NewtonState:
+    """Per-window state of the iteration; the arrays are updated in place.
 
-        xa, fa, g, hs = x[idx], f[idx], grad[idx].copy(), hess[idx].copy()
-        # Projection: hold coordinates at a bound whose gradient points outwards.
-        held = ((xa <= xlo + 1e-12) & (g < 0)) | ((xa >= xhi - 1e-12) & (g > 0))
-        g[held] = 0.0
-        for j in range(k):
-            hj = held[:, j]
-            hs[hj, j, :] = 0.0
-            hs[hj, :, j] = 0.0
-            hs[hj, j, j] = -1.0
-        gnorm = np.max(np.abs(g), axis=1)
-        step, concave = _newton_step(-hs, g)
-        scale = np.max(np.abs(step), axis=1)
-        # Converged at x: the gradient vanishes, or the concave local model predicts a gain
-        # below 1e-7 from a step below 1e-4 -- no trial evaluation is then needed.
-        pred = 0.5 * np.sum(g * step, axis=1)
-        done = (gnorm < 1e-7) | (concave & (pred < 1e-7) & (scale < 1e-4))
-        shrink = np.where(scale > radius[idx], radius[idx] / np.maximum(scale, 1e-300), 1.0)
-        step *= shrink[:, None]
-        xn = np.clip(xa + step, xlo, xhi)
-        sn = np.max(np.abs(xn - xa), axis=1)
-        fn = np.full(idx.size, -np.inf)
-        trial = np.flatnonzero(~done)
-        if trial.size:
-            fn[trial] = loglik(fam.take(data, idx[trial]), xn[trial])
-        accept = (fn >= fa - 1e-12 * (1 + np.abs(fa))) & ~done
-        small = (sn < 1e-7) & (np.abs(fn - fa) < 1e-9)
-        # Settled: after a full Newton step of a concave model with Hessian error e (relative),
-        # the gain left is about pred e^2. In one dimension the step's own gain measures it:
-        # gain / pred = 1 + e. In two it sees only the error along the step; the Hessians here
-        # (finite differences, or borrowed from overlapping neighbour windows, whose
-        # curvature differs mostly by a common scale: along the chain the first step's gain
-        # is within 3% of pred in four rows out of five) are taken to err no more across the
-        # step than along it, with a safety factor of 16 on the gain left (4 let a few
-        # Student-t rows, flat in nu, stop 5e-4 short). A step with a coordinate held at a
-        # bound moves the other only, after which the held one's gradient may turn inwards
-        # (BB1 rows at delta = 1 stopped up to 3.1e-3 short), so it settles only when small
-        # (pred / 4 below the threshold, its gain within half of pred); a step cut short by
-        # a bound never does. Then the confirming gradient is skipped. Checked against fits
-        # to full convergence and the L-BFGS-B reference (tests, and the benchmarks'
-        # agreement figures).
-        gain = fn - fa
-        left = (gain - pred) ** 2 / np.maximum(pred, 1e-300)
-        if k > 1:
-            small_step = np.where(np.abs(gain - pred) <= 0.5 * pred + 1e-10, 0.25 * pred, np.inf)
-            left = np.where(held.any(axis=1), small_step, 16.0 * left)
-        inside = np.all(xn == xa + step, axis=1)
-        settle = (accept & concave & inside & (shrink == 1.0) & (pred < _SETTLE_STEP)
-                  & (left < _SETTLE_GAIN))
-        ia = idx[accept]
-        x[ia], f[ia] = xn[accept], fn[accept]
-        fresh[ia] = False
-        # A borrowed Hessian serves two iterations (usually a step and its confirmation);
-        # afterwards Newton uses its own (a stale one converges only linearly where the
-        # likelihood is flat, e.g. large nu).
-        has_hess[ia] = False if not reuse else has_hess[ia] & (iterations[ia] < 2)
-        radius[ia] = np.minimum(np.maximum(radius[ia], 2.0 * sn[accept]), 4.0)
-        rej = idx[~accept & ~done]
-        radius[rej] = 0.25 * sn[~accept & ~done]
-        # A rejected step under a kept Hessian: recompute it before shrinking further.
-        stale = rej[has_hess[rej] & reuse]
-        has_hess[stale] = False
-        fresh[stale] = False
-        ok = done | (accept & small) | settle
-        # A trust radius that collapsed without an accepted step: stationary only if the
-        # projected gradient is already negligible.
-        stuck = (radius[idx] < 1e-12) & ~ok
-        converged[idx[ok]] = True
-        converged[idx[stuck]] = gnorm[stuck] < 1e-4
-        active[idx[ok | stuck]] = False
-    return to_p(x), f, converged, iterations, hess
+    ``x``, ``f``: current point (optimiser's coordinates) and its log-likelihood; ``radius``:
+    trust radius (max-norm); ``active``: still iterating; ``converged``, ``iterations``: the
+    results; ``grad``: gradient at ``x`` where ``fresh``; ``hess``: Hessian (own or
+    borrowed) where ``has_hess``.
+    """
+
+    x: NDArray
+    f: NDArray
+    radius: NDArray
+    active: NDArray[np.bool_]
+    converged: NDArray[np.bool_]
+    iterations: NDArray[np.int64]
+    grad: NDArray
+    hess: NDArray
+    has_hess: NDArray[np.bool_]
+    fresh: NDArray[np.bool_]
+
+    @classmethod
+    def at(cls, obj: _Objective, x: NDArray, hess0: NDArray | None) -> _NewtonState:
+        """The state at the starting points ``x``; windows whose start has no finite
+        log-likelihood do not iterate."""
+        windows, k = x.shape
+        f = obj.loglik(obj.data, x)
+        reuse = hess0 is not None
+        return cls(x=x, f=f, radius=np.full(windows, 1.0), active=np.isfinite(f),
+                   converged=np.zeros(windows, dtype=bool),
+                   iterations=np.zeros(windows, dtype=np.int64), grad=np.zeros((windows, k)),
+                   hess=np.array(hess0, dtype=float) if reuse else np.zeros((windows, k, k)),
+                   has_hess=np.full(windows, reuse), fresh=np.zeros(windows, dtype=bool))
+
+
+def _refresh_derivatives(obj: _Objective, st: _NewtonState, idx: NDArray[np.intp]) -> None:
+    """Gradients of the windows ``idx`` whose point is new, with a fresh Hessian where
+    none is kept."""
+    need = idx[~st.fresh[idx]]
+    full = need[~st.has_hess[need]]
+    if full.size:
+        st.grad[full], st.hess[full] = obj.stencil(full, st.x[full], st.f[full])
+        st.has_hess[full] = True
+    quick = need[st.has_hess[need] & ~np.isin(need, full)]
+    if quick.size:
+        st.grad[quick] = obj.gradient(quick, st.x[quick], st.f[quick])
+    st.fresh[need] = True
+
+
+@dataclass(frozen=True, slots=True)
+class _Step:
+    """A step proposed for the active windows (one row each)."""
+
+    #: Coordinates held at a bound (gradient pointing outwards).
+    held: NDArray[np.bool_]
+    #: Max-norm of the projected gradient.
+    gnorm: NDArray
+    #: The local model was concave (no Levenberg-Marquardt shift).
+    concave: NDArray[np.bool_]
+    #: Gain the local model predicts for the full (uncut) step.
+    pred: NDArray
+    #: Converged at the current point: no trial is needed.
+    done: NDArray[np.bool_]
+    #: Factor the trust region cut the step by (1 for the full step).
+    shrink: NDArray
+    #: The step after the cut, and the trial point (projected into the box).
+    step: NDArray
+    xn: NDArray
+    #: Max-norm of the move from the current point to ``xn``.
+    sn: NDArray
+
+
+def _propose(obj: _Objective, xa: NDArray, g: NDArray, hs: NDArray, radius: NDArray
+             ) -> _Step:
+    """The projected Newton step from the points ``xa`` with gradients ``g`` and Hessians
+    ``hs`` (both modified), cut to the trust ``radius`` and projected into the box."""
+    k = xa.shape[1]
+    # Projection: hold coordinates at a bound whose gradient points outwards.
+    held = ((xa <= obj.xlo + 1e-12) & (g < 0)) | ((xa >= obj.xhi - 1e-12) & (g > 0))
+    g[held] = 0.0
+    for j in range(k):
+        hj = held[:, j]
+        hs[hj, j, :] = 0.0
+        hs[hj, :, j] = 0.0
+        hs[hj, j, j] = -1.0
+    gnorm = np.max(np.abs(g), axis=1)
+    step, concave = _newton_step(-hs, g)
+    scale = np.max(np.abs(step), axis=1)
+    # Converged at x: the gradient vanishes, or the concave local model predicts a gain
+    # below 1e-7 from a step below 1e-4 -- no trial evaluation is then needed.
+    pred = 0.5 * np.sum(g * step, axis=1)
+    done = (gnorm < 1e-7) | (concave & (pred < 1e-7) & (scale < 1e-4))
+    shrink = np.where(scale > radius, radius / np.maximum(scale, 1e-300), 1.0)
+    step *= shrink[:, None]
+    xn = np.clip(xa + step, obj.xlo, obj.xhi)
+    sn = np.max(np.abs(xn - xa), axis=1)
+    return _Step(held, gnorm, concave, pred, done, shrink, step, xn, sn)
+
+
+def _settled(xa: NDArray, step: _Step, gain: NDArray, accept: NDArray[np.bool_]
+             ) -> NDArray[np.bool_]:
+    """Accepted steps after which less than ``_SETTLE_GAIN`` is estimated to be left.
+
+    A full step (neither cut by the trust region nor by the box) of a concave local model
+    with predicted gain ``pred`` below ``_SETTLE_STEP`` and actual ``gain`` leaves about
+    ``(gain - pred)^2 / pred``; with two parameters 16 times that, or, when a coordinate
+    is held at a bound, ``pred / 4`` if ``gain`` is within half of ``pred`` (else it does
+    not settle). Derivation and checks: docs/method.md, 'Estimation' (stopping rule).
+    """
+    pred = step.pred
+    left = (gain - pred) ** 2 / np.maximum(pred, 1e-300)
+    if xa.shape[1] > 1:
+        small_step = np.where(np.abs(gain - pred) <= 0.5 * pred + 1e-10, 0.25 * pred, np.inf)
+        left = np.where(step.held.any(axis=1), small_step, 16.0 * left)
+    inside = np.all(step.xn == xa + step.step, axis=1)
+    return (accept & step.concave & inside & (step.shrink == 1.0) & (pred < _SETTLE_STEP)
+            & (left < _SETTLE_GAIN))
+
+
+def _take_step(st: _NewtonState, idx: NDArray[np.intp], step: _Step, fn: NDArray,
+               reuse: bool) -> None:
+    """Accept or reject the trial points ``step.xn`` (log-likelihoods ``fn``) of the windows
+    ``idx``, adapt their trust radii, and mark the windows that converged or got stuck."""
+    xa, fa = st.x[idx], st.f[idx]
+    accept = (fn >= fa - 1e-12 * (1 + np.abs(fa))) & ~step.done
+    small = (step.sn < 1e-7) & (np.abs(fn - fa) < 1e-9)
+    settle = _settled(xa, step, fn - fa, accept)
+    ia = idx[accept]
+    st.x[ia], st.f[ia] = step.xn[accept], fn[accept]
+    st.fresh[ia] = False
+    # A borrowed Hessian serves two iterations (usually a step and its confirmation);
+    # afterwards Newton uses its own (a stale one converges only linearly where the
+    # likelihood is flat, e.g. large nu).
+    st.has_hess[ia] = False if not reuse else st.has_hess[ia] & (st.iterations[ia] < 2)
+    st.radius[ia] = np.minimum(np.maximum(st.radius[ia], 2.0 * step.sn[accept]), 4.0)
+    rej = idx[~accept & ~step.done]
+    st.radius[rej] = 0.25 * step.sn[~accept & ~step.done]
+    # A rejected step under a kept Hessian: recompute it before shrinking further.
+    stale = rej[st.has_hess[rej] & reuse]
+    st.has_hess[stale] = False
+    st.fresh[stale] = False
+    ok = step.done | (accept & small) | settle
+    # A trust radius that collapsed without an accepted step: stationary only if the
+    # projected gradient is already negligible.
+    stuck = (st.radius[idx] < 1e-12) & ~ok
+    st.converged[idx[ok]] = True
+    st.converged[idx[stuck]] = step.gnorm[stuck] < 1e-4
+    st.active[idx[ok | stuck]] = False
 
 
 def _newton_step(a: NDArray, g: NDArray) -> tuple[NDArray, NDArray]:
@@ -558,9 +672,6 @@ def fit_copula_reference(fam: CopulaFamily | str, u: ArrayLike, v: ArrayLike) ->
 
 
 # ----------------------------------------------------------------------------- selection
-CRITERIA = ("aic", "bic")
-
-
 def candidate_slots(names: tuple[str, ...] | list[str]) -> list[CopulaFamily]:
     """The fitting slots for a candidate set: each rotatable family twice (rotation 0 and its
     survival rotation 180, each turned by 90 degrees on windows with negative tau), every other
@@ -572,12 +683,6 @@ def candidate_slots(names: tuple[str, ...] | list[str]) -> list[CopulaFamily]:
         if len(fam.rotations) > 1:
             slots.append(family(name, 180))
     return slots
-
-
-def _check_criterion(criterion: str) -> str:
-    if criterion not in CRITERIA:
-        raise ValueError(f"criterion must be one of {', '.join(CRITERIA)}; got {criterion!r}")
-    return criterion
 
 
 @dataclass(frozen=True, slots=True)
@@ -622,14 +727,13 @@ def select_copula(u: ArrayLike, v: ArrayLike, families: tuple[str, ...] | list[s
     """
     from monitor.stats.copulas import FAMILY_NAMES
 
-    _check_criterion(criterion)
+    check_criterion(criterion)
     names = tuple(families) if families is not None else FAMILY_NAMES
     u2, v2 = _validate_batch(u, v)
     tau = kendall_tau(u2, v2)
     fits = [fit_batched(fam, u2, v2, tau=tau, rotation_by_sign=True).window(0)
             for fam in candidate_slots(names)]
-    key = (lambda f: f.aic) if criterion == "aic" else (lambda f: f.bic)
-    order = sorted(range(len(fits)), key=lambda i: (key(fits[i]), i))
+    order = sorted(range(len(fits)), key=lambda i: (fits[i].score(criterion), i))
     return Selection(tuple(fits[i] for i in order), criterion, u2.shape[1], float(tau[0]))
 
 
@@ -643,7 +747,7 @@ class BatchSelection:
 
     def score(self) -> NDArray[np.float64]:
         """Criterion values, shape (slots, windows)."""
-        return np.stack([getattr(f, self.criterion) for f in self.fits])
+        return np.stack([f.score(self.criterion) for f in self.fits])
 
 
 def select_batched(u: ArrayLike, v: ArrayLike, families: tuple[str, ...] | list[str] | None = None,
@@ -658,7 +762,7 @@ def select_batched(u: ArrayLike, v: ArrayLike, families: tuple[str, ...] | list[
     """
     from monitor.stats.copulas import FAMILY_NAMES
 
-    _check_criterion(criterion)
+    check_criterion(criterion)
     names = tuple(families) if families is not None else FAMILY_NAMES
     u2, v2 = _validate_batch(u, v)
     tau = kendall_tau(u2, v2) if tau is None else np.asarray(tau, dtype=float)
@@ -669,7 +773,7 @@ def select_batched(u: ArrayLike, v: ArrayLike, families: tuple[str, ...] | list[
                    _MAX_ITER, grid)
         for fam in candidate_slots(names)
     )
-    scores = np.stack([getattr(f, criterion) for f in fits])
+    scores = np.stack([f.score(criterion) for f in fits])
     return BatchSelection(fits, criterion, read_only(np.argmin(scores, axis=0)))
 
 

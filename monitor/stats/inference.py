@@ -229,7 +229,7 @@ def _rank_dominance(ru: NDArray, rv: NDArray) -> NDArray[np.int64]:
     :func:`monitor.stats.empirical.empirical_copula` on float data.
     """
     rows, n = ru.shape
-    dtype = np.int16 if n < np.iinfo(np.int16).max else np.int32
+    dtype: type[np.signedinteger] = np.int16 if n < np.iinfo(np.int16).max else np.int32
     r = ru.astype(dtype)
     s = rv.astype(dtype)
     out = np.empty((rows, n), dtype=np.int64)

@@ -62,7 +62,7 @@ import warnings
 from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
-from typing import Any
+from typing import Any, TypeVar
 
 import numpy as np
 import pandas as pd
@@ -71,6 +71,7 @@ from scipy import signal, stats
 
 from monitor.common.arrays import read_only
 from monitor.common.errors import InputError
+from monitor.stats.criteria import information_criterion
 
 __all__ = [
     "CANDIDATE_SPECS",
@@ -256,6 +257,7 @@ class MarginalSettings:
         parts = key.split("/")
         if not parts or parts[-1] != ALGORITHM_VERSION:
             raise ValueError(f"settings key {key!r} is not of algorithm {ALGORITHM_VERSION}")
+        fields: dict[str, Any]  # keyword arguments of the settings
         try:
             if parts[0] == "in-sample" and len(parts) == 4:
                 fields = {"mode": "in-sample", "min_obs": int(parts[1].removeprefix("min"))}
@@ -651,7 +653,8 @@ def _arch_model(spec: MarginalSpec, y: NDArray[np.float64]) -> Any:
     extra = {"lags": 1} if spec.mean == "ar1" else {}
     # hold_back=1 for every spec: all candidates share one likelihood sample, so BICs compare
     return arch_model(y, mean="AR" if spec.mean == "ar1" else "Constant", vol="GARCH", p=1,
-                      o=1 if spec.volatility == "gjr" else 0, q=1, dist=spec.distribution,
+                      o=1 if spec.volatility == "gjr" else 0, q=1,
+                      dist="skewt" if spec.distribution == "skewt" else "t",
                       hold_back=1, rescale=False, **extra)
 
 
@@ -767,7 +770,7 @@ def _fallback_estimate(y: NDArray[np.float64]) -> _Estimate:
               "beta": EWMA_DECAY}
     eps, sigma2 = _filter(FALLBACK_SPEC, params, y)
     loglik = float(-0.5 * np.sum(np.log(2.0 * np.pi * sigma2) + eps * eps / sigma2))
-    bic = -2.0 * loglik + math.log(eps.shape[0])
+    bic = float(information_criterion(loglik, 1, eps.shape[0], "bic"))  # k = 1: mu
     sigma = np.sqrt(sigma2)
     return _Estimate(FALLBACK_SPEC, params, loglik, bic, eps / sigma, sigma, "", False, {})
 
@@ -1012,11 +1015,19 @@ def _real_time(asset: str, settings: MarginalSettings, days: NDArray[np.datetime
         run_block(k)
         k += 1
 
-    cat = (lambda parts, dtype: np.concatenate(parts) if parts else np.empty(0, dtype=dtype))
-    z, sigma, index = cat(z_parts, float), cat(s_parts, float), cat(i_parts, np.int64)
+    z, sigma = _joined(z_parts, np.float64), _joined(s_parts, np.float64)
+    index = _joined(i_parts, np.int64)
     start = m + 1
     return _result(asset, settings, days, values, days[start:start + z.shape[0]], z, sigma,
                    index, tuple(fits))
+
+
+_ScalarT = TypeVar("_ScalarT", bound=np.generic)
+
+
+def _joined(parts: Sequence[NDArray[_ScalarT]], dtype: type[_ScalarT]) -> NDArray[_ScalarT]:
+    """The parts end to end; an empty array of ``dtype`` when there are none."""
+    return np.concatenate(parts) if parts else np.empty(0, dtype=dtype)
 
 
 def _result(asset: str, settings: MarginalSettings, days: NDArray[np.datetime64],
@@ -1093,7 +1104,7 @@ def _digest(days: NDArray[np.datetime64], values: NDArray[np.float64]) -> str:
 
 # ----------------------------------------------------------------------- conversions
 def _date(d: np.datetime64) -> dt.date:
-    return np.datetime64(d, "D").astype(dt.date)
+    return d.astype("datetime64[D]").astype(dt.date)
 
 
 def _iso(d: dt.date | None) -> str | None:

@@ -27,14 +27,17 @@ windows are fitted with warm starts along the chain (:func:`monitor.stats.fittin
 from __future__ import annotations
 
 from dataclasses import dataclass
+from itertools import pairwise
 
 import numpy as np
 import pandas as pd
 from numpy.lib.stride_tricks import sliding_window_view
+from numpy.typing import NDArray
 
 from monitor.stats.copulas import FAMILY_NAMES, family
+from monitor.stats.criteria import information_criterion
 from monitor.stats.empirical import kendall_tau, pseudo_observations, spearman_rho, tail_dependence
-from monitor.stats.fitting import akaike_weights, model_average, select_batched
+from monitor.stats.fitting import BatchFit, akaike_weights, model_average, select_batched
 from monitor.stats.sliding import (
     sliding_dominance,
     sliding_kendall_tau,
@@ -146,54 +149,138 @@ def batch_metrics(items: list[PairWindows], settings: RollingSettings) -> list[P
     The windows of all pairs are stacked as the rows of one batch (the daily update: one new
     window per pair, hundreds of pairs, costs about as much as a few windows each). The
     windows of a single pair with more than :data:`CHAIN_FROM` of them are fitted coarse to
-    fine along the chain instead (consecutive windows have nearby optima).
+    fine along the chain instead (consecutive windows have nearby optima). A pair without
+    new window ends gets an empty frame and its given starts and tau back.
     """
-    w = settings.window
-    q = settings.tail_q
-    sizes = np.array([len(it.positions) for it in items], dtype=np.intp)
-    results: list[PairMetrics | None] = [None] * len(items)
-    for i, it in enumerate(items):
-        if sizes[i] == 0:
-            results[i] = PairMetrics(pd.DataFrame(columns=METRIC_COLUMNS), it.start or {},
-                                     it.previous_tau if it.previous_tau is not None else np.nan)
-    live = [i for i in range(len(items)) if sizes[i]]
-    if not live:
-        return results
-    firsts = [items[i].positions - (w - 1) for i in live]
-    u, v, tau, dominance = _window_statistics(
-        [(items[i].za, items[i].zb, f) for i, f in zip(live, firsts)], w)
-    tau_se = kendall_tau_se(u, v, tau, dominance)
-    rho_s = spearman_rho(u, v)
-    emp = tail_dependence(u, v, q)
-    emp_lo, emp_hi = np.asarray(emp.lower, float), np.asarray(emp.upper, float)
-    rows = len(tau)
-    bounds = np.concatenate([[0], np.cumsum(sizes[live])])
+    live = [it for it in items if len(it.positions)]
+    computed = iter(_stacked_metrics(live, settings) if live else [])
+    return [next(computed) if len(it.positions) else _no_new_windows(it) for it in items]
 
-    def binomial_se(lam):
+
+def _no_new_windows(item: PairWindows) -> PairMetrics:
+    """The metrics of a pair with nothing to compute: no rows, what it started from."""
+    return PairMetrics(pd.DataFrame(columns=METRIC_COLUMNS), item.start or {},
+                       item.previous_tau if item.previous_tau is not None else np.nan)
+
+
+def _stacked_metrics(items: list[PairWindows], settings: RollingSettings) -> list[PairMetrics]:
+    """:func:`batch_metrics` of pairs that each have new window ends: their windows are the
+    rows of one batch, pair ``j`` owning rows ``bounds[j]:bounds[j + 1]``."""
+    w = settings.window
+    firsts = [it.positions - (w - 1) for it in items]
+    u, v, tau, dominance = _window_statistics(
+        [(it.za, it.zb, f) for it, f in zip(items, firsts)], w)
+    rows = len(tau)
+    bounds = np.concatenate([[0], np.cumsum([len(it.positions) for it in items])])
+    chain = 8 if len(items) == 1 and rows > CHAIN_FROM else 0
+    fits, scores = _fit_slots(u, v, tau, settings, _stacked_starts(items, bounds, rows), chain)
+    frame = pd.DataFrame({
+        "date": np.concatenate([it.dates[it.positions] for it in items]),
+        "start": np.concatenate([it.dates[f] for it, f in zip(items, firsts)]),
+        "n": np.full(rows, w),
+        **_empirical_columns(u, v, tau, dominance, w, settings.tail_q),
+        **_model_columns(fits, scores, w, settings.criterion),
+        **_signal_inputs(u, v, tau, _previous_taus(items, bounds, tau), settings.tail_q),
+    }, columns=list(METRIC_COLUMNS))
+    return [PairMetrics(frame.iloc[lo:hi].reset_index(drop=True), _last_params(fits, hi - 1),
+                        float(tau[hi - 1]))
+            for lo, hi in pairwise(bounds)]
+
+
+def _stacked_starts(items: list[PairWindows], bounds: NDArray[np.intp], rows: int
+                    ) -> dict[tuple[str, int], NDArray[np.float64]]:
+    """Warm starts per row and slot: each pair's stored estimates on its rows, NaN (the tau
+    start) elsewhere."""
+    starts: dict[tuple[str, int], NDArray[np.float64]] = {}
+    for j, it in enumerate(items):
+        for key, p in (it.start or {}).items():
+            arr = starts.setdefault(key, np.full((rows, np.size(p)), np.nan))
+            arr[bounds[j]:bounds[j + 1]] = p
+    return starts
+
+
+def _previous_taus(items: list[PairWindows], bounds: NDArray[np.intp],
+                   tau: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Kendall's tau of each row's previous window: the row before within its pair, or the
+    pair's stored one (the row's own where none is stored)."""
+    prev = np.empty(len(tau))
+    for j, it in enumerate(items):
+        lo, hi = bounds[j], bounds[j + 1]
+        before = it.previous_tau
+        prev[lo] = tau[lo] if before is None or not np.isfinite(before) else before
+        prev[lo + 1:hi] = tau[lo:hi - 1]
+    return prev
+
+
+def _empirical_columns(u: NDArray[np.float64], v: NDArray[np.float64],
+                       tau: NDArray[np.float64], dominance: NDArray, w: int, q: float
+                       ) -> dict[str, NDArray[np.float64]]:
+    """Kendall's tau with its standard error, Spearman's rho, and the nonparametric tail
+    coefficients at level ``q`` with their binomial standard errors
+    ``sqrt(p (1 - p) / w) / q``, ``p = lambda q``."""
+    emp = tail_dependence(u, v, q)
+    lower, upper = np.asarray(emp.lower, float), np.asarray(emp.upper, float)
+
+    def binomial_se(lam: NDArray[np.float64]) -> NDArray[np.float64]:
         p = np.clip(lam * q, 0.0, 1.0)
         return np.sqrt(p * (1 - p) / w) / q
 
+    return {"kendall_tau": tau, "kendall_tau_se": kendall_tau_se(u, v, tau, dominance),
+            "spearman_rho": spearman_rho(u, v),
+            "tail_lower_emp": lower, "tail_upper_emp": upper,
+            "tail_lower_emp_se": binomial_se(lower), "tail_upper_emp_se": binomial_se(upper)}
+
+
+def _fit_slots(u: NDArray[np.float64], v: NDArray[np.float64], tau: NDArray[np.float64],
+               settings: RollingSettings, starts: dict[tuple[str, int], NDArray[np.float64]],
+               chain: int) -> tuple[tuple[BatchFit, ...], NDArray[np.float64]]:
+    """Every candidate slot fitted on every row, and the Gaussian (the signals' reference)
+    also when it is not a candidate; with the criterion values, shape (slots, rows), +inf on
+    the slots that are not candidates."""
     families = tuple(settings.families)
     if "gaussian" not in families:
         families = (*families, "gaussian")
-    # Warm starts per row: each pair's stored estimates on its rows, NaN (tau start) elsewhere.
-    starts: dict[tuple[str, int], np.ndarray] = {}
-    for j, i in enumerate(live):
-        for key, p in (items[i].start or {}).items():
-            arr = starts.setdefault(key, np.full((rows, np.size(p)), np.nan))
-            arr[bounds[j]:bounds[j + 1]] = p
-    chain = 8 if len(live) == 1 and rows > CHAIN_FROM else 0
     sel = select_batched(u, v, families, settings.criterion, tau=tau, start=starts or None,
                          chain=chain)
-    fits = sel.fits
-    candidate = np.array([f.family in settings.families for f in fits])
+    candidate = np.array([f.family in settings.families for f in sel.fits])
     scores = sel.score()
     scores[~candidate] = np.inf
+    return sel.fits, scores
+
+
+def _model_columns(fits: tuple[BatchFit, ...], scores: NDArray[np.float64], w: int,
+                   criterion: str) -> dict[str, NDArray]:
+    """The columns of the fitted families: the selected one (lowest score) with its
+    log-likelihood, criterion value (stored as ``aic`` whatever the criterion) and tail
+    coefficients; the Gaussian's; the best lower- and upper-tail-dependent log-likelihoods;
+    and the tail coefficients averaged with the Akaike weights of the candidate slots (the
+    Gaussian fitted as a reference outside the candidates has score +inf, so weight 0)."""
     best = np.argmin(scores, axis=0)
-    cols = np.arange(rows)
+    cols = np.arange(best.size)
     loglik = np.stack([f.loglik for f in fits])
-    lower = np.zeros_like(loglik)
-    upper = np.zeros_like(loglik)
+    lower, upper = _slot_tails(fits)
+    ll_best = loglik[best, cols]
+    k_best = np.array([fits[s].n_params for s in best])
+    gauss = next(i for i, f in enumerate(fits) if f.family == "gaussian")
+    weights = akaike_weights(scores)
+    return {
+        **_selected_columns(fits, best),
+        "loglik": ll_best, "aic": information_criterion(ll_best, k_best, w, criterion),
+        "loglik_gauss": loglik[gauss],
+        "aic_gauss": information_criterion(loglik[gauss], fits[gauss].n_params, w, criterion),
+        "tail_lower": lower[best, cols], "tail_upper": upper[best, cols],
+        "loglik_best_lower": _best_tail_loglik(loglik, lower),
+        "loglik_best_upper": _best_tail_loglik(loglik, upper),
+        "tail_lower_avg": model_average(weights, lower),
+        "tail_upper_avg": model_average(weights, upper),
+    }
+
+
+def _slot_tails(fits: tuple[BatchFit, ...]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Model-implied lower and upper tail coefficients of every slot on every row, shape
+    (slots, rows); 0 for a family without parameters."""
+    lower = np.zeros((len(fits), fits[0].loglik.size))
+    upper = np.zeros_like(lower)
     for s, f in enumerate(fits):
         if f.n_params == 0:
             continue
@@ -203,60 +290,50 @@ def batch_metrics(items: list[PairWindows], settings: RollingSettings) -> list[P
             p = tuple(f.params[m, j] for j in range(f.n_params))
             lower[s, m] = fam.tail_lower(p)
             upper[s, m] = fam.tail_upper(p)
-    params = np.full((rows, 2), np.nan)
-    names, rots, conv = [], [], []
-    for c, s in enumerate(best):
-        f = fits[s]
-        params[c, :f.n_params] = f.params[c]
-        names.append(f.family)
-        rots.append(int(f.rotations[c]))
-        conv.append(bool(f.converged[c]))
-    gauss = next(i for i, f in enumerate(fits) if f.family == "gaussian")
-    k_best = np.array([fits[s].n_params for s in best])
-    ll_best = loglik[best, cols]
+    return lower, upper
 
-    def aic_or_bic(ll, k):
-        return (2 * k - 2 * ll) if settings.criterion == "aic" else (k * np.log(w) - 2 * ll)
 
-    tail_floor = 1e-6
-    ll_lower = np.where(lower > tail_floor, loglik, -np.inf).max(axis=0)
-    ll_upper = np.where(upper > tail_floor, loglik, -np.inf).max(axis=0)
-    # Each row's previous window: the row before within its pair, or the stored one.
-    prev = np.empty(rows)
-    for j, i in enumerate(live):
-        lo, hi = bounds[j], bounds[j + 1]
-        before = items[i].previous_tau
-        prev[lo] = tau[lo] if before is None or not np.isfinite(before) else before
-        prev[lo + 1:hi] = tau[lo:hi - 1]
-    llr_lo, llr_hi = _newest_day_ratios(u[:, -1], v[:, -1], prev)
-    gauss_q = _gaussian_tail_concordance(tau, q)
-    # Akaike weights over the candidate slots only (the Gaussian fitted as a reference
-    # outside the candidates has score +inf, so weight 0).
-    weights = akaike_weights(scores)
-    frame = pd.DataFrame({
-        "date": np.concatenate([items[i].dates[items[i].positions] for i in live]),
-        "start": np.concatenate([items[i].dates[f] for i, f in zip(live, firsts)]),
-        "n": np.full(rows, w),
-        "kendall_tau": tau, "kendall_tau_se": tau_se, "spearman_rho": rho_s,
-        "family": names, "rotation": rots, "param1": params[:, 0], "param2": params[:, 1],
-        "converged": conv, "loglik": ll_best, "aic": aic_or_bic(ll_best, k_best),
-        "loglik_gauss": loglik[gauss], "aic_gauss": aic_or_bic(loglik[gauss], 1),
-        "tail_lower": lower[best, cols], "tail_upper": upper[best, cols],
-        "tail_lower_emp": emp_lo, "tail_upper_emp": emp_hi,
-        "tail_lower_emp_se": binomial_se(emp_lo), "tail_upper_emp_se": binomial_se(emp_hi),
-        "gauss_tail_q": gauss_q, "loglik_best_lower": ll_lower, "loglik_best_upper": ll_upper,
-        "llr_lower": llr_lo, "llr_upper": llr_hi,
-        "tail_lower_avg": model_average(weights, lower),
-        "tail_upper_avg": model_average(weights, upper),
-    }, columns=list(METRIC_COLUMNS))
-    for j, i in enumerate(live):
-        lo, hi = bounds[j], bounds[j + 1]
-        # Slot keys as select_batched takes them: rotation 0 or 180 (90 and 270 are turns).
-        last = {(f.family, int(f.rotations[hi - 1]) // 180 * 180): f.params[hi - 1].copy()
-                for f in fits if f.n_params}
-        results[i] = PairMetrics(frame.iloc[lo:hi].reset_index(drop=True), last,
-                                 float(tau[hi - 1]))
-    return results
+def _selected_columns(fits: tuple[BatchFit, ...], best: NDArray[np.intp]) -> dict[str, NDArray]:
+    """Family, rotation, parameters (NaN past the family's count) and convergence flag of
+    each row's selected slot ``best``."""
+    params = np.full((best.size, 2), np.nan)
+    rotation = np.empty(best.size, dtype=np.int64)
+    converged = np.empty(best.size, dtype=bool)
+    for s, f in enumerate(fits):
+        m = best == s
+        params[m, :f.n_params] = f.params[m]
+        rotation[m] = f.rotations[m]
+        converged[m] = f.converged[m]
+    return {"family": np.array([f.family for f in fits], dtype=object)[best],
+            "rotation": rotation, "param1": params[:, 0], "param2": params[:, 1],
+            "converged": converged}
+
+
+#: A slot counts as tail-dependent on a row when its model tail coefficient exceeds this.
+_TAIL_FLOOR = 1e-6
+
+
+def _best_tail_loglik(loglik: NDArray[np.float64], tail: NDArray[np.float64]
+                      ) -> NDArray[np.float64]:
+    """The largest log-likelihood per row over the slots dependent in that tail (-inf when
+    none is)."""
+    return np.where(tail > _TAIL_FLOOR, loglik, -np.inf).max(axis=0)
+
+
+def _signal_inputs(u: NDArray[np.float64], v: NDArray[np.float64], tau: NDArray[np.float64],
+                   previous_tau: NDArray[np.float64], q: float) -> dict[str, NDArray]:
+    """The signals' inputs: the Gaussian tail concordance at each window's tau, and the newest
+    day's log-likelihood ratios at the previous window's tau."""
+    llr_lower, llr_upper = _newest_day_ratios(u[:, -1], v[:, -1], previous_tau)
+    return {"gauss_tail_q": _gaussian_tail_concordance(tau, q),
+            "llr_lower": llr_lower, "llr_upper": llr_upper}
+
+
+def _last_params(fits: tuple[BatchFit, ...], row: int) -> dict[tuple[str, int], np.ndarray]:
+    """Each slot's estimates on ``row``, keyed as :func:`select_batched` takes warm starts:
+    (family, rotation 0 or 180; 90 and 270 are turns of those)."""
+    return {(f.family, int(f.rotations[row]) // 180 * 180): f.params[row].copy()
+            for f in fits if f.n_params}
 
 
 #: Pairs with at most this many windows have them counted window by window (sorting), the
@@ -264,7 +341,13 @@ def batch_metrics(items: list[PairWindows], settings: RollingSettings) -> list[P
 FEW_WINDOWS = 8
 
 
-def _window_statistics(series: list[tuple[np.ndarray, np.ndarray, np.ndarray]], w: int):
+#: Per window (rows): pseudo-observations of both margins, Kendall's tau, dominance counts.
+_WindowStatistics = tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64],
+                          NDArray[np.int64]]
+
+
+def _window_statistics(series: list[tuple[np.ndarray, np.ndarray, np.ndarray]], w: int
+                       ) -> _WindowStatistics:
     """Pseudo-observations of both margins, Kendall's tau and dominance counts of the
     windows starting at ``first`` of each ``(x, y, first)``, rows in that order.
 
@@ -273,7 +356,7 @@ def _window_statistics(series: list[tuple[np.ndarray, np.ndarray, np.ndarray]], 
     few (the daily update: one each, hundreds of pairs) are stacked and counted together by
     sorting: the same integer counts, so the same numbers to the last bit.
     """
-    parts: list[tuple | None] = [None] * len(series)
+    parts: dict[int, _WindowStatistics] = {}
     few = []
     for k, (x, y, f) in enumerate(series):
         if len(f) <= FEW_WINDOWS:
@@ -284,12 +367,15 @@ def _window_statistics(series: list[tuple[np.ndarray, np.ndarray, np.ndarray]], 
     if few:
         xw = np.concatenate([sliding_window_view(series[k][0], w)[series[k][2]] for k in few])
         yw = np.concatenate([sliding_window_view(series[k][1], w)[series[k][2]] for k in few])
-        stacked = (pseudo_observations(xw), pseudo_observations(yw), kendall_tau(xw, yw),
-                   window_dominance(xw, yw))
+        u, v = pseudo_observations(xw), pseudo_observations(yw)
+        tau, dominance = kendall_tau(xw, yw), window_dominance(xw, yw)
         at = np.cumsum([0] + [len(series[k][2]) for k in few])
         for j, k in enumerate(few):
-            parts[k] = tuple(a[at[j]:at[j + 1]] for a in stacked)
-    return tuple(np.concatenate([p[m] for p in parts]) for m in range(4))
+            rows = slice(at[j], at[j + 1])
+            parts[k] = (u[rows], v[rows], tau[rows], dominance[rows])
+    ordered = [parts[k] for k in range(len(series))]
+    return (np.concatenate([p[0] for p in ordered]), np.concatenate([p[1] for p in ordered]),
+            np.concatenate([p[2] for p in ordered]), np.concatenate([p[3] for p in ordered]))
 
 
 def _newest_day_ratios(u: np.ndarray, v: np.ndarray, tau: np.ndarray):

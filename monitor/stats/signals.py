@@ -62,8 +62,7 @@ divergence, then spike, then switch. It also records the first day of that run (
 ``start`` (the first alert day), ``end`` (the last alert day, ``None`` while open), and the
 peak of the evidence, i.e. the largest statistic-to-entry-threshold ratio during the episode.
 
-The defaults are measured by ``tests/benchmarks/bench_detection.py`` and
-``tests/benchmarks/bench_demo_alerts.py``; docs/signals.md gives the figures.
+Calibration of the defaults: docs/signals.md, 'Calibration' and 'Precision on the demo'.
 """
 
 from __future__ import annotations
@@ -72,6 +71,7 @@ import dataclasses
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from types import MappingProxyType
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -133,7 +133,8 @@ IQR_TO_SIGMA = 1.3489795003921634
 
 @dataclass(frozen=True, slots=True)
 class SignalSettings:
-    """Every threshold of the regime signals; the defaults are measured in docs/signals.md.
+    """Every threshold of the regime signals (calibration of the defaults: docs/signals.md,
+    'Calibration').
 
     Parameters
     ----------
@@ -168,7 +169,7 @@ class SignalSettings:
         Least model-averaged tail coefficient for an episode to open on that tail.
     baseline : bool
         Measure the statistics against the pair's reference block (True) or against the
-        Gaussian alone (False, the behaviour before the ``/v2`` key).
+        Gaussian at the window's tau alone (False).
     baseline_z : float
         Standard errors of the block's mean ratio added to it to centre the CUSUM.
     baseline_min : int
@@ -177,7 +178,7 @@ class SignalSettings:
     Notes
     -----
     An entry threshold of ``inf`` switches its statistic off: it neither opens nor holds an
-    episode. How the defaults were measured is in docs/signals.md.
+    episode.
     """
 
     cusum_reference: float = 0.01
@@ -265,8 +266,9 @@ class SignalSettings:
         return getattr(self, f"{prefix}_entry"), getattr(self, f"{prefix}_exit")
 
 
-#: The defaults before the pair's own baseline (settings key ``/v1``): every statistic against
-#: the Gaussian at the window's tau. For comparisons (benchmarks, tests), not for monitoring.
+#: Comparison settings: every statistic against the Gaussian at the window's tau
+#: (``baseline=False``), with thresholds of its own. For comparisons (benchmarks, tests), not
+#: for monitoring; the "before" column of docs/signals.md, 'Calibration'.
 EARLIER_DEFAULTS = SignalSettings(baseline=False, cusum_entry=4.75, cusum_exit=3.5,
                                   cusum_cap=5.25, window_entry=8.0, window_exit=6.0,
                                   reference_windows=250, switch_entry=0.9, alert_min_tail=0.0)
@@ -363,15 +365,16 @@ class PairSignals:
         m = carry_rows(self.settings)
         row = len(self.frame) - 1 - lag
         # The levels before the frame's first row: those a continued computation carried.
-        before = 0 if self.resumed_from is None else m
+        carried = self.resumed_from
+        before = 0 if carried is None else m
         if row < 0 or row - m + 1 < -before:
             return None
         date = pd.Timestamp(self.frame["date"].iloc[row])
         levels = {}
         for t in TAILS:
             seq = self.frame[f"sequential_{t}"].to_numpy(dtype=float)
-            if before:
-                seq = np.concatenate([self.resumed_from.cusum[t], seq])
+            if carried is not None:
+                seq = np.concatenate([carried.cusum[t], seq])
             levels[t] = tuple(float(x) for x in seq[row + before - m + 1:row + before + 1])
         open_ = tuple(e for e in self.episodes
                       if e.start <= date and (e.end is None or e.end >= date))
@@ -414,8 +417,8 @@ class Resume:
                 "episodes": [e.to_dict() for e in self.episodes]}
 
     @classmethod
-    def from_dict(cls, data: Mapping[str, object]) -> Resume:
-        """Rebuild from :meth:`to_dict`'s form."""
+    def from_dict(cls, data: Mapping[str, Any]) -> Resume:
+        """Rebuild from :meth:`to_dict`'s form (as decoded from JSON)."""
         def day(x: object) -> pd.Timestamp | None:
             return None if x is None else pd.Timestamp(str(x))
 
@@ -661,7 +664,10 @@ def _check_timeline(timeline: pd.DataFrame) -> pd.DataFrame:
 
 def _tail_statistics(frame: pd.DataFrame, tail: str, s: SignalSettings,
                      reference_end: NDArray[np.intp], resume_row: int,
-                     carried: tuple[float, ...]) -> dict[str, NDArray[np.float64]]:
+                     carried: tuple[float, ...]
+                     ) -> tuple[dict[str, NDArray[np.float64]], NDArray[np.bool_]]:
+    """The statistics of one tail on every row (``excess`` and the :data:`STATISTICS`), and
+    where the tail is material (model-averaged coefficient at least ``alert_min_tail``)."""
     def num(name: str) -> NDArray[np.float64]:
         col = frame[name]
         if col.dtype.kind == "f":  # as stored: no conversion needed
@@ -729,17 +735,18 @@ def _tail_statistics(frame: pd.DataFrame, tail: str, s: SignalSettings,
     if f"tail_{tail}_avg" in frame.columns:
         avg = num(f"tail_{tail}_avg")
         model = np.where(np.isnan(avg), model, avg)
-    return {"excess": excess, "window": window, "sequential": sequential, "spike": spike,
-            "switch": switch, "material": ~(model < s.alert_min_tail)}
+    return ({"excess": excess, "window": window, "sequential": sequential, "spike": spike,
+             "switch": switch}, ~(model < s.alert_min_tail))
 
 
 def _tail_episodes(frame: pd.DataFrame, tail: str, stats: dict[str, NDArray[np.float64]],
-                   s: SignalSettings, first_row: int, decide_from: int,
-                   continued: Episode | None
+                   material: NDArray[np.bool_], s: SignalSettings, first_row: int,
+                   decide_from: int, continued: Episode | None
                    ) -> tuple[NDArray[np.float64], NDArray[np.bool_], NDArray, list[Episode]]:
     """Evidence, alert flags, states and episodes of one tail. Rows before ``first_row``
     are history only; spells open and close from ``decide_from`` on, continuing the
-    ``continued`` episode when one is open the row before."""
+    ``continued`` episode when one is open the row before; no episode opens on a row
+    that is not ``material``."""
     names = list(STATISTICS)
     values = np.stack([stats[n] for n in names])
     entry = np.array([s.thresholds(n)[0] for n in names])[:, None]
@@ -758,7 +765,6 @@ def _tail_episodes(frame: pd.DataFrame, tail: str, stats: dict[str, NDArray[np.f
     strength[w] = np.where(excess >= s.excess_gate, strength[w], 0.0)
     active_each[w] &= excess >= s.excess_gate
     holding[w] &= excess >= s.excess_hold
-    material = stats["material"]
     strength[:, ~material] = 0.0
     active_each &= material
     quiet = ~holding.any(axis=0)
@@ -768,7 +774,8 @@ def _tail_episodes(frame: pd.DataFrame, tail: str, stats: dict[str, NDArray[np.f
     alert = np.zeros(n, dtype=bool)
     dates = frame["date"]
 
-    def at(row: int) -> dict[str, object]:
+    def at(row: int) -> dict[str, Any]:
+        """The ``peak_*`` fields of an :class:`Episode` peaking on ``row``."""
         r = frame.iloc[row]
         return {"peak_date": dates[row], "peak_value": float(evidence[row]),
                 "peak_tail_emp": float(r[f"tail_{tail}_emp"]),
@@ -784,13 +791,18 @@ def _tail_episodes(frame: pd.DataFrame, tail: str, stats: dict[str, NDArray[np.f
         stop = n if close is None else close + first_row
         alert[first:stop] = True
         end = None if close is None else dates[stop - 1]
-        peak = first + int(np.argmax(evidence[first:stop])) if stop > first else None
         if k == 0 and continued is not None:
-            # Its peak so far against the new days' (the first maximum wins ties).
-            newer = peak is not None and evidence[peak] > continued.peak_value
-            episodes.append(dataclasses.replace(continued, end=end,
-                                                **(at(peak) if newer else {})))
+            # Its peak so far against the new days' (the first maximum wins ties); a
+            # continued episode may close on its first row, with no new day.
+            kept = dataclasses.replace(continued, end=end)
+            if stop > first:
+                newest = first + int(np.argmax(evidence[first:stop]))
+                if evidence[newest] > continued.peak_value:
+                    kept = dataclasses.replace(kept, **at(newest))
+            episodes.append(kept)
             continue
+        # A spell that opens here has at least its opening day (it closes later).
+        peak = first + int(np.argmax(evidence[first:stop]))
         run_start = first - s.entry_days + 1
         days_active = active_each[:, run_start:first + 1].sum(axis=1)
         best = int(np.argmax(days_active))  # first maximum: STATISTICS order breaks ties
@@ -867,26 +879,17 @@ def pair_signals(timeline: pd.DataFrame, settings: SignalSettings | None = None,
     starts = frame["start"].to_numpy()
     # Reference windows end before the current window's first day: no shared observation.
     reference_end = np.searchsorted(dates, starts, side="left")
-    row, first_row = -1, 0
-    if resume is not None:
-        row = int(np.searchsorted(dates, resume.date.to_datetime64()))
-        if row == len(dates) or dates[row] != resume.date.to_datetime64():
-            raise InputError(f"timeline: the resume date {resume.date.date()} is not one of "
-                             "its window ends")
-        first_row = row - carry_rows(s) + 1
-        if first_row < 0 or any(len(resume.cusum[t]) != carry_rows(s) for t in TAILS):
-            raise InputError(f"timeline: too few rows up to the resume date "
-                             f"{resume.date.date()}")
+    row, first_row = (-1, 0) if resume is None else _resume_rows(dates, resume, s)
     new: dict[str, object] = {}
     episodes: list[Episode] = []
     any_alert = np.zeros(len(frame), dtype=bool)
     for tail in TAILS:
         carried = () if resume is None else resume.cusum[tail]
-        stats = _tail_statistics(frame, tail, s, reference_end, row, carried)
+        stats, material = _tail_statistics(frame, tail, s, reference_end, row, carried)
         continued = None if resume is None else next(
             (e for e in resume.episodes if e.tail == tail), None)
-        evidence, alert, state, eps = _tail_episodes(frame, tail, stats, s, first_row,
-                                                     row + 1, continued)
+        evidence, alert, state, eps = _tail_episodes(frame, tail, stats, material, s,
+                                                     first_row, row + 1, continued)
         for name in ("excess", "window", "sequential", "spike", "switch"):
             new[f"{name}_{tail}"] = stats[name]
         new[f"evidence_{tail}"] = evidence
@@ -901,6 +904,21 @@ def pair_signals(timeline: pd.DataFrame, settings: SignalSettings | None = None,
         out = out.iloc[row + 1:].reset_index(drop=True)
     episodes.sort(key=lambda e: (e.start, TAILS.index(e.tail)))
     return PairSignals(out, tuple(episodes), s, resume)
+
+
+def _resume_rows(dates: NDArray[np.datetime64], resume: Resume, s: SignalSettings
+                 ) -> tuple[int, int]:
+    """The row of the resume date and the first row of the carried CUSUM levels; InputError
+    when the date is not a window end of the timeline or too few rows lead up to it."""
+    row = int(np.searchsorted(dates, resume.date.to_datetime64()))
+    if row == len(dates) or dates[row] != resume.date.to_datetime64():
+        raise InputError(f"timeline: the resume date {resume.date.date()} is not one of "
+                         "its window ends")
+    first_row = row - carry_rows(s) + 1
+    if first_row < 0 or any(len(resume.cusum[t]) != carry_rows(s) for t in TAILS):
+        raise InputError(f"timeline: too few rows up to the resume date "
+                         f"{resume.date.date()}")
+    return row, first_row
 
 
 def context_rows(settings: SignalSettings, window_rows: int) -> int:
@@ -1065,7 +1083,10 @@ def state_runs(frame: pd.DataFrame) -> pd.DataFrame:
     them at any dates.
     """
     dates = pd.to_datetime(frame["date"]).to_numpy()
-    cols: dict[str, list] = {"tail": [], "first_date": [], "last_date": [], "state": []}
+    tails: list[str] = []
+    states: list[object] = []
+    firsts: list[NDArray[np.datetime64]] = []
+    lasts: list[NDArray[np.datetime64]] = []
     for tail in TAILS:
         state = frame[f"state_{tail}"].to_numpy(dtype=object)
         if state.size == 0:
@@ -1073,13 +1094,17 @@ def state_runs(frame: pd.DataFrame) -> pd.DataFrame:
         change = np.flatnonzero(state[1:] != state[:-1]) + 1
         first = np.concatenate([[0], change])
         last = np.concatenate([change - 1, [state.size - 1]])
-        cols["tail"] += [tail] * first.size
-        cols["first_date"].append(dates[first])
-        cols["last_date"].append(dates[last])
-        cols["state"] += list(state[first])
-    for c in ("first_date", "last_date"):
-        cols[c] = np.concatenate(cols[c]) if cols[c] else np.array([], "datetime64[ns]")
-    return pd.DataFrame(cols, columns=["tail", "first_date", "last_date", "state"])
+        tails += [tail] * first.size
+        firsts.append(dates[first])
+        lasts.append(dates[last])
+        states += list(state[first])
+
+    def joined(parts: list[NDArray[np.datetime64]]) -> NDArray[np.datetime64]:
+        return np.concatenate(parts) if parts else np.array([], "datetime64[ns]")
+
+    return pd.DataFrame({"tail": tails, "first_date": joined(firsts),
+                         "last_date": joined(lasts), "state": states},
+                        columns=["tail", "first_date", "last_date", "state"])
 
 
 def states_on(runs: pd.DataFrame, rows: pd.DataFrame) -> pd.DataFrame:

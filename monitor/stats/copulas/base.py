@@ -22,12 +22,14 @@ from __future__ import annotations
 
 from abc import ABC, abstractmethod
 from collections.abc import Callable, Mapping, Sequence
-from typing import ClassVar, NamedTuple
+from typing import ClassVar, Generic, NamedTuple, TypeVar
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 Params = tuple[NDArray[np.float64], ...]
+#: A family's table of parameter-free transforms of the rank-grid points (see :class:`GridData`).
+TableT = TypeVar("TableT")
 
 #: Smallest distance from 0 or 1 at which densities and h-functions are evaluated.
 UNIT_EPS = 1e-15
@@ -65,6 +67,8 @@ class CopulaFamily(ABC):
     rotations: ClassVar[tuple[int, ...]] = (0,)
 
     __slots__ = ("rotation",)
+    #: Counter-clockwise rotation in degrees (set once, in ``__init__``).
+    rotation: int
 
     def __init__(self, rotation: int = 0) -> None:
         if isinstance(rotation, bool) or not isinstance(rotation, int | np.integer):
@@ -83,7 +87,8 @@ class CopulaFamily(ABC):
         return f"{type(self).__name__}(rotation={self.rotation})"
 
     def __eq__(self, other: object) -> bool:
-        return type(other) is type(self) and other.rotation == self.rotation  # type: ignore[attr-defined]
+        return isinstance(other, CopulaFamily) and type(other) is type(self) \
+            and other.rotation == self.rotation
 
     def __hash__(self) -> int:
         return hash((type(self).__name__, self.rotation))
@@ -302,10 +307,10 @@ class CopulaFamily(ABC):
 
     def start_params(self, tau: ArrayLike) -> Params:
         """Starting values for estimation from a sample Kendall's tau, inside :attr:`fit_bounds`."""
-        tau = np.clip(np.asarray(tau, dtype=float), -0.98, 0.98)
+        t = np.clip(np.asarray(tau, dtype=float), -0.98, 0.98)
         if self.rotation in (90, 270):
-            tau = -tau
-        p = self._start_params(tau)
+            t = -t
+        p = self._start_params(t)
         return tuple(np.clip(a, lo, hi) for a, (lo, hi) in zip(p, self.fit_bounds, strict=True))
 
     # ------------------------------------------------------------------ rotation plumbing
@@ -366,7 +371,7 @@ class CopulaFamily(ABC):
         return ru, rv
 
     def _grid_data(self, u: NDArray, v: NDArray, grid: tuple | None,
-                   table: Callable[[NDArray], tuple]) -> GridData | None:
+                   table: Callable[[NDArray], TableT]) -> GridData[TableT] | None:
         """:class:`GridData` of the rotated (u, v) with ``table(points)`` of the grid points
         i/(n+1), or None when the data are not on the grid."""
         ranks = self._grid_ranks(u, v, grid)
@@ -479,7 +484,7 @@ def _invert_increasing(func, target, lo: float = UNIT_EPS, hi: float = 1 - UNIT_
     return 1.0 / (1.0 + np.exp(-m))
 
 
-class GridData(NamedTuple):
+class GridData(NamedTuple, Generic[TableT]):
     """Prepared data of windows on the rank grid: both margins of every window are
     permutations of the same n points i/(n+1), so a family evaluates its per-margin
     transforms once per window on the grid and gathers them by rank.
@@ -491,7 +496,7 @@ class GridData(NamedTuple):
 
     ru: NDArray[np.int32]
     rv: NDArray[np.int32]
-    table: tuple
+    table: TableT
 
 
 def gather(values: NDArray, ranks: NDArray) -> NDArray:
