@@ -6,13 +6,11 @@ from __future__ import annotations
 
 from urllib.parse import quote
 
-import plotly.graph_objects as go
 from dash import Input, Output
 
 from layouts import ids
 from layouts.components import filter_action, message, shape_columns
 from monitor.common.errors import InputError
-from monitor.common.palette import figure_layout
 from monitor.views.board import (
     DEFAULT_HORIZON,
     DEFAULT_TAIL_SOURCE,
@@ -26,6 +24,7 @@ from monitor.views.board import (
     ranking_table,
     summary_figure,
 )
+from monitor.views.common import blank_figure
 
 #: Outputs of :func:`show_board`, in order.
 OUTPUTS = ((ids.BOARD_MATRIX_TAU, "figure"), (ids.BOARD_MATRIX_LOWER, "figure"),
@@ -36,11 +35,6 @@ OUTPUTS = ((ids.BOARD_MATRIX_TAU, "figure"), (ids.BOARD_MATRIX_LOWER, "figure"),
            (ids.BOARD_EXCESS_UPPER, "figure"), (ids.BOARD_CHANGE_NOTE, "children"),
            (ids.BOARD_NOTE, "children"), (ids.BOARD_MESSAGE, "children"),
            (ids.BOARD_RANKING, "hidden_columns"), (ids.BOARD_RANKING, "filter_action"))
-
-
-def _blank() -> go.Figure:
-    return go.Figure(layout=figure_layout(height=200, xaxis={"visible": False},
-                                          yaxis={"visible": False}))
 
 
 def _table(data) -> tuple[list[dict], list[dict], list[str], str]:
@@ -88,7 +82,7 @@ def show_board(view, date: str | None, source: str | None,
     try:
         data = board_data(view, date or None, horizon)
     except InputError as exc:
-        blank = _blank()
+        blank = blank_figure()
         return (blank, blank, blank, [], [], blank, blank, blank, blank, blank, blank, "", "",
                 message(str(exc), kind="problem"), [], filter_action(0))
     source = source if source in TAIL_SOURCES else DEFAULT_TAIL_SOURCE

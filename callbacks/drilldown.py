@@ -15,7 +15,8 @@ from layouts import ids
 from layouts.components import message
 from layouts.drilldown import HIDDEN, VISIBLE, results
 from monitor.common.errors import InputError
-from monitor.views.drilldown import PairStudy, parse_pair, study_pair
+from monitor.views.common import parse_pair
+from monitor.views.drilldown import PairStudy, study_pair
 from monitor.views.report import report_filename, report_html
 
 

@@ -6,11 +6,11 @@ from __future__ import annotations
 from dash import Input, Output
 
 from layouts import ids
-from layouts.episodes import table_frame, typed_columns
+from layouts.components import table_frame, typed_columns
 from layouts.inputs import LAGS
 from monitor.common.errors import InputError
-from monitor.common.palette import figure_layout
-from monitor.views.common import settings_words
+from monitor.settings import settings_words
+from monitor.views.common import blank_figure
 from monitor.views.inputs import (
     acf_figure,
     ljung_box_table,
@@ -21,23 +21,16 @@ from monitor.views.inputs import (
 )
 
 
-def _blank(text: str) -> dict:
-    return {"data": [], "layout": figure_layout(
-        height=160, xaxis={"visible": False}, yaxis={"visible": False},
-        annotations=[{"text": text, "showarrow": False, "xref": "paper", "yref": "paper",
-                      "x": 0.5, "y": 0.5}])}
-
-
 def show_diagnostics(view, asset: str | None, lags):
     """Outputs of the diagnostics callback: three figures, Ljung-Box rows and columns, note."""
     if not asset:
-        blank = _blank("no filtered asset")
+        blank = blank_figure("no filtered asset", height=160)
         return blank, blank, blank, [], [], "No asset has filtered residuals yet."
     try:
         diag = marginal_diagnostics(view.store, view.marginal_key, asset,
                                     lags=parse_lags(lags, LAGS[1], LAGS[2]))
     except InputError as exc:
-        blank = _blank(str(exc))
+        blank = blank_figure(str(exc), height=160)
         return blank, blank, blank, [], [], str(exc)
     tests = ljung_box_table(diag)
     data, columns = table_frame(tests).to_dict("records"), typed_columns(tests)

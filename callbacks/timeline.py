@@ -7,17 +7,15 @@ import re
 from urllib.parse import urlencode
 
 import pandas as pd
-import plotly.graph_objects as go
 from dash import Input, Output, no_update
 
 from layouts import ids
 from layouts.components import filter_action, message, records
 from monitor.common.errors import InputError
-from monitor.common.palette import figure_layout
+from monitor.views.common import blank_figure, parse_pair
 from monitor.views.timeline import (
     episodes_table,
     pair_history,
-    parse_pair,
     study_link,
     timeline_figure,
 )
@@ -34,8 +32,7 @@ _RANGE_KEY = re.compile(r"^xaxis\d*\.range\[([01])\]$")
 def show_pair(view, pair_text: str | None) -> tuple:
     """The values of :data:`OUTPUTS` for the chosen pair (``A/B``); an unknown pair gives a
     blank figure and a one-line message."""
-    blank = go.Figure(layout=figure_layout(height=200, xaxis={"visible": False},
-                                           yaxis={"visible": False}))
+    blank = blank_figure()
     if not pair_text:
         return blank, "", [], [], message("Choose a pair above."), None, None, "none"
     try:

@@ -13,22 +13,19 @@ from dash import dcc, html
 
 from monitor.common.errors import InputError
 from monitor.common.palette import MUTED, VERMILION
+from monitor.views.common import parse_date, parse_pair
 from monitor.views.drilldown import (
     REPLICATE_CHOICES,
     PairStudy,
     WindowResult,
     candidate_table,
-    crash_table,
-    parse_date,
-    parse_pair,
-    summary_table,
-    tail_table,
-)
-from monitor.views.drilldown_figures import (
     crash_figure,
+    crash_table,
     provenance_line,
     scatter_figure,
+    summary_table,
     tail_figure,
+    tail_table,
 )
 
 from . import ids

@@ -6,16 +6,14 @@ Query string: ``?pair=A/B`` (one pair), ``&tail=lower|upper|both``, ``&cause=...
 
 from __future__ import annotations
 
-from collections.abc import Mapping
 from types import MappingProxyType
 
-import numpy as np
 import pandas as pd
 from dash import dcc, html
 
 from monitor.common.errors import InputError
+from monitor.settings import settings_words
 from monitor.stats.signals import CAUSES, TAILS, SignalSettings
-from monitor.views.common import settings_words
 from monitor.views.episodes import (
     OUTBOX_STATES,
     EpisodeFilter,
@@ -30,7 +28,16 @@ from monitor.views.episodes import (
 )
 
 from . import ids
-from .components import graph, message, panel, shape_columns, table
+from .components import (
+    graph,
+    message,
+    panel,
+    shape_columns,
+    table,
+    table_frame,
+    typed_columns,
+    typed_table,
+)
 from .theme import NOTE_STYLE
 
 TITLE = "Episodes"
@@ -59,61 +66,6 @@ LINK = "Timeline"
 #: standard errors, which the chart's hover also gives as a 95% margin, and the last day
 #: (the as-of date while an episode is open).
 SECONDARY_COLUMNS = ("last_day", "peak_kendall_tau_se", "peak_tail_emp_se")
-
-
-def table_frame(frame: pd.DataFrame, digits: int = 4) -> pd.DataFrame:
-    """A frame ready for a table: dates as ``YYYY-MM-DD`` (with the time where one is set),
-    floats to ``digits`` significant digits, booleans as yes/no, missing values empty."""
-    out = {}
-    for c in frame.columns:
-        s = frame[c]
-        if pd.api.types.is_datetime64_any_dtype(s):
-            known = s.dropna()
-            timed = bool(len(known)) and bool((known != known.dt.normalize()).any())
-            text = s.dt.strftime("%Y-%m-%d %H:%M" if timed else "%Y-%m-%d")
-            out[c] = text.astype(object).where(s.notna(), None)
-        elif pd.api.types.is_bool_dtype(s):
-            out[c] = s.map({True: "yes", False: "no"}).astype(object)
-        elif pd.api.types.is_float_dtype(s):
-            v = s.to_numpy(dtype=float)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                mag = np.floor(np.log10(np.abs(v)))
-                scale = 10.0 ** np.where(np.isfinite(mag), digits - 1 - mag, 0)
-                rounded = np.where(np.isfinite(v) & (v != 0), np.round(v * scale) / scale, v)
-            out[c] = pd.Series(rounded, index=s.index).astype(object).where(np.isfinite(v), None)
-        else:
-            out[c] = s.astype(object).where(s.notna(), None)
-    return pd.DataFrame(out, index=frame.index, columns=frame.columns)
-
-
-def typed_columns(frame: pd.DataFrame, labels: Mapping[str, str] | None = None) -> list[dict]:
-    """DataTable column specs of ``frame`` (before :func:`table_frame`): numbers typed
-    numeric and dates datetime, so that the native filter reads ``>20`` or ``>2020-03-01``
-    as a comparison; ``labels`` renames the shown headers."""
-    labels = labels or {}
-    out = []
-    for c in frame.columns:
-        s = frame[c]
-        kind = ("datetime" if pd.api.types.is_datetime64_any_dtype(s) else
-                "numeric" if pd.api.types.is_numeric_dtype(s) and not
-                pd.api.types.is_bool_dtype(s) else "text")
-        name = labels.get(str(c), str(c))
-        out.append({"name": name, "id": name, "type": kind})
-    return out
-
-
-def typed_table(component_id: str, frame: pd.DataFrame, *,
-                labels: Mapping[str, str] | None = None, percent: tuple[str, ...] = (),
-                secondary: tuple[str, ...] = (), **props):
-    """:func:`layouts.components.table` of ``frame`` with typed columns and shown labels;
-    ``percent`` and ``secondary`` name columns of ``frame`` (before relabelling) shown as
-    percentages and hidden at first."""
-    labels = labels or {}
-    component = table(component_id, table_frame(frame).rename(columns=labels), **props)
-    component.columns, component.hidden_columns = shape_columns(
-        typed_columns(frame, labels), percent=tuple(labels.get(c, c) for c in percent),
-        secondary=tuple(labels.get(c, c) for c in secondary))
-    return component
 
 
 def episode_records(frame: pd.DataFrame, columns) -> tuple[list[dict], list[dict]]:
@@ -146,10 +98,7 @@ def episode_table(component_id: str, frame: pd.DataFrame, columns, *, page_size:
 
 
 def _provenance(view) -> str:
-    r = view.rolling
-    return (f"Signals of the rolling metrics (window {r.window} days, step {r.step}, selection "
-            f"by {r.criterion.upper()}, tail level q = {r.tail_q:g}) on "
-            f"{view.cfg.marginals.mode} GARCH-filtered residuals; "
+    return (f"Signals of the rolling metrics ({view.settings.provenance()}); "
             f"{settings_words(view.signals_key).rsplit('; ', 1)[-1]}.")
 
 
@@ -272,5 +221,4 @@ def _outbox(view) -> html.Div:
 
 
 __all__ = ["HISTORY_COLUMNS", "OPEN_COLUMNS", "TITLE", "count_text", "episode_records",
-           "episode_table", "layout", "short_provenance", "table_frame", "typed_columns",
-           "typed_table"]
+           "episode_table", "layout", "short_provenance"]

@@ -11,7 +11,7 @@ from types import MappingProxyType
 from dash import dcc, html
 
 from monitor.common.errors import InputError
-from monitor.views.common import settings_words
+from monitor.settings import settings_words
 from monitor.views.inputs import (
     PARAMETER_NAMES,
     coverage_figure,
@@ -26,8 +26,7 @@ from monitor.views.inputs import (
 )
 
 from . import ids
-from .components import graph, message, panel, table
-from .episodes import typed_table
+from .components import graph, message, panel, table, typed_table
 from .theme import NOTE_STYLE
 
 TITLE = "Inputs"

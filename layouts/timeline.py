@@ -7,7 +7,7 @@ from __future__ import annotations
 from dash import dcc, html
 
 from monitor.common.errors import InputError
-from monitor.views.timeline import parse_pair
+from monitor.views.common import parse_pair
 
 from . import ids
 from .components import graph, message, panel, table

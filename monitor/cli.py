@@ -348,7 +348,8 @@ TIMELINE_COLUMNS = ("date", "n", "kendall_tau", "spearman_rho", "family", "rotat
 
 def _export_timeline(args: argparse.Namespace, cfg: Config) -> int:
     from monitor.data.store import Store
-    from monitor.engine.pipeline import marginal_settings, read_pair_signals
+    from monitor.engine.pipeline import read_pair_signals
+    from monitor.settings import marginal_settings
 
     a, b = args.pair
     if a == b:
@@ -399,7 +400,7 @@ def _cmd_alerts(args: argparse.Namespace, cfg: Config) -> int:
     from monitor.alerts.charts import chart_maker
     from monitor.alerts.mailer import send_pending
     from monitor.data.store import Store
-    from monitor.engine.pipeline import rolling_key
+    from monitor.settings import rolling_key
 
     with Store(cfg.store.url, create=False) as store:
         if args.dry_run:

@@ -18,6 +18,7 @@ from typing import Any
 from monitor.common.errors import InputError
 from monitor.data.tables import ReadOptions, read_options
 from monitor.stats.copulas import FAMILY_NAMES
+from monitor.stats.rolling import RollingSettings
 
 DEFAULT_STORE_URL = "sqlite:///comove-data/store.sqlite"
 
@@ -28,12 +29,10 @@ class StoreConfig:
 
 
 @dataclass(frozen=True, slots=True)
-class RollingConfig:
-    window: int = 250
-    step: int = 1
-    families: tuple[str, ...] = FAMILY_NAMES
-    criterion: str = "aic"
-    tail_q: float = 0.10
+class RollingConfig(RollingSettings):
+    """``[rolling]``: the rolling settings (:class:`monitor.stats.rolling.RollingSettings`)
+    and the pairs to monitor."""
+
     #: Pairs to monitor as "A/B" strings; empty means every pair of stored assets.
     pairs: tuple[str, ...] = ()
 
@@ -318,9 +317,9 @@ def _validate_alerts(a: AlertsConfig, path: str) -> None:
     where = f"{path}: alerts.email"
     if e.sender and not is_address(e.sender):
         raise InputError(f"{where}.sender: {e.sender!r} is not an e-mail address")
-    for i, r in enumerate(e.recipients, start=1):
-        if not is_address(r):
-            raise InputError(f"{where}.recipients[{i}]: {r!r} is not an e-mail address")
+    for i, recipient in enumerate(e.recipients, start=1):
+        if not is_address(recipient):
+            raise InputError(f"{where}.recipients[{i}]: {recipient!r} is not an e-mail address")
     if len(set(e.recipients)) != len(e.recipients):
         raise InputError(f"{where}.recipients lists an address twice")
     if e.recipients and not (e.host and e.sender):
@@ -399,7 +398,7 @@ def load_config(path: str | os.PathLike | None = None, store_url: str | None = N
             raw = tomllib.loads(p.read_text(encoding="utf-8-sig"))
         except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
             raise InputError(f"{p}: not valid TOML ({exc})") from None
-        values = {}
+        values: dict[str, Any] = {}
         for key, table in raw.items():
             if key == "sources":
                 values[key] = _sources(table, str(p))

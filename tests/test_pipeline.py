@@ -16,7 +16,8 @@ from monitor import cli
 from monitor.config import ComputeConfig, Config, SourceConfig, StoreConfig
 from monitor.data.ingest import ingest_sources, read_file_source
 from monitor.data.store import Store, residuals
-from monitor.engine.pipeline import marginal_settings, run_update
+from monitor.engine.pipeline import run_update
+from monitor.settings import marginal_settings
 
 from .conftest import take_snapshot
 

@@ -19,7 +19,8 @@ from scipy import stats
 
 from monitor.config import ComputeConfig, Config, RollingConfig, StoreConfig
 from monitor.data.store import Store, metrics
-from monitor.engine.pipeline import rolling_key, run_update
+from monitor.engine.pipeline import run_update
+from monitor.settings import rolling_key
 from monitor.stats.copulas import family
 from monitor.stats.empirical import pseudo_observations, spearman_rho, tail_dependence
 from monitor.stats.fitting import select_copula
@@ -249,7 +250,8 @@ def test_dask_backend_gives_identical_results(tmp_path, dask_scheduler):
 
 def test_signals_are_stored_and_the_timeline_exports_per_contract(tmp_path, capsys):
     from monitor import cli
-    from monitor.engine.pipeline import read_pair_signals, signals_key
+    from monitor.engine.pipeline import read_pair_signals
+    from monitor.settings import signals_key
 
     prices = _prices(3, 360, seed=6)
     cfg = _setup(tmp_path, "sig", prices)
@@ -320,7 +322,8 @@ def test_daily_signals_continue_to_the_states_and_episodes_of_a_fresh_run(tmp_pa
     # the stored state runs, episodes and universe summary must be those of a store built
     # in one go.
     from monitor.data.ingest import ingest_sources, read_file_source
-    from monitor.engine.pipeline import read_universe_summary, signals_key
+    from monitor.engine.pipeline import read_universe_summary
+    from monitor.settings import signals_key
 
     prices = _shifting_prices(780, seed=2)
     cfg = _setup(tmp_path, "d", prices.iloc[:700])
@@ -367,9 +370,8 @@ def test_daily_update_reads_recent_residuals_and_gets_the_same_tasks(tmp_path):
         _pair_tasks,
         _rolling_tasks,
         _universe_pairs,
-        marginal_settings,
-        rolling_settings,
     )
+    from monitor.settings import marginal_settings, rolling_settings
 
     prices = _prices(3, 420, seed=5)
     cfg = _setup(tmp_path, "t", prices.iloc[:415])

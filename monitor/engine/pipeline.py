@@ -10,9 +10,13 @@ from __future__ import annotations
 import datetime as dt
 import os
 import time
+from collections.abc import Callable, Iterator
 from concurrent.futures import ProcessPoolExecutor, as_completed
+from contextlib import contextmanager
 from dataclasses import dataclass, field
+from functools import partial
 from itertools import combinations
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -30,6 +34,7 @@ from monitor.data.ingest import (
     read_sql_table_source,
 )
 from monitor.data.store import Store, outbox
+from monitor.settings import marginal_settings, rolling_key, rolling_settings, signals_key
 from monitor.stats.marginals import FilteredSeries, MarginalSettings, extend_series, filter_series
 from monitor.stats.rolling import (
     CHAIN_FROM,
@@ -49,11 +54,6 @@ from monitor.stats.signals import (
     state_runs,
     universe_key,
 )
-
-
-def marginal_settings(cfg: Config) -> MarginalSettings:
-    """The marginal settings the configuration asks for."""
-    return MarginalSettings(mode=cfg.marginals.mode, refit_every=cfg.marginals.refit_every)
 
 
 def read_configured_sources(cfg: Config) -> list[Source]:
@@ -140,19 +140,13 @@ def update_marginals(store: Store, cfg: Config, *, progress: bool = True) -> Mar
             continue
         todo.append((key, asset, series, settings))
     results: list[tuple[str, FilteredSeries, bool, FilteredSeries | None]] = []
-    workers = min(_workers(cfg), max(len(todo), 1))
-    with StepProgress("marginals", len(todo), "asset", enabled=progress) as bar:
-        if workers > 1 and len(todo) > 1:
-            with ProcessPoolExecutor(workers, initializer=_open_worker_store,
-                                     initargs=(store.url,)) as pool:
-                for out in pool.map(_filter_task, todo):
-                    results.append(out)
-                    bar.update()
-        else:
-            for args in todo:
-                results.append(_filter_one(store, *args))
-                bar.update()
-    results = [r for r in results if r is not None]
+    with (StepProgress("marginals", len(todo), "asset", enabled=progress) as bar,
+          _pool_results(_filter_task, todo, _workers(cfg), store_url=store.url,
+                        local=lambda args: _filter_one(store, *args)) as done):
+        for out in done:
+            if out is not None:
+                results.append(out)
+            bar.update()
     written = 0
     with store.transaction() as conn:
         for _asset, fs, redone, previous in results:
@@ -178,18 +172,46 @@ def _open_worker_store(url: str) -> None:
     _WORKER_STORE = Store(url, create=False)
 
 
+@contextmanager
+def _pool_results(fn: Callable[[Any], Any], items: list, workers: int, *,
+                  local: Callable[[Any], Any] | None = None, store_url: str | None = None,
+                  ordered: bool = True, chunksize: int = 1) -> Iterator[Iterator[Any]]:
+    """The results of ``fn`` on every item, from a local process pool when it pays.
+
+    Parameters
+    ----------
+    fn : callable
+        A module-level function of one item (it is pickled to the workers).
+    items : list
+    workers : int
+        Most worker processes; with one (or one item) everything runs in this process.
+    local : callable, optional
+        What runs in this process instead of ``fn`` (e.g. with the caller's open store).
+    store_url : str, optional
+        Each worker opens this store once (:data:`_WORKER_STORE`) before its first item.
+    ordered : bool
+        Results in the order of ``items``; otherwise as they finish.
+    chunksize : int
+        Items sent to a worker at a time (``ordered`` only).
+
+    Yields
+    ------
+    iterator
+        The results; leaving the block shuts the pool down, also on an error.
+    """
+    workers = min(workers, len(items))
+    if workers <= 1:
+        yield map(local or fn, items)
+        return
+    init = {"initializer": _open_worker_store, "initargs": (store_url,)} if store_url else {}
+    with ProcessPoolExecutor(workers, **init) as pool:
+        if ordered:
+            yield pool.map(fn, items, chunksize=chunksize)
+        else:
+            yield (f.result() for f in as_completed([pool.submit(fn, i) for i in items]))
+
+
 # ----------------------------------------------------------------------------- rolling engine
-def rolling_settings(cfg: Config) -> RollingSettings:
-    r = cfg.rolling
-    return RollingSettings(window=r.window, step=r.step, families=tuple(r.families),
-                           criterion=r.criterion, tail_q=r.tail_q)
-
-
-def rolling_key(cfg: Config) -> str:
-    """Settings key of the stored rolling metrics (marginal settings plus rolling ones)."""
-    return rolling_settings(cfg).key(marginal_settings(cfg).key)
-
-
 def _universe_pairs(assets: list[str], cfg: Config) -> list[tuple[str, str]]:
     if cfg.rolling.pairs:
         out = []
@@ -340,16 +362,9 @@ def _run_tasks(tasks: list[_PairTask], settings: RollingSettings, cfg: Config,
                     yield done
                     bar.update(len(done))
             return
-        if workers > 1 and len(batches) > 1:
-            with ProcessPoolExecutor(min(workers, len(batches))) as pool:
-                futures = [pool.submit(_pair_batch, b, settings) for b in batches]
-                for fut in as_completed(futures):
-                    done = fut.result()
-                    yield done
-                    bar.update(len(done))
-        else:
-            for b in batches:
-                done = _pair_batch(b, settings)
+        with _pool_results(partial(_pair_batch, settings=settings), batches, workers,
+                           ordered=False) as finished:
+            for done in finished:
                 yield done
                 bar.update(len(done))
 
@@ -374,12 +389,6 @@ def update_rolling(store: Store, cfg: Config, *, progress: bool = True) -> Rolli
 
 
 # ----------------------------------------------------------------------------- signals
-def signals_key(cfg: Config, settings: SignalSettings | None = None) -> str:
-    """Settings key of stored episodes: rolling key plus the signal thresholds."""
-    settings = settings or SignalSettings()
-    return f"{rolling_key(cfg)}|{settings.key}"
-
-
 def read_pair_signals(store: Store, cfg: Config, a: str, b: str,
                       settings: SignalSettings | None = None) -> PairSignals | None:
     """A pair's signals from its stored timeline (None when nothing is stored)."""
@@ -542,14 +551,9 @@ def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | Non
             for a, b in todo]
     in_alert: list[tuple[str, str, str]] = []
     counts = (0, 0, 0)  # new episodes, ended episodes, queued messages
-    workers = min(_workers(cfg), max(len(todo), 1))
-    pool = (ProcessPoolExecutor(workers, initializer=_open_worker_store,
-                                initargs=(store.url,))
-            if workers > 1 and len(todo) > 1 else None)
-    bar = StepProgress("signals", len(jobs), "pair", enabled=progress)
-    try:
-        results = (pool.map(_signals_task, jobs, chunksize=8) if pool
-                   else (_pair_signals_job(store, j) for j in jobs))
+    with (StepProgress("signals", len(jobs), "pair", enabled=progress) as bar,
+          _pool_results(_signals_task, jobs, _workers(cfg), store_url=store.url, chunksize=8,
+                        local=lambda job: _pair_signals_job(store, job)) as results):
         chunk: list[_PairSignalsOut] = []
         for out in results:
             bar.update()
@@ -563,13 +567,6 @@ def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | Non
                 chunk = []
         if chunk:
             counts = _add(counts, _store_signals(store, cfg, r_key, key, chunk))
-    except BaseException:
-        bar.close(failed=True)
-        raise
-    finally:
-        if pool is not None:
-            pool.shutdown()
-    bar.close()
     new_n, ended_n, queued = counts
     u_key = universe_key(key)
     stored = store.universe_range(u_key)

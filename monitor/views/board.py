@@ -57,7 +57,6 @@ from the assets in alphabetical order, so the order is deterministic.
 
 from __future__ import annotations
 
-import datetime as dt
 from dataclasses import dataclass
 
 import numpy as np
@@ -82,8 +81,7 @@ from monitor.common.palette import (
     figure_layout,
 )
 from monitor.stats.signals import STATES, TAILS, states_on, universe_key
-from monitor.views.common import StoreView
-from monitor.views.timeline import binomial_band, rounded_for_plot, tau_band
+from monitor.views.common import StoreView, binomial_band, parse_date, rounded_for_plot, tau_band
 
 __all__ = [
     "BOARD_COLUMNS",
@@ -105,7 +103,6 @@ __all__ = [
     "matrix_figure",
     "pair_changes",
     "pair_matrix",
-    "parse_date",
     "rank_pairs",
     "ranking_table",
     "standing_labels",
@@ -295,36 +292,6 @@ def standing_labels(counts: pd.DataFrame, expected_ends: int,
                    np.where(lower, "standing heavy lower tail",
                             np.where(upper, "standing heavy upper tail", "")))
     return pd.Series(out, index=counts.index, dtype="string")
-
-
-def parse_date(text: object, what: str = "date") -> pd.Timestamp:
-    """A calendar date from user input.
-
-    Parameters
-    ----------
-    text : str, date or Timestamp
-        ``YYYY-MM-DD`` (a longer ISO string keeps its first ten characters).
-    what : str
-        What the date is, named in the error message.
-
-    Returns
-    -------
-    Timestamp
-        Midnight of that date.
-
-    Raises
-    ------
-    InputError
-        When ``text`` is empty or not a date.
-    """
-    if isinstance(text, dt.date | pd.Timestamp):
-        return pd.Timestamp(text).normalize()
-    if not isinstance(text, str) or not text.strip():
-        raise InputError(f"{what}: no date given (YYYY-MM-DD)")
-    try:
-        return pd.Timestamp(dt.date.fromisoformat(text.strip()[:10]))
-    except ValueError:
-        raise InputError(f"{what}: {text!r} is not a date (YYYY-MM-DD)") from None
 
 
 def divergence(tail_emp: ArrayLike, tail_emp_se: ArrayLike, gauss_tail_q: ArrayLike
@@ -520,12 +487,6 @@ class BoardData:
         return pair_matrix(self.pairs, self.assets, column)
 
 
-def _provenance(view: StoreView) -> str:
-    r = view.rolling
-    return (f"window {r.window} days, step {r.step}, selection by {r.criterion.upper()}, "
-            f"tail level q = {r.tail_q:g}, {view.cfg.marginals.mode} marginals")
-
-
 def board_range(view: StoreView) -> tuple[pd.Timestamp, pd.Timestamp] | None:
     """The dates the board can show.
 
@@ -619,7 +580,7 @@ def board_data(view: StoreView, as_of: object = None, horizon: str = DEFAULT_HOR
     rows["standing"] = standing_labels(counts, _TRADING_YEAR // step).to_numpy()
     assets = sorted(set(rows["asset_a"]) | set(rows["asset_b"]))
     order = cluster_order(pair_matrix(rows, assets, "kendall_tau"))
-    return BoardData(day, first, last, order, rank_pairs(rows), summary, q, _provenance(view),
+    return BoardData(day, first, last, order, rank_pairs(rows), summary, q, view.settings.provenance(),
                      horizon, back, back * step)
 
 

@@ -1,176 +1,259 @@
-"""What the dashboard reads: a store opened with the configuration's settings keys.
+"""What every page shares: the store opened with the configuration's settings, the parsing of
+pairs and dates a user types, the uncertainty bands and a blank figure.
 
 The dashboard, the HTML report and the alert e-mails read results through a :class:`StoreView`
 so that every number they show carries the settings that produced it (window, families,
-criterion, marginal model and mode, signal thresholds).
+criterion, marginal model and mode, signal thresholds; :class:`monitor.settings.Settings`).
 """
 
 from __future__ import annotations
 
-import re
+import datetime as dt
 from dataclasses import dataclass
 
+import numpy as np
+import pandas as pd
+import plotly.graph_objects as go
+from numpy.typing import ArrayLike, NDArray
+from scipy import stats
+
+from monitor.common.arrays import read_only
+from monitor.common.errors import InputError
+from monitor.common.palette import figure_layout
 from monitor.config import Config
 from monitor.data.store import Store
-from monitor.engine.pipeline import marginal_settings, rolling_key, rolling_settings, signals_key
-from monitor.stats.copulas import FAMILY_NAMES
-from monitor.stats.marginals import MarginalSettings
+from monitor.settings import Settings
+from monitor.stats.empirical import tail_share_interval
 from monitor.stats.rolling import RollingSettings
-from monitor.stats.signals import SignalSettings
 
-__all__ = ["SETTINGS_KEY_PATTERN", "StoreView", "settings_words"]
-
-_NUM = r"[-+]?(?:inf|nan|[0-9]*\.?[0-9]+(?:e[-+]?[0-9]+)?)"
-_ROLLING = re.compile(rf"^w(?P<window>\d+)/s(?P<step>\d+)/(?P<criterion>[a-z]+)/"
-                      rf"q(?P<q>{_NUM})/(?P<families>[a-z0-9_+]+)/v\d+$")
-_SIGNALS = re.compile(
-    rf"^cusum(?P<ref>{_NUM}):(?P<ce>{_NUM})-(?P<cx>{_NUM}):cap(?P<cap>{_NUM})"
-    rf"/window(?P<we>{_NUM})-(?P<wx>{_NUM}):gate(?P<gate>{_NUM})-(?P<hold>{_NUM})"
-    rf"/spike(?P<se>{_NUM})-(?P<sx>{_NUM}):ref(?P<refw>\d+)"
-    rf"/switch(?P<swe>{_NUM})-(?P<swx>{_NUM}):tail(?P<tail>{_NUM}):aic(?P<aic>{_NUM})"
-    rf":last(?P<last>\d+)/days(?P<ed>\d+)-(?P<xd>\d+)"
-    rf"(?:/(?:base(?P<z>{_NUM}):min(?P<bmin>\d+)|(?P<gauss>gaussian)):material(?P<mat>{_NUM}))?"
-    rf"/v\d+$")
-#: What a stored settings key looks like in text (marginal, rolling or signal part): no page
-#: may show one (tests search every page for it).
-SETTINGS_KEY_PATTERN = re.compile(
-    r"cusum[0-9.e+-]+:|(?:real-time|in-sample)/(?:refit|min)\d+|\bw\d+/s\d+/[a-z]+/q")
-
-
-def _marginal_words(key: str) -> str:
-    m = MarginalSettings.from_key(key)
-    if m.candidates == MarginalSettings().candidates:
-        among = f"BIC choice among the {len(m.candidates)} standard specifications"
-    else:
-        among = "BIC choice among " + ", ".join(c.label for c in m.candidates)
-    if m.mode == "in-sample":
-        return (f"marginals: GARCH-type filter, in-sample mode (one fit on all data, at least "
-                f"{m.min_obs} observations), {among}")
-    every = (f"re-selected every {m.reselect_every} refits" if m.reselect_every
-             else "selected once")
-    return (f"marginals: GARCH-type filter, real-time mode (refit every {m.refit_every} days "
-            f"on data up to that day, first fit on {m.min_obs} observations, specification "
-            f"{every}), {among}")
-
-
-def _rolling_words(part: str) -> str:
-    m = _ROLLING.match(part)
-    if m is None:
-        raise ValueError(part)
-    fams = ("all families" if m["families"] == "all"
-            else "families " + ", ".join(m["families"].split("+")))
-    return (f"rolling copulas: window {m['window']} days, step {m['step']}, {fams}, selection "
-            f"by {m['criterion'].upper()}, tail level q = {float(m['q']):g}")
-
-
-def _signal_words(part: str) -> str:
-    m = _SIGNALS.match(part)
-    if m is None:
-        raise ValueError(part)
-    default = part == SignalSettings().key
-    head = ("signal thresholds: the calibrated defaults" if default
-            else "signal thresholds: set by the configuration")
-    if m["z"] is not None:
-        against = (f"measured against the pair's own {m['refw']} window ends before the "
-                   f"current window, the sequential sum centred {m['z']} standard errors "
-                   f"above their mean, from {m['bmin']} of them on")
-    else:
-        against = "measured against the Gaussian copula at the window's Kendall's tau"
-    switch = ("family switch off" if m["swe"] == "inf" else
-              f"family switch {m['swe']}/{m['swx']} over the last {m['last']} windows")
-    material = ("" if m["mat"] is None else
-                f"; no episode opens on a tail whose model-averaged coefficient is below "
-                f"{m['mat']}")
-    return (f"{head} ({against}; sequential divergence enters at {m['ce']} and leaves below "
-            f"{m['cx']}, {m['ref']} nats a day taken off at least, capped at {m['cap']}; "
-            f"window divergence {m['we']}/{m['wx']} with tail-excess gate "
-            f"{m['gate']}/{m['hold']}; tail spike z {m['se']}/{m['sx']} against "
-            f"{m['refw']} reference windows; {switch}{material}; an episode opens after "
-            f"{m['ed']} active days and closes after {m['xd']} quiet days)")
-
-
-def settings_words(key: str, *, short: bool = False) -> str:
-    """A stored settings key in words, for every page, report and e-mail.
-
-    Parameters
-    ----------
-    key : str
-        A marginal key (:attr:`monitor.stats.marginals.MarginalSettings.key`), a rolling key
-        (marginal key ``|`` rolling part, :func:`monitor.engine.pipeline.rolling_key`) or a signals
-        key (rolling key ``|`` :attr:`monitor.stats.signals.SignalSettings.key`).
-    short : bool
-        Only the parts' headlines (mode, window, whether the thresholds are the defaults).
-
-    Returns
-    -------
-    str
-        The parts in words, joined by "; ". A part that cannot be read is named as "stored
-        settings of another version" rather than shown raw.
-
-    Examples
-    --------
-    >>> settings_words("real-time/refit21/min250/reselect12/all8/v1|w120/s1/aic/q0.1/all/v1",
-    ...                short=True)
-    'real-time marginals; window 120 days, step 1, all families, AIC'
-    """
-    if not isinstance(key, str):
-        raise TypeError(f"key must be a str, got {type(key).__name__}")
-    parts = key.split("|")
-    out = []
-    for i, part in enumerate(parts):
-        try:
-            if i == 0:
-                if short:
-                    out.append(f"{MarginalSettings.from_key(part).mode} marginals")
-                else:
-                    out.append(_marginal_words(part))
-            elif i == 1:
-                words = _rolling_words(part)
-                if short:
-                    m = _ROLLING.match(part)
-                    fams = "all families" if m["families"] == "all" else "some families"
-                    words = (f"window {m['window']} days, step {m['step']}, {fams}, "
-                             f"{m['criterion'].upper()}")
-                out.append(words)
-            else:
-                words = _signal_words(part)
-                if short:
-                    words = words.split(" (", 1)[0]
-                out.append(words)
-        except ValueError:
-            out.append("stored settings of another version")
-    return "; ".join(out)
+__all__ = ["LEVEL", "StoreView", "binomial_band", "blank_figure", "parse_date", "parse_pair",
+           "rounded_for_plot", "tau_band"]
 
 
 @dataclass(frozen=True, slots=True)
 class StoreView:
-    """A store and the keys of the results the configuration selects.
+    """A store and the settings of the results the configuration selects.
 
     Parameters
     ----------
     cfg : Config
     store : Store
         Open store (the view does not own it; close the store when done).
+    settings : Settings
+        Derived from ``cfg`` (:meth:`open`).
     """
 
     cfg: Config
     store: Store
-    marginal_key: str
-    rolling_key: str
-    signals_key: str
-    rolling: RollingSettings
+    settings: Settings
 
     @classmethod
     def open(cls, cfg: Config, store: Store) -> StoreView:
         """The view of ``store`` under ``cfg``'s settings."""
-        return cls(cfg, store, marginal_settings(cfg).key, rolling_key(cfg), signals_key(cfg),
-                   rolling_settings(cfg))
+        return cls(cfg, store, Settings.of(cfg))
+
+    @property
+    def marginal_key(self) -> str:
+        return self.settings.marginal_key
+
+    @property
+    def rolling_key(self) -> str:
+        return self.settings.rolling_key
+
+    @property
+    def signals_key(self) -> str:
+        return self.settings.signals_key
+
+    @property
+    def rolling(self) -> RollingSettings:
+        return self.settings.rolling
 
     def provenance(self) -> str:
         """One line naming what produced the stored results (shown in every page's footer)."""
-        r = self.rolling
-        fams = "all families" if set(r.families) == set(FAMILY_NAMES) else ", ".join(r.families)
-        return (f"window {r.window} days, step {r.step}, {fams}, selection by "
-                f"{r.criterion.upper()}, tail level q = {r.tail_q:g}; marginals: GARCH-type "
-                f"filter, {self.cfg.marginals.mode} mode (refit every "
-                f"{self.cfg.marginals.refit_every} days); store {self.store.shown_url}")
+        return f"{self.settings.provenance()}; store {self.store.shown_url}"
+
+
+# ----------------------------------------------------------------------------- user input
+def parse_pair(text: object, pairs: list[tuple[str, str]] | None = None) -> tuple[str, str]:
+    """The pair a user's text names.
+
+    Parameters
+    ----------
+    text : str or None
+        ``A/B``, spaces around the names ignored.
+    pairs : list of (str, str), optional
+        The stored pairs. When given, ``text`` may name one in either order and the pair comes
+        back in stored order (a name holding ``/`` is found by trying every cut); when not,
+        ``text`` must be two different names around one ``/``.
+
+    Returns
+    -------
+    (str, str)
+
+    Raises
+    ------
+    InputError
+        When ``text`` is empty, not of the form ``A/B`` or (with ``pairs``) names no stored pair.
+    """
+    text = text.strip() if isinstance(text, str) else ""
+    if not text:
+        raise InputError("pair: none chosen; choose a pair of assets (write it as A/B)")
+    if "/" not in text:
+        raise InputError(f"pair {text!r}: write it as A/B (expected two asset names)")
+    if pairs is None:
+        parts = [p.strip() for p in text.split("/")]
+        if len(parts) != 2 or not all(parts):
+            raise InputError(f"pair {text!r}: write it as A/B (expected two asset names)")
+        if parts[0] == parts[1]:
+            raise InputError(f"pair {text!r}: the two assets must differ")
+        return parts[0], parts[1]
+    known = set(pairs)
+    for i in (i for i, ch in enumerate(text) if ch == "/"):
+        a, b = text[:i].strip(), text[i + 1:].strip()
+        if (a, b) in known:
+            return a, b
+        if (b, a) in known:
+            return b, a
+    example = f"; e.g. {pairs[0][0]}/{pairs[0][1]}" if pairs else ""
+    raise InputError(f"pair {text!r}: no stored timeline under the current settings "
+                     f"({len(pairs)} stored pair(s){example})")
+
+
+def parse_date(text: object, what: str = "date") -> pd.Timestamp:
+    """A calendar date from user input.
+
+    Parameters
+    ----------
+    text : str, date or Timestamp
+        ``YYYY-MM-DD`` or a longer ISO 8601 string (its time and zone are dropped).
+    what : str
+        What the date is, named in the error message.
+
+    Returns
+    -------
+    Timestamp
+        Midnight of that date, without a time zone.
+
+    Raises
+    ------
+    InputError
+        When ``text`` is empty or not a date.
+    """
+    if isinstance(text, dt.date | pd.Timestamp):
+        out = pd.Timestamp(text)
+    elif not isinstance(text, str) or not text.strip():
+        raise InputError(f"{what}: no date given (expected YYYY-MM-DD)")
+    else:
+        try:
+            out = pd.Timestamp(pd.to_datetime(text.strip(), format="ISO8601"))
+        except (ValueError, TypeError, OverflowError):
+            out = pd.NaT
+        if pd.isna(out):
+            raise InputError(f"{what}: cannot read date {text!r} (expected YYYY-MM-DD)")
+    return (out.tz_localize(None) if out.tzinfo else out).normalize()
+
+
+# ----------------------------------------------------------------------------- bands
+#: Coverage of every band on the timeline and the board.
+LEVEL = 0.95
+
+
+def _normal_quantile(level: float) -> float:
+    if not 0 < level < 1:
+        raise ValueError(f"level must lie in (0, 1), got {level!r}")
+    return float(stats.norm.ppf(0.5 + level / 2))
+
+
+def tau_band(tau: ArrayLike, se: ArrayLike, level: float = LEVEL
+             ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Pointwise normal interval of Kendall's tau.
+
+    Parameters
+    ----------
+    tau, se : array_like
+        Sample Kendall's tau of each window and its standard error.
+    level : float
+        Coverage, in (0, 1).
+
+    Returns
+    -------
+    (ndarray, ndarray)
+        Lower and upper ends, ``tau -+ z * se`` clipped to [-1, 1] (read-only).
+
+    Notes
+    -----
+    ``z`` is the standard normal ``(1 + level) / 2`` quantile; the s.e. is the
+    influence-function one of the U-statistic (Hoeffding 1948, *Ann. Math. Statist.* 19).
+    """
+    t, s = np.asarray(tau, dtype=float), np.asarray(se, dtype=float)
+    z = _normal_quantile(level)
+    return read_only(np.clip(t - z * s, -1, 1)), read_only(np.clip(t + z * s, -1, 1))
+
+
+def binomial_band(tail: ArrayLike, n: ArrayLike, q: float, level: float = LEVEL
+                  ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Wilson score interval of a finite-level tail concordance ``lambda = p / q``.
+
+    Parameters
+    ----------
+    tail : array_like
+        Nonparametric tail concordance of each window, ``C_n(q, q)/q`` or its upper analogue.
+    n : array_like
+        Observations in each window.
+    q : float
+        The tail level, in (0, 1).
+    level : float
+        Coverage, in (0, 1).
+
+    Returns
+    -------
+    (ndarray, ndarray)
+        Lower and upper ends for ``lambda``, in [0, 1] (read-only).
+
+    Notes
+    -----
+    With ``p = lambda * q`` the share of window days on which both fall in the tail,
+    ``z`` the normal quantile and ``m = n``:
+
+    .. math:: \\frac{p + z^2 / 2m \\pm z \\sqrt{p(1-p)/m + z^2 / 4m^2}}{1 + z^2/m}
+
+    (Wilson 1927, "Probable inference, the law of succession, and statistical inference",
+    *J. Amer. Statist. Assoc.* 22, 209-212), kept inside [0, q] because ``C(q, q) <= q``
+    (:func:`monitor.stats.empirical.tail_share_interval`), divided by ``q``.
+    """
+    if not 0 < q < 1:
+        raise ValueError(f"q must lie in (0, 1), got {q!r}")
+    lo, hi = tail_share_interval(np.asarray(tail, dtype=float) * q, n, q, level)
+    return read_only(lo / q), read_only(hi / q)
+
+
+def rounded_for_plot(frame: pd.DataFrame, digits: int = 4) -> pd.DataFrame:
+    """A copy with float columns rounded, for plotting.
+
+    Parameters
+    ----------
+    frame : DataFrame
+    digits : int
+        Decimals kept.
+
+    Returns
+    -------
+    DataFrame
+
+    Notes
+    -----
+    A figure travels to the browser as JSON; thousands of windows in full precision
+    make it far larger for digits nobody reads (the hover shows three).
+    """
+    out = frame.copy()
+    floats = out.select_dtypes("float").columns
+    out[floats] = out[floats].round(digits)
+    return out
+
+
+def blank_figure(text: str = "", height: int = 200) -> go.Figure:
+    """An empty figure with hidden axes (and ``text`` in its middle), shown before a choice."""
+    notes = ([{"text": text, "showarrow": False, "xref": "paper", "yref": "paper",
+               "x": 0.5, "y": 0.5}] if text else [])
+    return go.Figure(layout=figure_layout(height=height, xaxis={"visible": False},
+                                          yaxis={"visible": False}, annotations=notes))

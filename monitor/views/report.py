@@ -15,21 +15,19 @@ import pandas as pd
 
 from monitor.common.palette import FONT, GROUND, INK, MUTED, PANEL, RULE, VERMILION
 from monitor.common.wording import CAUTION
-from monitor.views.common import settings_words
+from monitor.settings import settings_words
 from monitor.views.drilldown import (
     PairStudy,
     WindowResult,
     candidate_table,
-    crash_table,
-    summary_table,
-)
-from monitor.views.drilldown import tail_table as tail_dependence_table
-from monitor.views.drilldown_figures import (
     crash_figure,
+    crash_table,
     provenance_line,
     scatter_figure,
+    summary_table,
     tail_figure,
 )
+from monitor.views.drilldown import tail_table as tail_dependence_table
 
 _STYLE = f"""
 body {{ font-family: {FONT}; color: {INK}; background: {GROUND}; margin: 0; padding: 18px 28px; }}

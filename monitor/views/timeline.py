@@ -25,11 +25,9 @@ from urllib.parse import urlencode
 import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
-from numpy.typing import ArrayLike, NDArray
+from numpy.typing import ArrayLike
 from plotly.subplots import make_subplots
-from scipy import stats
 
-from monitor.common.arrays import read_only
 from monitor.common.errors import InputError
 from monitor.common.palette import (
     FAMILY_COLOURS,
@@ -42,139 +40,24 @@ from monitor.common.palette import (
     VERMILION,
     figure_layout,
 )
-from monitor.stats.empirical import tail_share_interval
 from monitor.stats.signals import STATES, TAILS, states_on
-from monitor.views.common import StoreView
+from monitor.views.common import StoreView, binomial_band, rounded_for_plot, tau_band
 
 __all__ = [
     "EPISODE_COLOURS",
     "PairHistory",
-    "binomial_band",
     "episode_spans",
     "episodes_table",
     "family_runs",
     "pair_history",
-    "parse_pair",
-    "provenance_note",
-    "rounded_for_plot",
     "study_link",
     "tau_axis_range",
-    "tau_band",
     "timeline_figure",
     "translucent",
 ]
 
 #: Shading of alert episodes on the timeline, per tail.
 EPISODE_COLOURS = {"lower": VERMILION, "upper": PURPLE}
-#: Coverage of every band on the timeline and the board.
-LEVEL = 0.95
-
-
-def _normal_quantile(level: float) -> float:
-    if not 0 < level < 1:
-        raise ValueError(f"level must lie in (0, 1), got {level!r}")
-    return float(stats.norm.ppf(0.5 + level / 2))
-
-
-def tau_band(tau: ArrayLike, se: ArrayLike, level: float = LEVEL
-             ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    """Pointwise normal interval of Kendall's tau.
-
-    Parameters
-    ----------
-    tau, se : array_like
-        Sample Kendall's tau of each window and its standard error.
-    level : float
-        Coverage, in (0, 1).
-
-    Returns
-    -------
-    (ndarray, ndarray)
-        Lower and upper ends, ``tau -+ z * se`` clipped to [-1, 1] (read-only).
-
-    Notes
-    -----
-    ``z`` is the standard normal ``(1 + level) / 2`` quantile; the s.e. is the
-    influence-function one of the U-statistic (Hoeffding 1948, *Ann. Math. Statist.* 19).
-    """
-    t, s = np.asarray(tau, dtype=float), np.asarray(se, dtype=float)
-    z = _normal_quantile(level)
-    return read_only(np.clip(t - z * s, -1, 1)), read_only(np.clip(t + z * s, -1, 1))
-
-
-def binomial_band(tail: ArrayLike, n: ArrayLike, q: float, level: float = LEVEL
-                  ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    """Wilson score interval of a finite-level tail concordance ``lambda = p / q``.
-
-    Parameters
-    ----------
-    tail : array_like
-        Nonparametric tail concordance of each window, ``C_n(q, q)/q`` or its upper analogue.
-    n : array_like
-        Observations in each window.
-    q : float
-        The tail level, in (0, 1).
-    level : float
-        Coverage, in (0, 1).
-
-    Returns
-    -------
-    (ndarray, ndarray)
-        Lower and upper ends for ``lambda``, in [0, 1] (read-only).
-
-    Notes
-    -----
-    With ``p = lambda * q`` the share of window days on which both fall in the tail,
-    ``z`` the normal quantile and ``m = n``:
-
-    .. math:: \\frac{p + z^2 / 2m \\pm z \\sqrt{p(1-p)/m + z^2 / 4m^2}}{1 + z^2/m}
-
-    (Wilson 1927, "Probable inference, the law of succession, and statistical inference",
-    *J. Amer. Statist. Assoc.* 22, 209-212), kept inside [0, q] because ``C(q, q) <= q``
-    (:func:`monitor.stats.empirical.tail_share_interval`), divided by ``q``.
-    """
-    if not 0 < q < 1:
-        raise ValueError(f"q must lie in (0, 1), got {q!r}")
-    lo, hi = tail_share_interval(np.asarray(tail, dtype=float) * q, n, q, level)
-    return read_only(lo / q), read_only(hi / q)
-
-
-def parse_pair(text: str | None, pairs: list[tuple[str, str]]) -> tuple[str, str]:
-    """The stored pair a user's text names.
-
-    Parameters
-    ----------
-    text : str or None
-        ``A/B``, in either order, spaces around the names ignored.
-    pairs : list of (str, str)
-        The stored pairs.
-
-    Returns
-    -------
-    (str, str)
-        The pair in stored order.
-
-    Raises
-    ------
-    InputError
-        When ``text`` is empty, not of the form ``A/B`` or names no stored pair.
-    """
-    text = (text or "").strip()
-    if not text:
-        raise InputError("pair: none chosen (write it as A/B)")
-    known = set(pairs)
-    cuts = [i for i, ch in enumerate(text) if ch == "/"]
-    if not cuts:
-        raise InputError(f"pair {text!r}: write it as A/B")
-    for i in cuts:
-        a, b = text[:i].strip(), text[i + 1:].strip()
-        if (a, b) in known:
-            return a, b
-        if (b, a) in known:
-            return b, a
-    example = f"; e.g. {pairs[0][0]}/{pairs[0][1]}" if pairs else ""
-    raise InputError(f"pair {text!r}: no stored timeline under the current settings "
-                     f"({len(pairs)} stored pair(s){example})")
 
 
 def study_link(pair: tuple[str, str], start: pd.Timestamp | str,
@@ -196,25 +79,6 @@ def study_link(pair: tuple[str, str], start: pd.Timestamp | str,
     query = urlencode({"pair": f"{pair[0]}/{pair[1]}", "start": iso[0], "end": iso[1]},
                       safe="/")
     return f"/drilldown?{query}"
-
-
-def provenance_note(view: StoreView) -> str:
-    """What produced the stored timelines.
-
-    Parameters
-    ----------
-    view : StoreView
-
-    Returns
-    -------
-    str
-        Window, step, selection criterion and number of candidate families, tail level and
-        the marginal filter's mode.
-    """
-    r = view.rolling
-    return (f"window {r.window} days, step {r.step}, family chosen by {r.criterion.upper()} "
-            f"among {len(r.families)}, tail level q = {r.tail_q:g}, marginals "
-            f"{view.cfg.marginals.mode} GARCH-type filter")
 
 
 def family_runs(frame: pd.DataFrame) -> pd.DataFrame:
@@ -280,14 +144,14 @@ class PairHistory:
         One row per window end: ``date, start, n, kendall_tau, kendall_tau_se, tau_low,
         tau_high, family, rotation, converged, tail_lower, tail_upper, tail_lower_emp,
         tail_upper_emp, tail_lower_low, tail_lower_high, tail_upper_low, tail_upper_high,
-        gauss_tail_q, state_lower, state_upper`` (bands at :data:`LEVEL`).
+        gauss_tail_q, state_lower, state_upper`` (bands at :data:`monitor.views.common.LEVEL`).
     families : DataFrame
         :func:`family_runs` of the frame.
     episodes : DataFrame
         :func:`episode_spans` of the stored episodes.
     tail_q : float
     provenance : str
-        :func:`provenance_note`.
+        :meth:`monitor.settings.Settings.provenance`.
     """
 
     pair: tuple[str, str]
@@ -336,7 +200,7 @@ def pair_history(view: StoreView, a: str, b: str) -> PairHistory:
     frame = pd.concat([frame, states], axis=1)
     spans = episode_spans(view.store.read_episodes(view.signals_key, (a, b)),
                           frame["date"].iloc[-1])
-    return PairHistory((a, b), frame, family_runs(frame), spans, q, provenance_note(view))
+    return PairHistory((a, b), frame, family_runs(frame), spans, q, view.settings.provenance())
 
 
 def episodes_table(history: PairHistory) -> pd.DataFrame:
@@ -468,30 +332,6 @@ def tau_axis_range(low: ArrayLike, high: ArrayLike, pad: float = 0.1,
     if -least <= hi < 0:
         hi = 0.0
     return max(-1.0, round(lo, 3)), min(1.0, round(hi, 3))
-
-
-def rounded_for_plot(frame: pd.DataFrame, digits: int = 4) -> pd.DataFrame:
-    """A copy with float columns rounded, for plotting.
-
-    Parameters
-    ----------
-    frame : DataFrame
-    digits : int
-        Decimals kept.
-
-    Returns
-    -------
-    DataFrame
-
-    Notes
-    -----
-    A figure travels to the browser as JSON; thousands of windows in full precision
-    make it far larger for digits nobody reads (the hover shows three).
-    """
-    out = frame.copy()
-    floats = out.select_dtypes("float").columns
-    out[floats] = out[floats].round(digits)
-    return out
 
 
 def timeline_figure(history: PairHistory) -> go.Figure:

@@ -26,7 +26,7 @@ import pandas as pd
 
 from callbacks.serve import prepare_demo
 from monitor.data.store import Store
-from monitor.engine.pipeline import rolling_key, rolling_settings
+from monitor.settings import rolling_key, rolling_settings
 from monitor.stats.signals import EARLIER_DEFAULTS, SignalSettings, pair_signals
 from synthetic_feeds import TRUTH_FILE
 from synthetic_feeds.scoring import score_episodes

@@ -33,12 +33,11 @@ from monitor.config import ComputeConfig, Config, StoreConfig
 from monitor.data.ingest import ingest_sources, read_file_source
 from monitor.data.store import Store
 from monitor.engine.pipeline import (
-    marginal_settings,
-    rolling_settings,
     update_marginals,
     update_rolling,
     update_signals,
 )
+from monitor.settings import marginal_settings, rolling_settings
 from monitor.stats.copulas import FAMILY_NAMES
 from monitor.stats.empirical import pseudo_observations
 from monitor.stats.fitting import candidate_slots

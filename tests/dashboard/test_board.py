@@ -25,7 +25,8 @@ from layouts import ids
 from monitor.common.errors import InputError
 from monitor.common.palette import DIVERGING, SEQUENTIAL
 from monitor.data.store import Store, metrics, pair_state
-from monitor.engine.pipeline import signals_key, update_signals
+from monitor.engine.pipeline import update_signals
+from monitor.settings import signals_key
 from monitor.stats.signals import pair_signals, state_runs, universe_key, universe_summary
 from monitor.views.board import (
     CHANGE_COLUMNS,
@@ -214,7 +215,7 @@ def test_latest_board_and_bad_dates(view):
     assert data.as_of == universe.index[-1] == data.last_date
     # Each pair's latest window end (pairs keep their own calendars).
     assert data.pairs["date"].max() == data.as_of
-    with pytest.raises(InputError, match=r"board date: '2021-13-40' is not a date"):
+    with pytest.raises(InputError, match=r"board date: cannot read date '2021-13-40' \(expected YYYY-MM-DD\)"):
         board_data(view, "2021-13-40")
     with pytest.raises(InputError, match=r"board date: 1999-01-04 is outside the stored"):
         board_data(view, "1999-01-04")
@@ -346,7 +347,7 @@ def test_layout_reads_the_date_and_tail_source_from_the_address(view):
     assert find(tree, ids.BOARD_TAIL_SOURCE).value == "model"
     assert find(tree, ids.BOARD_HORIZON).value == "1y"
     bad = board_page.layout(view, {"date": "yesterday", "tails": "best", "horizon": "2d"})
-    assert "date in the address: 'yesterday' is not a date (YYYY-MM-DD)" in text(bad)
+    assert "date in the address: cannot read date 'yesterday' (expected YYYY-MM-DD)" in text(bad)
     assert ("tails in the address: 'best' is not one of nonparametric, averaged, model"
             in text(bad))
     assert "horizon in the address: '2d' is not one of 1w, 1m, 3m, 1y" in text(bad)

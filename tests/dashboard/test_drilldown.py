@@ -29,13 +29,13 @@ from monitor.stats.inference import (
     fit_uncertainty,
     goodness_of_fit,
 )
+from monitor.views.common import parse_pair
 from monitor.views.drilldown import (
     PairStudy,
     choose_reference,
     frechet_hoeffding_bounds,
     gaussian_rho_from_tau,
     joint_crash_probabilities,
-    parse_pair,
     study_pair,
     tail_concordance,
     tail_excess,

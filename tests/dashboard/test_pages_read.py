@@ -19,7 +19,7 @@ from layouts import board, drilldown, episodes, ids, inputs, timeline
 from layouts.components import FILTER_MIN_ROWS, filter_action, table
 from layouts.drilldown import results
 from monitor.data.store import metrics
-from monitor.views.common import SETTINGS_KEY_PATTERN, settings_words
+from monitor.settings import SETTINGS_KEY_PATTERN, settings_words
 from monitor.views.drilldown import study_pair
 from monitor.views.report import report_html
 

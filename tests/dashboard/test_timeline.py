@@ -28,15 +28,13 @@ from layouts import timeline as page
 from monitor.common.errors import InputError
 from monitor.common.palette import FAMILY_COLOURS, ROTATION_SHADES, SERIES_COLOURS, STATE_COLOURS
 from monitor.stats.signals import pair_signals
+from monitor.views.common import binomial_band, parse_pair, tau_band
 from monitor.views.timeline import (
     EPISODE_COLOURS,
-    binomial_band,
     family_runs,
     pair_history,
-    parse_pair,
     study_link,
     tau_axis_range,
-    tau_band,
     timeline_figure,
 )
 
