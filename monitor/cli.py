@@ -73,12 +73,22 @@ def build_parser() -> argparse.ArgumentParser:
     )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     sub.required = True
+    for add in (_add_demo, _add_synth, _add_ingest, _add_update, _add_fit, _add_export,
+                _add_alerts, _add_serve):
+        add(sub)
+    return parser
 
+
+def _add_demo(sub) -> None:
+    """``comove demo``: the synthetic market end to end, then the dashboard."""
     p = sub.add_parser("demo", help="synthetic scenario -> store -> update -> dashboard")
     _common(p)
     p.add_argument("--port", type=int, default=8050, help="dashboard port (default 8050)")
     p.add_argument("--no-browser", action="store_true", help="do not open a web browser")
 
+
+def _add_synth(sub) -> None:
+    """``comove synth``: write a synthetic scenario."""
     p = sub.add_parser("synth", help="write a synthetic scenario (prices.csv, truth.json)")
     _common(p)
     p.add_argument("scenario", help="scenario name: marrowmere-decade (the demo market), "
@@ -86,6 +96,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", required=True, metavar="DIR", help="output directory")
     p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
 
+
+def _add_ingest(sub) -> None:
+    """``comove ingest``: validate and store price or return tables."""
     p = sub.add_parser(
         "ingest", help="validate and store price or return files",
         description="Validate price or return tables and store them. A bad file is refused "
@@ -106,9 +119,15 @@ def build_parser() -> argparse.ArgumentParser:
     grp.add_argument("--query", help="with --sql: a SELECT statement")
     _reading(p)
 
+
+def _add_update(sub) -> None:
+    """``comove update``: the daily job."""
     p = sub.add_parser("update", help="marginals, rolling metrics, signals, alert queue")
     _common(p)
 
+
+def _add_fit(sub) -> None:
+    """``comove fit``: the one-window study of a pair."""
     p = sub.add_parser(
         "fit", help="one-window study of a pair: every candidate family",
         description="Fit every candidate copula family to one window of a pair by maximum "
@@ -138,6 +157,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--json", action="store_true", help="print one JSON object")
     _reading(p)
 
+
+def _add_export(sub) -> None:
+    """``comove export timeline|returns``: stored data as CSV."""
     p = sub.add_parser("export", help="export stored data as CSV")
     _common(p)
     esub = p.add_subparsers(dest="what", metavar="WHAT", parser_class=_Parser)
@@ -151,6 +173,9 @@ def build_parser() -> argparse.ArgumentParser:
     q.add_argument("--assets", nargs="+", metavar="A", help="columns to export (default all)")
     q.add_argument("--out", metavar="FILE", help="output file (default stdout)")
 
+
+def _add_alerts(sub) -> None:
+    """``comove alerts send``: deliver the queued e-mails."""
     p = sub.add_parser("alerts", help="alert e-mail")
     _common(p)
     asub = p.add_subparsers(dest="action", metavar="ACTION", parser_class=_Parser)
@@ -159,11 +184,13 @@ def build_parser() -> argparse.ArgumentParser:
     _common(q)
     q.add_argument("--dry-run", action="store_true", help="print what would be sent")
 
+
+def _add_serve(sub) -> None:
+    """``comove serve``: the dashboard."""
     p = sub.add_parser("serve", help="the dashboard")
     _common(p)
     p.add_argument("--host", default="127.0.0.1", help="bind address (default 127.0.0.1)")
     p.add_argument("--port", type=int, default=8050, help="port (default 8050)")
-    return parser
 
 
 # ----------------------------------------------------------------------------- commands

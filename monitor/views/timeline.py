@@ -366,21 +366,35 @@ def timeline_figure(history: PairHistory) -> go.Figure:
     """
     f = rounded_for_plot(history.frame)
     x = f["date"].dt.strftime("%Y-%m-%d").to_numpy()
-    a, b = history.pair
     fig = make_subplots(rows=4, cols=1, shared_xaxes=True, vertical_spacing=0.035,
                         row_heights=[0.29, 0.29, 0.29, 0.13], subplot_titles=(
                             "Kendall's tau (95% band)",
                             f"Lower tail at q = {history.tail_q:g}",
                             f"Upper tail at q = {history.tail_q:g}",
                             "Selected family, its rotation, and the tail states"))
+    _tau_row(fig, f, x)
+    _tail_rows(fig, f, x)
+    _strip_row(fig, f, x)
+    _episode_shading(fig, history.episodes)
+    _finish(fig, f, history.pair)
+    return fig
+
+
+def _tau_row(fig: go.Figure, f: pd.DataFrame, x: np.ndarray) -> None:
+    """Row 1: Kendall's tau and its band."""
     tau_colour = SERIES_COLOURS["tau"]
-    emp_colour, model_colour = SERIES_COLOURS["tail_empirical"], SERIES_COLOURS["tail_model"]
     _band(fig, x, f["tau_low"], f["tau_high"], tau_colour, "tau 95% band", 1, "tau")
     fig.add_trace(go.Scatter(x=x, y=f["kendall_tau"], mode="lines", name="Kendall's tau",
                              line={"color": tau_colour, "width": 1.5}, legendgroup="tau",
                              customdata=np.c_[f["tau_low"], f["tau_high"]],
                              hovertemplate="tau %{y:.3f} (95%: %{customdata[0]:.3f} to "
                                            "%{customdata[1]:.3f})<extra></extra>"), row=1, col=1)
+
+
+def _tail_rows(fig: go.Figure, f: pd.DataFrame, x: np.ndarray) -> None:
+    """Rows 2 and 3: per tail the Wilson band, the nonparametric, model-averaged, selected
+    family's and Gaussian same-tau lines (the legend entries once, from the lower tail)."""
+    emp_colour, model_colour = SERIES_COLOURS["tail_empirical"], SERIES_COLOURS["tail_model"]
     for row, tail in ((2, "lower"), (3, "upper")):
         first = tail == "lower"
         _band(fig, x, f[f"tail_{tail}_low"], f[f"tail_{tail}_high"], emp_colour,
@@ -413,6 +427,11 @@ def timeline_figure(history: PairHistory) -> go.Figure:
             legendgroup="gauss",
             showlegend=first, hovertemplate="Gaussian same-tau %{y:.3f}<extra></extra>"),
             row=row, col=1)
+
+
+def _strip_row(fig: go.Figure, f: pd.DataFrame, x: np.ndarray) -> None:
+    """Row 4: the family/rotation/state strip, and legend-only keys for its colours and for
+    the episode shading."""
     z, labels, scale, text = _strip(f)
     fig.add_trace(go.Heatmap(x=x, y=list(STRIP_ROWS), z=z, text=text,
                              colorscale=scale, zmin=-0.5, zmax=len(labels) - 0.5,
@@ -449,11 +468,20 @@ def timeline_figure(history: PairHistory) -> go.Figure:
                                  marker={"symbol": "square", "size": 11,
                                          "color": translucent(EPISODE_COLOURS[tail], 0.35)}),
                       row=1, col=1)
-    for e in history.episodes.itertuples(index=False):
+
+
+def _episode_shading(fig: go.Figure, episodes: pd.DataFrame) -> None:
+    """One shaded rectangle per episode on the tau row and its tail's row."""
+    for e in episodes.itertuples(index=False):
         rows = (1, 2) if e.tail == "lower" else (1, 3)
         for row in rows:
             fig.add_vrect(x0=e.start, x1=e.end, row=row, col=1, layer="below", line_width=0,
                           fillcolor=translucent(EPISODE_COLOURS[e.tail], 0.14))
+
+
+def _finish(fig: go.Figure, f: pd.DataFrame, pair: tuple[str, str]) -> None:
+    """Fixed y axes (a drag selects dates), the tau axis fitted to its band, the layout."""
+    a, b = pair
     fig.update_yaxes(fixedrange=True)
     fig.update_yaxes(range=list(tau_axis_range(f["tau_low"], f["tau_high"])), row=1, col=1,
                      zeroline=True, zerolinecolor=RULE)
@@ -466,4 +494,3 @@ def timeline_figure(history: PairHistory) -> go.Figure:
                 "font": {"size": 11}, "groupclick": "toggleitem"},
         margin={"l": 56, "r": 16, "t": 48, "b": 120},
         title={"text": f"{a} / {b}", "x": 0.01, "font": {"size": 14}}))
-    return fig
