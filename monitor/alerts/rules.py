@@ -35,6 +35,7 @@ import pandas as pd
 from monitor.common.wording import CAUTION
 from monitor.config import AlertRule, AlertsConfig, Config
 from monitor.data.store import Connection, Store, Table
+from monitor.settings import Settings
 
 #: Rule in force when the configuration names none.
 DEFAULT_RULES = (AlertRule(name="episodes", kind="episode"),)
@@ -247,17 +248,15 @@ def compose_pair(cfg: Config, a: str, b: str, tail: str | None, frame: pd.DataFr
     """(subject, plain text, HTML) of a pair's message about window end ``pos``."""
     row = frame.iloc[pos]
     date = pd.Timestamp(row["date"]).date()
-    r = cfg.rolling
     family = f"{row['family']} (rotation {int(row['rotation'])})"
     subject = f"comove: {a}/{b} {headline} ({date:%Y-%m-%d})"
     then = pd.Timestamp(frame["date"].iloc[max(pos - CHANGE_DAYS, 0)]).date()
     table = change_table(frame, pos)
     se = _num(float(row[f"tail_{tail or 'lower'}_emp_se"]))
     provenance = (f"Window of {int(row['n'])} trading days ending {date:%Y-%m-%d} "
-                  f"(from {pd.Timestamp(row['start']).date():%Y-%m-%d}); selected family by "
-                  f"{r.criterion.upper()}: {family}; nonparametric tails C_n(q,q)/q at q = "
-                  f"{r.tail_q:g} (binomial s.e. of the {tail or 'lower'} tail {se}); "
-                  f"marginals: GARCH-type filter, {cfg.marginals.mode} mode.")
+                  f"(from {pd.Timestamp(row['start']).date():%Y-%m-%d}); selected family: "
+                  f"{family}; nonparametric tails C_n(q,q)/q (binomial s.e. of the "
+                  f"{tail or 'lower'} tail {se}); settings: {Settings.of(cfg).provenance()}.")
     lines = [f"{a}/{b}: {headline}.", "",
              f"{'measure':34s} {'now':>8s} {then:%Y-%m-%d} {'change':>8s}"]
     lines += [f"{m:34s} {now:>8s} {before:>10s} {ch:>8s}" for m, now, before, ch in table]
