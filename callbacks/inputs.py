@@ -39,7 +39,7 @@ def show_diagnostics(view, asset: str | None, lags):
     note = (f"{asset}: {len(diag.residuals)} filtered days; "
             f"{settings_words(diag.settings_key)}; latest refit {fit.spec.label} on data to "
             f"{fit.sample_end} ({params}; percent scale)"
-            + (f", EWMA fallback: {'; '.join(fit.problems)}" if fit.fallback else "") + ".")
+            + (f", EWMA-t fallback: {'; '.join(fit.problems)}" if fit.fallback else "") + ".")
     return (residuals_figure(diag), acf_figure(diag), qq_figure(diag), data, columns, note)
 
 

@@ -49,7 +49,8 @@ def show_pair(view, pair_text: str | None) -> tuple:
             f"{last['kendall_tau']:.3f}, selected {last['family']} {int(last['rotation'])}°, "
             f"state (lower/upper tail) {state}; {len(history.episodes)} alert episode(s). "
             f"{int((~f['converged'].astype(bool)).sum())} window(s) whose selected fit did not "
-            "converge are shown as estimated.")
+            "converge are shown as estimated." + (f" {history.fallback_note()}"
+                                                   if history.fallback_note() else ""))
     data, columns = records(episodes_table(history))
     first, end = (d.strftime("%Y-%m-%d") for d in (f["date"].iloc[0], f["date"].iloc[-1]))
     return (timeline_figure(history), note, data, columns, "", first, end,

@@ -41,7 +41,7 @@ COVERAGE_LABELS = MappingProxyType({
 })
 MARGINAL_LABELS = MappingProxyType({
     "fit_end": "latest refit (sample end)", "specs_used": "specs used (refits)",
-    "fallback_now": "EWMA fallback now", "fallback_fits": "fallback refits",
+    "fallback_now": "EWMA-t fallback now", "fallback_fits": "fallback refits",
     "lb_lags": "LB lags", "lb_pvalue": "LB p (z)", "lb_squared_pvalue": "LB p (z^2)",
     "first_residual": "first residual", "last_residual": "last residual",
 })
@@ -105,7 +105,7 @@ def layout(view, query: dict[str, str]) -> html.Div:
                    "conditional volatility; autocorrelations of the squared residuals with "
                    "the 95% band +-1.96/sqrt(n) of an independent series; and a QQ plot of "
                    "the normal scores of F_t(z_t), F_t the innovation distribution (Student-t, "
-                   "skew-t or, on fallback days, normal) of the refit that filtered day t, "
+                   "skew-t, or the EWMA-t fallback's Student-t) of the refit that filtered day t, "
                    "against N(0,1)."),
     ])
 

@@ -236,7 +236,7 @@ def render_study(study) -> str:
     elif info.get("mode", "none") == "none":
         how = "rank pseudo-observations of raw returns, no marginal filter"
     else:
-        models = ", ".join(f"{c}: {m['spec']}" + (" (EWMA fallback)" if m["fallback"] else "")
+        models = ", ".join(f"{c}: {m['spec']}" + (" (EWMA-t fallback)" if m["fallback"] else "")
                            for c, m in info["models"].items())
         how = (f"rank pseudo-observations of {info['mode']} GARCH-filtered residuals; "
                f"models at the window end {models}")

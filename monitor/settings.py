@@ -39,7 +39,7 @@ class Settings:
     Examples
     --------
     >>> Settings.of(Config()).rolling_key
-    'real-time/refit21/min250/reselect12/all8/v1|w250/s1/aic/q0.1/all/v1'
+    'real-time/refit21/min250/reselect12/all8/v2|w250/s1/aic/q0.1/all/v1'
     """
 
     marginal: MarginalSettings
@@ -202,7 +202,7 @@ def settings_words(key: str, *, short: bool = False) -> str:
 
     Examples
     --------
-    >>> settings_words("real-time/refit21/min250/reselect12/all8/v1|w120/s1/aic/q0.1/all/v1",
+    >>> settings_words("real-time/refit21/min250/reselect12/all8/v2|w120/s1/aic/q0.1/all/v1",
     ...                short=True)
     'real-time marginals; window 120 days, step 1, all families, AIC'
     """

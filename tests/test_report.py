@@ -40,7 +40,7 @@ def study() -> PairStudy:
         out.append(window_result(w, inside, role))
     return PairStudy(pair=(a, b), study=out[0], reference=out[1],
                      reference_rule="the range chosen by the user", marginal_mode="in-sample",
-                     marginal_key="in-sample/min250/all8/v1", criterion="aic", families=("all",),
+                     marginal_key="in-sample/min250/all8/v2", criterion="aic", families=("all",),
                      replicates=20, seed=0, seconds=1.0, notes=("invented data",))
 
 

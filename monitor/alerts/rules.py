@@ -98,7 +98,8 @@ def _up_crossings(flag: np.ndarray) -> np.ndarray:
 
 def pair_events(cfg: Config, settings_key: str, a: str, b: str, frame: pd.DataFrame,
                 new_episodes: list[dict], ended_episodes: list[dict],
-                all_episodes: list[dict]) -> list[AlertEvent]:
+                all_episodes: list[dict], fallbacks: pd.DataFrame | None = None
+                ) -> list[AlertEvent]:
     """The events of one pair after an update.
 
     Parameters
@@ -114,6 +115,9 @@ def pair_events(cfg: Config, settings_key: str, a: str, b: str, frame: pd.DataFr
         What :meth:`monitor.data.store.Store.sync_episodes` returned.
     all_episodes : list of dict
         Every current episode of the pair (for the cool-down of repeated episodes).
+    fallbacks : DataFrame, optional
+        :meth:`monitor.data.store.Store.fallback_spans` of the pair's assets: a message about a
+        window holding such residuals says so.
 
     Returns
     -------
@@ -133,7 +137,7 @@ def pair_events(cfg: Config, settings_key: str, a: str, b: str, frame: pd.DataFr
     def add(rule_label, kind, tail, pos, headline):
         date = dates.iloc[pos].date()
         mid = message_id(settings_key, rule_label, kind, a, b, tail, date)
-        subject, text, body = compose_pair(cfg, a, b, tail, frame, pos, headline)
+        subject, text, body = compose_pair(cfg, a, b, tail, frame, pos, headline, fallbacks)
         events.append(AlertEvent(mid, rule_label, kind, (a, b), tail, date, subject, text,
                                  body))
 
@@ -244,8 +248,10 @@ def change_table(frame: pd.DataFrame, pos: int, days: int = CHANGE_DAYS
 
 
 def compose_pair(cfg: Config, a: str, b: str, tail: str | None, frame: pd.DataFrame,
-                 pos: int, headline: str) -> tuple[str, str, str]:
-    """(subject, plain text, HTML) of a pair's message about window end ``pos``."""
+                 pos: int, headline: str, fallbacks: pd.DataFrame | None = None
+                 ) -> tuple[str, str, str]:
+    """(subject, plain text, HTML) of a pair's message about window end ``pos``; the window's
+    residuals from a fallback marginal fit (``fallbacks``, per asset) are named in it."""
     row = frame.iloc[pos]
     date = pd.Timestamp(row["date"]).date()
     family = f"{row['family']} (rotation {int(row['rotation'])})"
@@ -257,6 +263,7 @@ def compose_pair(cfg: Config, a: str, b: str, tail: str | None, frame: pd.DataFr
                   f"(from {pd.Timestamp(row['start']).date():%Y-%m-%d}); selected family: "
                   f"{family}; nonparametric tails C_n(q,q)/q (binomial s.e. of the "
                   f"{tail or 'lower'} tail {se}); settings: {Settings.of(cfg).provenance()}.")
+    provenance += _fallback_words(fallbacks, pd.Timestamp(row["start"]), pd.Timestamp(row["date"]))
     lines = [f"{a}/{b}: {headline}.", "",
              f"{'measure':34s} {'now':>8s} {then:%Y-%m-%d} {'change':>8s}"]
     lines += [f"{m:34s} {now:>8s} {before:>10s} {ch:>8s}" for m, now, before, ch in table]
@@ -266,6 +273,20 @@ def compose_pair(cfg: Config, a: str, b: str, tail: str | None, frame: pd.DataFr
     body = _change_html(table, then)
     page = _html_page(subject, cells, f"{body}<p>{html.escape(provenance)}</p>")
     return subject, "\n".join(lines), page
+
+
+def _fallback_words(fallbacks: pd.DataFrame | None, start: pd.Timestamp, end: pd.Timestamp
+                    ) -> str:
+    """" Caution: ..." naming the assets whose residuals in [start, end] came from a fallback
+    marginal fit ("" when none did)."""
+    if fallbacks is None or fallbacks.empty:
+        return ""
+    hit = fallbacks[(fallbacks["first"] <= end) & (fallbacks["last"] >= start)]
+    if hit.empty:
+        return ""
+    assets = ", ".join(sorted(set(hit["asset"])))
+    return (f" Caution: part of this window's residuals of {assets} come from the EWMA-t "
+            "fallback (GARCH refused); the tail figures rest on a simpler volatility model.")
 
 
 def _change_html(table, then: dt.date) -> str:

@@ -152,6 +152,42 @@ class ResidualStore(StoreBase):
         wide.columns.name = None
         return wide
 
+    def fallback_spans(self, settings_key: str, assets: Iterable[str] | None = None
+                       ) -> pd.DataFrame:
+        """The stored residuals filtered by a fallback fit, one row per fit.
+
+        Parameters
+        ----------
+        settings_key : str
+            A marginal settings key.
+        assets : iterable of str, optional
+            Only these assets (default all).
+
+        Returns
+        -------
+        DataFrame
+            ``asset, fallback, first, last, days``: per fallback fit (``fallback`` names it,
+            e.g. ``"ewma-0.94-t"``) the first and last date of the residuals it filtered
+            (Timestamps) and their number; sorted by asset and date, empty when no fallback
+            filtered anything.
+        """
+        r, f = residuals, marginal_fits
+        stmt = (sa.select(r.c.asset, f.c.fallback, raw_date(sa.func.min(r.c.date)),
+                          raw_date(sa.func.max(r.c.date)), sa.func.count())
+                .join(f, sa.and_(f.c.settings == r.c.settings, f.c.asset == r.c.asset,
+                                 f.c.seq == r.c.fit_seq))
+                .where(r.c.settings == settings_key, f.c.fallback != "")
+                .group_by(r.c.asset, f.c.seq, f.c.fallback))
+        if assets is not None:
+            stmt = stmt.where(r.c.asset.in_(list(assets)))
+        with self.engine.connect() as conn:
+            rows = conn.execute(stmt).all()
+        frame = row_frame(rows, ["asset", "fallback", "first", "last", "days"])
+        for c in ("first", "last"):
+            frame[c] = pd.to_datetime(frame[c])
+        frame["days"] = frame["days"].astype(int)
+        return frame.sort_values(["asset", "first"], ignore_index=True)
+
     def marginal_overview(self, settings_key: str) -> StoredMarginals:
         """Per asset, the stored fits, specs and residuals under a marginal settings key.
 

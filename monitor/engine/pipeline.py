@@ -94,7 +94,7 @@ class MarginalSummary:
         if self.recomputed:
             out.append(f"  recomputed from the start: {', '.join(self.recomputed)}")
         if self.fallbacks:
-            out.append("  fits on the EWMA fallback (GARCH refused; see the data page): "
+            out.append("  fits on the EWMA-t fallback (GARCH refused; see the Inputs page): "
                        + ", ".join(f"{a} {n}" for a, n in sorted(self.fallbacks.items())))
         for asset, why in sorted(self.skipped.items()):
             out.append(f"  skipped {asset}: {why}")
@@ -551,6 +551,7 @@ def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | Non
             for a, b in todo]
     in_alert: list[tuple[str, str, str]] = []
     counts = (0, 0, 0)  # new episodes, ended episodes, queued messages
+    fallbacks = store.fallback_spans(marginal_settings(cfg).key)
     with (StepProgress("signals", len(jobs), "pair", enabled=progress) as bar,
           _pool_results(_signals_task, jobs, _workers(cfg), store_url=store.url, chunksize=8,
                         local=lambda job: _pair_signals_job(store, job)) as results):
@@ -563,10 +564,10 @@ def update_signals(store: Store, cfg: Config, pairs: list[tuple[str, str]] | Non
                 in_alert.append((out.a, out.b, " and ".join(out.alert_tails)))
             chunk.append(out)
             if len(chunk) == SIGNAL_CHUNK:
-                counts = _add(counts, _store_signals(store, cfg, r_key, key, chunk))
+                counts = _add(counts, _store_signals(store, cfg, r_key, key, chunk, fallbacks))
                 chunk = []
         if chunk:
-            counts = _add(counts, _store_signals(store, cfg, r_key, key, chunk))
+            counts = _add(counts, _store_signals(store, cfg, r_key, key, chunk, fallbacks))
     new_n, ended_n, queued = counts
     u_key = universe_key(key)
     stored = store.universe_range(u_key)
@@ -588,9 +589,11 @@ def _add(a: tuple[int, ...], b: tuple[int, ...]) -> tuple[int, ...]:
 
 
 def _store_signals(store: Store, cfg: Config, r_key: str, key: str,
-                   chunk: list[_PairSignalsOut]) -> tuple[int, int, int]:
+                   chunk: list[_PairSignalsOut], fallbacks: pd.DataFrame
+                   ) -> tuple[int, int, int]:
     """Store a chunk of pairs' episodes, state runs, alert events and resume points in one
-    transaction; returns (new episodes, ended episodes, queued messages)."""
+    transaction; returns (new episodes, ended episodes, queued messages). ``fallbacks``
+    (:meth:`~monitor.data.store.Store.fallback_spans`) lets a message name fallback days."""
     new_n = ended_n = queued = 0
     with store.transaction() as conn:
         for o in chunk:
@@ -598,8 +601,9 @@ def _store_signals(store: Store, cfg: Config, r_key: str, key: str,
                                                     since=o.since)
             store.sync_state_runs(conn, key, o.a, o.b, o.runs, since=o.since)
             # The alert queue changes with the state it reports, in the same transaction.
+            pair_fallbacks = fallbacks[fallbacks["asset"].isin((o.a, o.b))]
             queued += alerts.queue(conn, outbox, key, alerts.pair_events(
-                cfg, key, o.a, o.b, o.frame, new, ended, every))
+                cfg, key, o.a, o.b, o.frame, new, ended, every, pair_fallbacks))
             if o.resume_changed:
                 store.save_resume(conn, key, r_key, o.a, o.b, o.through, o.resume)
             new_n += len(new)

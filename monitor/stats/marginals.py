@@ -34,10 +34,17 @@ Numerics: returns are scaled to percent (``SCALE = 100``) before fitting, so par
 ``mu`` and ``omega`` are in percent units; residuals are scale-free and ``sigma`` is reported
 in the units of the input returns. A candidate is accepted when arch reports convergence
 (flag 0), its estimates and residuals are finite, its persistence is below ``1 - 1e-5`` (not
-on arch's stationarity boundary) and its implied unconditional variance is within a factor 10
-of the sample variance. Fallback: when no candidate is accepted, the refit uses an EWMA
-variance with decay 0.94 (RiskMetrics) and a constant mean equal to the sample mean; the fit
-records ``fallback="ewma-0.94"``, ``converged=False`` and every problem met.
+on arch's stationarity boundary: integrated or explosive), its conditional variance stays
+within a factor :data:`VARIANCE_PATH_LIMIT` of the sample variance on every day, and it is not
+a deterministic decay: a fit whose response to shocks ``alpha + gamma / 2`` is below
+:data:`MIN_SHOCK_RESPONSE` while its level ``omega / (1 - beta)`` is more than a factor 10 from
+the sample variance only carries its start-up value towards a level unrelated to the data. A
+near-integrated fit (persistence 0.9996, common on long daily samples) is accepted: its implied
+unconditional variance may be many times the sample variance while its path follows the data. Fallback: when no candidate is accepted, the refit uses an EWMA variance with decay 0.94
+(RiskMetrics), a constant mean equal to the sample mean and standardised Student-t innovations
+whose degrees of freedom are estimated by maximum likelihood given that variance path (the
+tails stay heavy); the fit records ``fallback="ewma-0.94-t"``, ``converged=False`` and every
+problem met.
 
 The variance filter for fixed parameters is our own vectorised recursion
 (:func:`scipy.signal.lfilter`), with the presample variance ``sigma^2_0`` set as arch does: an
@@ -67,7 +74,7 @@ from typing import Any, TypeVar
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
-from scipy import signal, stats
+from scipy import optimize, signal, special, stats
 
 from monitor.common.arrays import read_only
 from monitor.common.errors import InputError
@@ -78,7 +85,9 @@ __all__ = [
     "EWMA_DECAY",
     "FALLBACK_SPEC",
     "LJUNG_BOX_LAGS",
+    "MIN_SHOCK_RESPONSE",
     "SCALE",
+    "VARIANCE_PATH_LIMIT",
     "CandidateFit",
     "FilteredSeries",
     "LjungBox",
@@ -89,6 +98,7 @@ __all__ = [
     "filter_series",
     "ljung_box",
     "select_marginal",
+    "standardised_t_loglik",
 ]
 
 #: Returns are multiplied by this before fitting (percent returns keep arch's optimiser well
@@ -104,15 +114,23 @@ LJUNG_BOX_LAGS = 10
 
 #: Version of the filtering algorithm, part of every settings key so results computed by a
 #: different algorithm are never mixed with these in the store.
-ALGORITHM_VERSION = "v1"
+ALGORITHM_VERSION = "v2"
 
 # A fit counts as stationary only below this persistence: arch constrains it to <= 1 and
 # SLSQP lands within ~1e-6 of the boundary when the data are integrated or explosive.
 _PERSISTENCE_LIMIT = 1.0 - 1e-5
-# A fit whose unconditional variance omega / (1 - persistence) is further than this factor
-# from the sample variance describes a variance path unrelated to the data (typically omega
-# and alpha at zero, beta near one: a deterministic decay from the start-up value).
-_VARIANCE_RATIO_LIMIT = 10.0
+#: A fit whose conditional variance leaves [var / limit, var * limit] on some day (var: the
+#: sample variance of the fitted returns) is refused as broken: a factor 10^4 in variance is
+#: 100 in volatility, far beyond any calm or crisis day of a daily series.
+VARIANCE_PATH_LIMIT = 1.0e4
+#: Least response of the variance to a shock, ``alpha + gamma / 2``, below which a fit whose
+#: level is far from the sample variance is refused as a deterministic decay (our choice: a
+#: daily GARCH responds with 0.02 to 0.15).
+MIN_SHOCK_RESPONSE = 1.0e-3
+# ... and "far": the level omega / (1 - beta) off the sample variance by more than this factor.
+_DECAY_LEVEL_FACTOR = 10.0
+#: Bounds of the fallback's degrees of freedom (arch's own bounds for its Student-t).
+_NU_BOUNDS = (2.05, 500.0)
 # arch's presample variance: EWMA weights 0.94**j over the first 75 residuals (arch 8.0,
 # arch.univariate.volatility.GARCH.backcast).
 _BACKCAST_DECAY = 0.94
@@ -133,7 +151,8 @@ class MarginalSpec:
 
     ``mean`` is ``"constant"`` (``m_t = mu``) or ``"ar1"`` (``m_t = mu + phi r_{t-1}``);
     ``volatility`` is ``"garch"`` or ``"gjr"`` (``"ewma"`` only for the fallback);
-    ``distribution`` is ``"t"`` or ``"skewt"`` (``"normal"`` only for the fallback).
+    ``distribution`` is ``"t"`` or ``"skewt"`` (the fallback's is ``"t"``; fits stored by
+    algorithm v1 used ``"normal"``).
     """
 
     mean: str
@@ -141,8 +160,8 @@ class MarginalSpec:
     distribution: str
 
     def __post_init__(self) -> None:
-        fallback = (self.mean, self.volatility, self.distribution) == ("constant", "ewma",
-                                                                         "normal")
+        fallback = (self.mean == "constant" and self.volatility == "ewma"
+                    and self.distribution in ("t", "normal"))
         if not fallback and (self.mean not in _MEANS or self.volatility not in _VOLATILITIES
                              or self.distribution not in _DISTRIBUTIONS):
             raise ValueError(
@@ -191,9 +210,9 @@ class MarginalSpec:
 CANDIDATE_SPECS: tuple[MarginalSpec, ...] = tuple(
     MarginalSpec(m, v, d) for m in _MEANS for v in _VOLATILITIES for d in _DISTRIBUTIONS
 )
-#: The stated fallback: constant mean, EWMA(0.94) variance, normal innovations.
-FALLBACK_SPEC = MarginalSpec("constant", "ewma", "normal")
-_FALLBACK_NAME = f"ewma-{EWMA_DECAY}"
+#: The stated fallback: constant mean, EWMA(0.94) variance, Student-t innovations.
+FALLBACK_SPEC = MarginalSpec("constant", "ewma", "t")
+_FALLBACK_NAME = f"ewma-{EWMA_DECAY}-t"
 
 
 @dataclass(frozen=True, slots=True)
@@ -243,7 +262,7 @@ class MarginalSettings:
 
     @property
     def key(self) -> str:
-        """Stable store key, e.g. ``"real-time/refit21/min250/reselect12/all8/v1"``."""
+        """Stable store key, e.g. ``"real-time/refit21/min250/reselect12/all8/v2"``."""
         cands = ("all8" if self.candidates == CANDIDATE_SPECS
                  else "+".join(c.key for c in self.candidates))
         if self.mode == "in-sample":
@@ -723,11 +742,31 @@ def _estimate(spec: MarginalSpec, y: NDArray[np.float64], start: Mapping[str, fl
                    f"(1 - persistence = {1.0 - _persistence(params):.1e}) at the stationarity "
                    "boundary (integrated or explosive variance)")
     else:
-        ratio = params["omega"] / (1.0 - _persistence(params)) / float(np.var(y[1:]))
-        if not 1.0 / _VARIANCE_RATIO_LIMIT <= ratio <= _VARIANCE_RATIO_LIMIT:
-            problem = (f"{spec.key}: implied unconditional variance {ratio:.3g} times the "
-                       "sample variance (a variance path that ignores the data)")
+        problem = _variance_path_problem(spec, params, sigma, y)
     return _Estimate(spec, params, loglik, bic, std_resid, sigma, problem, warm, {}, res)
+
+
+def _variance_path_problem(spec: MarginalSpec, params: Mapping[str, float],
+                           sigma: NDArray[np.float64], y: NDArray[np.float64]) -> str:
+    """Why a fit's conditional variance path is broken ("" when it is not): non-finite, beyond
+    :data:`VARIANCE_PATH_LIMIT` times the sample variance either way on some day, or a
+    deterministic decay (no response to shocks, a level far from the sample variance)."""
+    if not np.isfinite(sigma).all() or (sigma <= 0).any():
+        return f"{spec.key}: non-finite or zero conditional variance"
+    var = float(np.var(y[1:]))
+    ratio = sigma * sigma / var
+    low, high = float(ratio.min()), float(ratio.max())
+    if low < 1.0 / VARIANCE_PATH_LIMIT or high > VARIANCE_PATH_LIMIT:
+        return (f"{spec.key}: conditional variance from {low:.3g} to {high:.3g} times the "
+                "sample variance (a variance path unrelated to the data)")
+    response = params["alpha"] + 0.5 * params.get("gamma", 0.0)
+    level = params["omega"] / max(1.0 - params["beta"], 1e-300) / var
+    if response < MIN_SHOCK_RESPONSE and not (
+            1.0 / _DECAY_LEVEL_FACTOR <= level <= _DECAY_LEVEL_FACTOR):
+        return (f"{spec.key}: no response to shocks (alpha + gamma/2 = {response:.2g}) and a "
+                f"level {level:.3g} times the sample variance (a deterministic decay from the "
+                "start-up variance)")
+    return ""
 
 
 def _with_std_errors(est: _Estimate) -> _Estimate:
@@ -764,15 +803,31 @@ def _start_from(fit: MarginalFit, spec: MarginalSpec) -> dict[str, float]:
     return {k: start[k] for k in spec.param_names}
 
 
+def standardised_t_loglik(z: ArrayLike, nu: float) -> float:
+    """Log-likelihood of residuals ``z`` under the unit-variance Student-t with ``nu`` > 2
+    degrees of freedom (arch's ``StudentsT``; the density of ``T_nu`` scaled by
+    ``sqrt((nu - 2) / nu)``), without the ``-log sigma_t`` terms."""
+    z = np.asarray(z, dtype=float)
+    c = (special.gammaln((nu + 1) / 2) - special.gammaln(nu / 2)
+         - 0.5 * math.log(math.pi * (nu - 2)))
+    return float(z.size * c - (nu + 1) / 2 * np.sum(np.log1p(z * z / (nu - 2))))
+
+
 def _fallback_estimate(y: NDArray[np.float64]) -> _Estimate:
-    """The EWMA(0.94) fallback on ``y``: constant mean at the sample mean, Gaussian loglik."""
+    """The EWMA(0.94) fallback on ``y``: constant mean at the sample mean, standardised
+    Student-t innovations with ``nu`` by maximum likelihood given the EWMA variance path."""
     params = {"mu": float(np.mean(y[1:])), "omega": 0.0, "alpha": 1.0 - EWMA_DECAY,
               "beta": EWMA_DECAY}
     eps, sigma2 = _filter(FALLBACK_SPEC, params, y)
-    loglik = float(-0.5 * np.sum(np.log(2.0 * np.pi * sigma2) + eps * eps / sigma2))
-    bic = float(information_criterion(loglik, 1, eps.shape[0], "bic"))  # k = 1: mu
     sigma = np.sqrt(sigma2)
-    return _Estimate(FALLBACK_SPEC, params, loglik, bic, eps / sigma, sigma, "", False, {})
+    z = eps / sigma
+    best = optimize.minimize_scalar(lambda nu: -standardised_t_loglik(z, nu),
+                                    bounds=_NU_BOUNDS, method="bounded",
+                                    options={"xatol": 1e-6})
+    params["nu"] = float(best.x)
+    loglik = standardised_t_loglik(z, params["nu"]) - float(np.sum(np.log(sigma)))
+    bic = float(information_criterion(loglik, 2, eps.shape[0], "bic"))  # k = 2: mu, nu
+    return _Estimate(FALLBACK_SPEC, params, loglik, bic, z, sigma, "", False, {})
 
 
 def _select(y: NDArray[np.float64], candidates: Sequence[MarginalSpec],
@@ -787,7 +842,8 @@ def _select(y: NDArray[np.float64], candidates: Sequence[MarginalSpec],
     if ok:
         return min(ok, key=lambda e: e.bic), cands, problems
     problems.append(f"no candidate converged to a plausible estimate: using the {_FALLBACK_NAME} "
-                    "fallback (constant mean, RiskMetrics EWMA variance)")
+                    "fallback (constant mean, RiskMetrics EWMA variance, Student-t "
+                    "innovations)")
     return _fallback_estimate(y), cands, problems
 
 

@@ -662,6 +662,10 @@ def study_pair(view, a: str, b: str, start, end, *, reference=None, replicates: 
                          per_window, total)
         if r_lo <= hi and r_hi >= lo:
             notes.append("the reference window overlaps the study window")
+    spans = view.store.fallback_spans(view.marginal_key, (a, b))
+    for role, days in (("study", dates), ("reference", r_dates)):
+        if days is not None:
+            notes += _fallback_notes(spans, role, days)
     if progress is not None:
         progress(total, total, "done")
     return PairStudy(
@@ -670,6 +674,21 @@ def study_pair(view, a: str, b: str, start, end, *, reference=None, replicates: 
         criterion=view.rolling.criterion, families=tuple(view.rolling.families),
         replicates=int(replicates), seed=int(seed), seconds=time.perf_counter() - t0,
         notes=tuple(notes))
+
+
+def _fallback_notes(spans: pd.DataFrame, role: str, dates) -> list[str]:
+    """Per asset, how many of a window's days were filtered by a fallback marginal fit."""
+    days = pd.DatetimeIndex(dates)
+    out = []
+    for asset, g in spans.groupby("asset"):
+        hit = np.zeros(len(days), dtype=bool)
+        for first, last in zip(g["first"], g["last"], strict=True):
+            hit |= (days >= first) & (days <= last)
+        if hit.any():
+            out.append(f"{int(hit.sum())} of the {role} window's {len(days)} days of {asset} "
+                       "were filtered by the EWMA-t fallback (GARCH refused): its ranks there "
+                       "rest on a simpler volatility model")
+    return out
 
 
 def _slot_count(families) -> int:

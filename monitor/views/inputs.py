@@ -445,7 +445,8 @@ def innovation_pit(series: FilteredSeries) -> NDArray[np.float64]:
     -----
     ``F_t`` is the innovation distribution of the fit that filtered day ``t``: the
     standardised Student-t (arch's ``StudentsT``: ``T_nu(z sqrt(nu / (nu - 2)))``), Hansen's
-    skewed t (:func:`skewt_cdf`) or, for the EWMA fallback, N(0, 1). Under a correct model
+    skewed t (:func:`skewt_cdf`); the EWMA-t fallback's is a Student-t too (N(0, 1) for
+    fallback fits stored by algorithm v1, which had normal innovations). Under a correct model
     the transforms are uniform (Diebold, Gunther & Tay 1998, "Evaluating density forecasts",
     International Economic Review 39, 863-883).
     """
@@ -659,7 +660,7 @@ def residuals_figure(diag: MarginalDiagnostics) -> go.Figure:
     if diag.fallback.any():
         fig.add_trace(go.Scattergl(
             x=dates[diag.fallback], y=np.asarray(diag.residuals)[diag.fallback], mode="markers",
-            name="filtered by the EWMA fallback",
+            name="filtered by the EWMA-t fallback",
             marker={"size": 6, "symbol": "x", "color": VERMILION}), row=1, col=1)
     for level in (-3.0, 3.0):
         fig.add_hline(y=level, line={"color": MUTED, "dash": "dot", "width": 1}, row=1, col=1)

@@ -28,6 +28,7 @@ import plotly.graph_objects as go
 from numpy.typing import ArrayLike
 from plotly.subplots import make_subplots
 
+from monitor.common.arrays import overlap_days
 from monitor.common.errors import InputError
 from monitor.common.palette import (
     FAMILY_COLOURS,
@@ -144,7 +145,9 @@ class PairHistory:
         One row per window end: ``date, start, n, kendall_tau, kendall_tau_se, tau_low,
         tau_high, family, rotation, converged, tail_lower, tail_upper, tail_lower_emp,
         tail_upper_emp, tail_lower_low, tail_lower_high, tail_upper_low, tail_upper_high,
-        gauss_tail_q, state_lower, state_upper`` (bands at :data:`monitor.views.common.LEVEL`).
+        gauss_tail_q, state_lower, state_upper, fallback`` (bands at
+        :data:`monitor.views.common.LEVEL`; ``fallback``: the window holds residuals of either
+        asset filtered by a fallback marginal fit, see ``fallbacks``).
     families : DataFrame
         :func:`family_runs` of the frame.
     episodes : DataFrame
@@ -152,6 +155,9 @@ class PairHistory:
     tail_q : float
     provenance : str
         :meth:`monitor.settings.Settings.provenance`.
+    fallbacks : DataFrame
+        :meth:`monitor.data.store.Store.fallback_spans` of the two assets: the residuals a
+        fallback fit (GARCH refused) filtered.
     """
 
     pair: tuple[str, str]
@@ -160,6 +166,17 @@ class PairHistory:
     episodes: pd.DataFrame
     tail_q: float
     provenance: str
+    fallbacks: pd.DataFrame
+
+    def fallback_note(self) -> str:
+        """A sentence naming the fallback days behind the timeline ("" when there are none)."""
+        if self.fallbacks.empty:
+            return ""
+        parts = [f"{asset} {int(g['days'].sum())} day(s), {g['first'].min():%Y-%m-%d} to "
+                 f"{g['last'].max():%Y-%m-%d}" for asset, g in self.fallbacks.groupby("asset")]
+        return (f"Residuals from the EWMA-t fallback (GARCH refused): {'; '.join(parts)}; "
+                f"{int(self.frame['fallback'].sum())} window(s) hold some (marked x on the "
+                "tau row): read their tails with care.")
 
 
 def pair_history(view: StoreView, a: str, b: str) -> PairHistory:
@@ -198,9 +215,13 @@ def pair_history(view: StoreView, a: str, b: str) -> PairHistory:
     runs = view.store.read_state_runs(view.signals_key, (a, b))
     states = states_on(runs, frame.assign(asset_a=a, asset_b=b))
     frame = pd.concat([frame, states], axis=1)
+    fallbacks = view.store.fallback_spans(view.marginal_key, (a, b))
+    frame["fallback"] = overlap_days(frame["start"], frame["date"], fallbacks["first"],
+                                     fallbacks["last"])
     spans = episode_spans(view.store.read_episodes(view.signals_key, (a, b)),
                           frame["date"].iloc[-1])
-    return PairHistory((a, b), frame, family_runs(frame), spans, q, view.settings.provenance())
+    return PairHistory((a, b), frame, family_runs(frame), spans, q, view.settings.provenance(),
+                       fallbacks)
 
 
 def episodes_table(history: PairHistory) -> pd.DataFrame:
@@ -373,6 +394,7 @@ def timeline_figure(history: PairHistory) -> go.Figure:
                             f"Upper tail at q = {history.tail_q:g}",
                             "Selected family, its rotation, and the tail states"))
     _tau_row(fig, f, x)
+    _fallback_marks(fig, f, x)
     _tail_rows(fig, f, x)
     _strip_row(fig, f, x)
     _episode_shading(fig, history.episodes)
@@ -389,6 +411,19 @@ def _tau_row(fig: go.Figure, f: pd.DataFrame, x: np.ndarray) -> None:
                              customdata=np.c_[f["tau_low"], f["tau_high"]],
                              hovertemplate="tau %{y:.3f} (95%: %{customdata[0]:.3f} to "
                                            "%{customdata[1]:.3f})<extra></extra>"), row=1, col=1)
+
+
+def _fallback_marks(fig: go.Figure, f: pd.DataFrame, x: np.ndarray) -> None:
+    """On the tau row, an x on every window holding residuals from a fallback fit."""
+    hit = f["fallback"].to_numpy(dtype=bool)
+    if not hit.any():
+        return
+    fig.add_trace(go.Scatter(
+        x=x[hit], y=f["kendall_tau"].to_numpy()[hit], mode="markers",
+        name="window holds EWMA-t fallback residuals", legendgroup="fallback",
+        marker={"symbol": "x-thin", "size": 7, "color": MUTED, "line": {"width": 1}},
+        hovertemplate="residuals from the EWMA-t fallback in this window<extra></extra>"),
+        row=1, col=1)
 
 
 def _tail_rows(fig: go.Figure, f: pd.DataFrame, x: np.ndarray) -> None:

@@ -69,7 +69,7 @@ def test_settings_in_words(view):
     assert settings_words(view.signals_key, short=True) == (
         "real-time marginals; window 120 days, step 1, all families, AIC; signal thresholds: "
         "the calibrated defaults")
-    assert settings_words("in-sample/min300/all8/v1") == (
+    assert settings_words("in-sample/min300/all8/v2") == (
         "marginals: GARCH-type filter, in-sample mode (one fit on all data, at least 300 "
         "observations), BIC choice among the 8 standard specifications")
     assert settings_words("no-such/key") == "stored settings of another version"
