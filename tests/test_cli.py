@@ -279,6 +279,9 @@ def test_fit_json_has_the_contract_keys(study):
         for key in ("loglik", "aic", "bic", "kendall_tau", "tail_lower", "tail_upper"):
             assert isinstance(fit[key], float) and math.isfinite(fit[key]), (fit, key)
         assert all(math.isfinite(x) for x in fit["params"].values())
+        # at_bound names parameters at an end of the family's search box, as "<name> <end>"
+        assert all(p.split()[0] in fit["params"] and p.split()[1] in ("lower", "upper")
+                   for p in fit["at_bound"])
 
 
 def test_fit_window_matches_start_and_end(work, study):

@@ -181,6 +181,42 @@ def test_chain_fits_reach_the_reference_maximum():
             assert chained.loglik[w] >= ref.loglik - 1e-4, (rotation, w)
 
 
+def test_bb1_reaches_its_gumbel_limit_and_says_it_sits_at_the_box():
+    # BB1(theta, delta) -> Gumbel(delta) as theta -> 0 (Joe 1997, section 5.2, family BB1):
+    # on Gumbel data the BB1 optimum is at that limit in about half the windows. A lower end
+    # theta >= 1e-4 stopped those fits up to 2.7e-3 nats short of the Gumbel fit (a nested
+    # model, so BB1 can never be worse) while reporting converged=True.
+    grid = np.linspace(0.02, 0.98, 25)
+    uu, vv = np.meshgrid(grid, grid)
+    for delta in (1.2, 2.0, 4.0):
+        np.testing.assert_allclose(family("bb1").logpdf(uu, vv, (1e-10, delta)),
+                                   family("gumbel").logpdf(uu, vv, (delta,)), atol=1e-7)
+    # The other lower ends at a limit: Clayton(theta -> 0) is independence, log c = O(theta)
+    # (its log(u^-t + v^-t - 1) once cancelled to 3e-6 here); BB7(theta, delta -> 0) is
+    # Joe(theta) (Joe 1997, section 5.2), its Kendall's tau included.
+    assert np.abs(family("clayton").logpdf(uu, vv, (1e-10,))).max() < 1e-8
+    for theta in (1.3, 3.0):
+        np.testing.assert_allclose(family("bb7").logpdf(uu, vv, (theta, 1e-7)),
+                                   family("joe").logpdf(uu, vv, (theta,)), atol=1e-5)
+        assert float(family("bb7").kendall_tau((theta, 1e-7))) == pytest.approx(
+            float(family("joe").kendall_tau((theta,))), abs=1e-7)
+    rng = np.random.default_rng(7)
+    draws = [family("gumbel").sample(250, (1.5,), rng) for _ in range(120)]
+    u = pseudo_observations(np.array([d[:, 0] for d in draws]))
+    v = pseudo_observations(np.array([d[:, 1] for d in draws]))
+    gumbel = fit_batched(family("gumbel"), u, v)
+    bb1 = fit_batched(family("bb1"), u, v)
+    assert np.all(bb1.loglik >= gumbel.loglik - 1e-5)
+    at_end = [w for w in range(len(u)) if bb1.window(w).at_bound == ("theta lower",)]
+    assert 0.3 * len(u) <= len(at_end) <= 0.7 * len(u)
+    assert all(bb1.params[w, 0] < 1e-4 for w in at_end)
+    interior = [w for w in range(len(u)) if w not in at_end]
+    assert all(bb1.window(w).at_bound == () for w in interior[:10])
+    # a Gaussian fit at the edge of its box: rho = 0.999 on comonotone ranks
+    u1 = pseudo_observations(np.random.default_rng(3).standard_normal(300))
+    assert fit_batched(family("gaussian"), u1, u1).window(0).at_bound == ("rho upper",)
+
+
 def test_non_convergence_is_reported_not_hidden():
     u, v = _pseudo(family("bb1"), (0.5, 1.5), 500, seed=4)
     fit = fit_batched(family("bb1"), u, v, max_iter=1)

@@ -84,7 +84,7 @@ class WindowStudy:
                 "family": f.family, "rotation": f.rotation, "params": dict(f.params),
                 "loglik": f.loglik, "aic": f.aic, "bic": f.bic, "kendall_tau": f.kendall_tau,
                 "tail_lower": f.tail_lower, "tail_upper": f.tail_upper,
-                "converged": f.converged,
+                "converged": f.converged, "at_bound": list(f.at_bound),
             }
             g = self.gof.get(f.label)
             if g is not None:

@@ -164,6 +164,13 @@ class CopulaFit:
     def label(self) -> str:
         return self.family if self.rotation == 0 else f"{self.family} {self.rotation}"
 
+    @property
+    def at_bound(self) -> tuple[str, ...]:
+        """The parameters estimated at an end of the family's search box (``fit_bounds``),
+        e.g. ``("theta lower",)``: the optimum may lie on or beyond that end, and the fit is
+        the best inside the box. Empty for an interior optimum."""
+        return bounds_hit(self.copula, self.param_tuple)
+
 
 # ----------------------------------------------------------------------------- coordinates
 def _coordinates(fam: CopulaFamily):
@@ -189,6 +196,40 @@ def _coordinates(fam: CopulaFamily):
         return np.clip(np.where(logs, np.exp(x), x), lo, hi)
 
     return xlo, xhi, to_x, to_p
+
+
+#: Relative distance (in the optimiser's coordinates, per unit of the box's width) within
+#: which an estimate counts as at an end of the search box.
+BOUND_TOLERANCE = 1e-6
+
+
+def bounds_hit(fam: CopulaFamily, params: tuple[float, ...]) -> tuple[str, ...]:
+    """Which parameters of one fit sit at an end of ``fam.fit_bounds``.
+
+    Parameters
+    ----------
+    fam : CopulaFamily
+    params : tuple of float
+        One estimate per parameter.
+
+    Returns
+    -------
+    tuple of str
+        ``"<name> lower"`` or ``"<name> upper"`` per parameter within
+        :data:`BOUND_TOLERANCE` of that end (measured in the optimiser's coordinates).
+    """
+    if not params:
+        return ()
+    xlo, xhi, to_x, _ = _coordinates(fam)
+    x = to_x(np.asarray(params, dtype=float))
+    tol = BOUND_TOLERANCE * (xhi - xlo)
+    out = []
+    for name, xi, lo, hi, t in zip(fam.param_names, x, xlo, xhi, tol, strict=True):
+        if xi <= lo + t:
+            out.append(f"{name} lower")
+        elif xi >= hi - t:
+            out.append(f"{name} upper")
+    return tuple(out)
 
 
 def _validate_batch(u: ArrayLike, v: ArrayLike) -> tuple[NDArray, NDArray]:

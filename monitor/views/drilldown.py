@@ -703,7 +703,8 @@ def _params_text(fit: CopulaFit) -> str:
 def candidate_table(result: WindowResult) -> pd.DataFrame:
     """Every candidate of a window, best first: parameters, loglik, AIC, BIC, the criterion's
     distance to the best, implied tau and tail coefficients, goodness-of-fit p-value,
-    convergence, and which one was selected."""
+    convergence, the parameters estimated at an end of the search box
+    (:attr:`monitor.stats.fitting.CopulaFit.at_bound`), and which one was selected."""
     w = result.window
     crit = w.selection.criterion
     fits = sorted(w.selection.fits, key=lambda f: getattr(f, crit))
@@ -719,6 +720,7 @@ def candidate_table(result: WindowResult) -> pd.DataFrame:
             "tail upper": round(f.tail_upper, 4),
             "GoF p": None if g is None else round(g.p_value, 4),
             "converged": "yes" if f.converged else "no",
+            "at box end": ", ".join(f.at_bound),
             "selected": "yes" if f is w.selection.selected else "",
         })
     return pd.DataFrame(rows)
