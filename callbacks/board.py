@@ -11,6 +11,7 @@ from dash import Input, Output
 from layouts import ids
 from layouts.components import filter_action, message, shape_columns
 from monitor.common.errors import InputError
+from monitor.common.wording import finite_level_note
 from monitor.views.board import (
     DEFAULT_HORIZON,
     DEFAULT_TAIL_SOURCE,
@@ -99,7 +100,7 @@ def show_board(view, date: str | None, source: str | None,
             f"{data.provenance}. Hover a cell for its value with a 95% interval (tau: "
             "influence-function s.e.; nonparametric tails: Wilson binomial interval); "
             "model-based tails have no stored s.e. — the Drill-down page gives bootstrap "
-            "intervals."
+            f"intervals. {finite_level_note(data.tail_q)}"
             + (f" {stale} pair(s) have no window ending on the latest date shown and use "
                "their previous one." if stale else "")
             + (f" {data.averaged_missing} pair(s) were stored by an older comove: their "

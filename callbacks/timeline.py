@@ -12,6 +12,7 @@ from dash import Input, Output, no_update
 from layouts import ids
 from layouts.components import filter_action, message, records
 from monitor.common.errors import InputError
+from monitor.common.wording import finite_level_note
 from monitor.views.common import blank_figure, parse_pair
 from monitor.views.timeline import (
     episodes_table,
@@ -49,8 +50,8 @@ def show_pair(view, pair_text: str | None) -> tuple:
             f"{last['kendall_tau']:.3f}, selected {last['family']} {int(last['rotation'])}°, "
             f"state (lower/upper tail) {state}; {len(history.episodes)} alert episode(s). "
             f"{int((~f['converged'].astype(bool)).sum())} window(s) whose selected fit did not "
-            "converge are shown as estimated." + (f" {history.fallback_note()}"
-                                                   if history.fallback_note() else ""))
+            f"converge are shown as estimated. {finite_level_note(history.tail_q)}"
+            + (f" {history.fallback_note()}" if history.fallback_note() else ""))
     data, columns = records(episodes_table(history))
     first, end = (d.strftime("%Y-%m-%d") for d in (f["date"].iloc[0], f["date"].iloc[-1]))
     return (timeline_figure(history), note, data, columns, "", first, end,

@@ -13,6 +13,7 @@ from dash import dcc, html
 
 from monitor.common.errors import InputError
 from monitor.common.palette import MUTED, VERMILION
+from monitor.common.wording import finite_level_note
 from monitor.views.common import parse_date, parse_pair
 from monitor.views.drilldown import (
     REPLICATE_CHOICES,
@@ -243,8 +244,9 @@ def _column(study: PairStudy, res: WindowResult) -> html.Div:
               table(_id(ids.STUDY_TABLE_TYPE, role, "tails"), tail_table(res)),
               graph(_id(ids.STUDY_FIGURE_TYPE, role, "tails"), tail_figure(study, res),
                     filename=_slug(study, role, "tails")),
-              note="Finite-level tail concordance over q; the band is a pointwise binomial "
-                   "(Wilson) 95% band of the empirical curve, kept inside [0, 1]."),
+              note=f"{finite_level_note(res.window.tail_q)} The band is a pointwise "
+                   "binomial (Wilson) 95% band of the empirical curve, kept inside [0, 1]; "
+                   "the dotted line is the independent pair's q."),
         panel("Pseudo-observations",
               graph(_id(ids.STUDY_FIGURE_TYPE, role, "scatter"), scatter_figure(study, res),
                     filename=_slug(study, role, "scatter")),

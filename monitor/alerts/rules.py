@@ -32,7 +32,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from monitor.common.wording import CAUTION
+from monitor.common.wording import CAUTION, finite_level_note
 from monitor.config import AlertRule, AlertsConfig, Config
 from monitor.data.store import Connection, Store, Table
 from monitor.settings import Settings
@@ -264,6 +264,7 @@ def compose_pair(cfg: Config, a: str, b: str, tail: str | None, frame: pd.DataFr
                   f"{family}; nonparametric tails C_n(q,q)/q (binomial s.e. of the "
                   f"{tail or 'lower'} tail {se}); settings: {Settings.of(cfg).provenance()}.")
     provenance += _fallback_words(fallbacks, pd.Timestamp(row["start"]), pd.Timestamp(row["date"]))
+    provenance += f" {finite_level_note(cfg.rolling.tail_q)}"
     lines = [f"{a}/{b}: {headline}.", "",
              f"{'measure':34s} {'now':>8s} {then:%Y-%m-%d} {'change':>8s}"]
     lines += [f"{m:34s} {now:>8s} {before:>10s} {ch:>8s}" for m, now, before, ch in table]

@@ -675,7 +675,8 @@ def _tail_text(data: BoardData, tail: str, source: str) -> pd.Series:
         return (f"{tail} tail C(q,q)/q, nonparametric " + _fmt(p[col]) + " (95%: "
                 + _fmt(p[f"{col}_low"]) + " to " + _fmt(p[f"{col}_high"]) + ")<br>Gaussian at "
                 "same tau " + _fmt(p["gauss_tail_q"]) + ", excess "
-                + _fmt(p[f"divergence_{tail}"], "{:.1f}") + " s.e.")
+                + _fmt(p[f"divergence_{tail}"], "{:.1f}") + " s.e.; independent pair "
+                + f"{data.tail_q:g} (finite level, not the limit)")
     if source == "averaged":
         return (f"{tail} tail, model-averaged (Akaike weights) "
                 + _fmt(p[f"tail_{tail}_avg"], missing=NOT_COMPUTED)

@@ -748,8 +748,9 @@ def crash_table(result: WindowResult) -> pd.DataFrame:
 
 
 def tail_table(result: WindowResult) -> pd.DataFrame:
-    """Empirical against model tail dependence at the study's level q, with the model's
-    limiting coefficient and its bootstrap interval when there is one."""
+    """Empirical against model tail dependence at the study's level q (finite-level figures,
+    beside an independent pair's value q), with the model's limiting coefficient and its
+    bootstrap interval when there is one."""
     w = result.window
     sel = result.selected
     q = w.tail_q
@@ -770,6 +771,7 @@ def tail_table(result: WindowResult) -> pd.DataFrame:
             "empirical 95% interval": f"{float(lo) / q:.3f} to {float(hi) / q:.3f}",
             f"model at q ({sel.label})": round(model_q, 4),
             "Gaussian same tau at q": round(gauss_q, 4),
+            "independent pair at q": q,
             "model limit λ": round(limit, 4),
             "model limit 95% interval (bootstrap)": interval or "-",
         })
@@ -1061,7 +1063,9 @@ def scatter_figure(study: PairStudy, result: WindowResult, *, scale: str = "norm
 
 def tail_figure(study: PairStudy, result: WindowResult) -> go.Figure:
     """Tail concordance over q: empirical (with its 95% binomial band) against the fitted
-    copula and the Gaussian copula with the same Kendall's tau, lower and upper tail."""
+    copula, the Gaussian copula with the same Kendall's tau and an independent pair (the line
+    q: these are finite-level figures, whose limits q -> 0 are the tail coefficients), lower
+    and upper tail."""
     sel = result.selected
     fig = make_subplots(rows=1, cols=2, horizontal_spacing=0.1, subplot_titles=(
         "lower tail: P(U ≤ q, V ≤ q) / q", "upper tail: P(U > 1−q, V > 1−q) / q"))
@@ -1089,6 +1093,12 @@ def tail_figure(study: PairStudy, result: WindowResult) -> go.Figure:
             line={"color": BLACK, "width": 1.5, "dash": "dash"}, legendgroup="gauss",
             showlegend=first,
             hovertemplate="q = %{x:.2f}: %{y:.3f}<extra>Gaussian</extra>"), row=1, col=col)
+        # A finite-level figure: an independent pair reads q itself, not 0.
+        fig.add_trace(go.Scatter(
+            x=q, y=q, mode="lines", name="independent pair (= q)",
+            line={"color": GREY, "width": 1, "dash": "dot"}, legendgroup="independent",
+            showlegend=first,
+            hovertemplate="q = %{x:.2f}: %{y:.3f}<extra>independent</extra>"), row=1, col=col)
         fig.update_xaxes(title_text="q", gridcolor=RULE, row=1, col=col)
         fig.update_yaxes(range=[0, 1], gridcolor=RULE, row=1, col=col)
     fig.update_layout(**figure_layout(

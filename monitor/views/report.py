@@ -14,7 +14,7 @@ import re
 import pandas as pd
 
 from monitor.common.palette import FONT, GROUND, INK, MUTED, PANEL, RULE, VERMILION
-from monitor.common.wording import CAUTION
+from monitor.common.wording import CAUTION, finite_level_note
 from monitor.settings import settings_words
 from monitor.views.drilldown import (
     PairStudy,
@@ -131,6 +131,7 @@ def _window_section(study: PairStudy, res: WindowResult, first_figure: bool) -> 
              "Fréchet–Hoeffding.</p>"),
              html_table(crash_table(res)),
              "<h3>Tail dependence, empirical against model</h3>",
+             f"<p class=\"note\">{html.escape(finite_level_note(res.window.tail_q))}</p>",
              html_table(tail_dependence_table(res))]
     if unc is not None:
         frame = pd.DataFrame([

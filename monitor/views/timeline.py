@@ -390,12 +390,12 @@ def timeline_figure(history: PairHistory) -> go.Figure:
     fig = make_subplots(rows=4, cols=1, shared_xaxes=True, vertical_spacing=0.035,
                         row_heights=[0.29, 0.29, 0.29, 0.13], subplot_titles=(
                             "Kendall's tau (95% band)",
-                            f"Lower tail at q = {history.tail_q:g}",
-                            f"Upper tail at q = {history.tail_q:g}",
+                            f"Lower tail at q = {history.tail_q:g} (finite level)",
+                            f"Upper tail at q = {history.tail_q:g} (finite level)",
                             "Selected family, its rotation, and the tail states"))
     _tau_row(fig, f, x)
     _fallback_marks(fig, f, x)
-    _tail_rows(fig, f, x)
+    _tail_rows(fig, f, x, history.tail_q)
     _strip_row(fig, f, x)
     _episode_shading(fig, history.episodes)
     _finish(fig, f, history.pair)
@@ -426,9 +426,10 @@ def _fallback_marks(fig: go.Figure, f: pd.DataFrame, x: np.ndarray) -> None:
         row=1, col=1)
 
 
-def _tail_rows(fig: go.Figure, f: pd.DataFrame, x: np.ndarray) -> None:
+def _tail_rows(fig: go.Figure, f: pd.DataFrame, x: np.ndarray, q: float) -> None:
     """Rows 2 and 3: per tail the Wilson band, the nonparametric, model-averaged, selected
-    family's and Gaussian same-tau lines (the legend entries once, from the lower tail)."""
+    family's and Gaussian same-tau lines, and the independent pair's value q (the legend
+    entries once, from the lower tail)."""
     emp_colour, model_colour = SERIES_COLOURS["tail_empirical"], SERIES_COLOURS["tail_model"]
     for row, tail in ((2, "lower"), (3, "upper")):
         first = tail == "lower"
@@ -462,6 +463,11 @@ def _tail_rows(fig: go.Figure, f: pd.DataFrame, x: np.ndarray) -> None:
             legendgroup="gauss",
             showlegend=first, hovertemplate="Gaussian same-tau %{y:.3f}<extra></extra>"),
             row=row, col=1)
+        # C_n(q,q)/q is a finite-level figure: an independent pair reads q, not 0.
+        fig.add_trace(go.Scatter(
+            x=[x[0], x[-1]], y=[q, q], mode="lines", name=f"independent pair (= q = {q:g})",
+            line={"color": MUTED, "width": 1, "dash": "dash"}, legendgroup="independent",
+            showlegend=first, hoverinfo="skip"), row=row, col=1)
 
 
 def _strip_row(fig: go.Figure, f: pd.DataFrame, x: np.ndarray) -> None:
