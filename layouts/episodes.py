@@ -214,7 +214,9 @@ def _outbox(view) -> html.Div:
         return message("Nothing queued.")
     counts = box["state"].value_counts()
     failing = int((box["state"].eq("pending") & box["attempts"].gt(0)).sum())
-    summary = ", ".join(f"{int(counts.get(s, 0))} {s}" for s in OUTBOX_STATES)
+    # pending and sent always; a message being sent or refused for good only when there is one
+    summary = ", ".join(f"{int(counts.get(s, 0))} {s}" for s in OUTBOX_STATES
+                        if s in ("pending", "sent") or counts.get(s, 0))
     summary += f" ({failing} pending after a failed attempt)" if failing else ""
     return html.Div([html.P(f"{len(box)} e-mail(s): {summary}.", style=NOTE_STYLE),
                      typed_table(ids.EPISODES_OUTBOX, box, page_size=10)])

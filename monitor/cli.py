@@ -8,6 +8,7 @@ the user unless ``COMOVE_DEBUG=1`` is set.
 from __future__ import annotations
 
 import argparse
+import datetime as dt
 import json
 import os
 import sys
@@ -180,9 +181,17 @@ def _add_alerts(sub) -> None:
     _common(p)
     asub = p.add_subparsers(dest="action", metavar="ACTION", parser_class=_Parser)
     asub.required = True
-    q = asub.add_parser("send", help="deliver queued alert e-mails; failures stay queued")
+    q = asub.add_parser(
+        "send", help="deliver queued alert e-mails; failures stay queued",
+        description="Try every pending alert once when the SMTP server answers (back-off "
+                    "only spaces attempts while it does not). Exit 1 when a message failed or "
+                    "was refused in this run, or one queued longer ago than "
+                    "alerts.late_after_minutes is still undelivered.")
     _common(q)
     q.add_argument("--dry-run", action="store_true", help="print what would be sent")
+    q.add_argument("--retry-failed", action="store_true",
+                   help="first put the messages the server refused for good back in the "
+                        "queue (after fixing the cause, e.g. a recipient)")
 
 
 def _add_serve(sub) -> None:
@@ -423,6 +432,10 @@ def _cmd_demo(args: argparse.Namespace, cfg: Config) -> int:
     return 0
 
 
+def _utc_now() -> dt.datetime:
+    return dt.datetime.now(dt.UTC).replace(tzinfo=None)
+
+
 def _cmd_alerts(args: argparse.Namespace, cfg: Config) -> int:
     from monitor.alerts.charts import chart_maker
     from monitor.alerts.mailer import send_pending
@@ -433,14 +446,27 @@ def _cmd_alerts(args: argparse.Namespace, cfg: Config) -> int:
         if args.dry_run:
             report = send_pending(store, cfg, dry_run=True)
         else:
+            if args.retry_failed:
+                print(f"alerts: {store.requeue_failed(_utc_now())} refused message(s) queued "
+                      "again")
             with chart_maker(store, rolling_key(cfg)) as chart:
                 report = send_pending(store, cfg, chart=chart)
     print("\n".join(report.lines()))
+    if report.ok:
+        return 0
+    problems = []
     if report.failed:
-        sys.stderr.write(f"error: {report.failed} message(s) not delivered: "
-                         f"{report.errors[0]}; they stay queued and are retried later\n")
-        return 1
-    return 0
+        problems.append(f"{report.failed} message(s) not delivered; they stay queued and are "
+                        "retried")
+    if report.refused:
+        problems.append(f"{report.refused} message(s) refused for good (see the Episodes "
+                        "page's outbox; --retry-failed after fixing the cause)")
+    if report.late:
+        problems.append(f"{report.late} alert(s) queued more than "
+                        f"{cfg.alerts.late_after_minutes} min ago are still undelivered")
+    why = f" ({report.errors[0]})" if len(report.errors) == 1 else " (reasons above)"
+    sys.stderr.write(f"error: {'; '.join(problems)}{why if report.errors else ''}\n")
+    return 1
 
 
 _COMMANDS = {

@@ -106,8 +106,11 @@ class AlertsConfig:
     cooldown_days: int = 30
     #: One daily digest instead of one message per event.
     digest: bool = False
-    #: First retry after a failed delivery, doubling per attempt up to six hours.
+    #: First retry after a failed delivery while the server keeps failing, doubling per
+    #: attempt up to 30 minutes (a reachable server gets every pending message at once).
     retry_seconds: int = 300
+    #: ``alerts send`` exits 1 while a message queued longer ago than this is undelivered.
+    late_after_minutes: int = 60
 
 
 @dataclass(frozen=True, slots=True)
@@ -364,6 +367,9 @@ def _validate_alerts(a: AlertsConfig, path: str) -> None:
     if a.cooldown_days < 0:
         raise InputError(f"{path}: alerts.cooldown_days must be 0 or more, "
                          f"got {a.cooldown_days}")
+    if a.late_after_minutes < 1:
+        raise InputError(f"{path}: alerts.late_after_minutes must be at least 1, "
+                         f"got {a.late_after_minutes}")
     if a.retry_seconds < 0:
         raise InputError(f"{path}: alerts.retry_seconds must be 0 or more, "
                          f"got {a.retry_seconds}")

@@ -3,6 +3,7 @@ to a real SMTP server (aiosmtpd on 127.0.0.1), with nothing lost and nothing sen
 
 from __future__ import annotations
 
+import datetime as dt
 import email
 import email.policy
 import shutil
@@ -201,7 +202,7 @@ def test_delivery_content_and_no_duplicates(store_copy, tmp_path, capsys):
         assert len({m["Message-ID"] for m in inbox.messages}) == len(queued)
     box = _outbox(store_copy)
     assert (box["state"] == "sent").all() and (box["attempts"] == 1).all()
-    assert "0 of 0 due message(s) sent" in capsys.readouterr().out
+    assert "alerts: 0 pending, 0 due: 0 sent" in capsys.readouterr().out
 
 
 def test_server_down_then_up_delivers_every_alert_once(store_copy, tmp_path, capsys):
@@ -222,16 +223,46 @@ def test_server_down_then_up_delivers_every_alert_once(store_copy, tmp_path, cap
     assert (_outbox(store_copy)["attempts"] == 2).all()
 
 
-def test_backoff_waits_before_retrying(store_copy, tmp_path):
+def test_backoff_spaces_failures_but_a_reachable_server_gets_everything(store_copy, tmp_path,
+                                                                         capsys):
+    # issue 14: with the server back, every pending alert goes at once; the back-off only
+    # spaces the attempts recorded while the server keeps failing, at most 30 minutes apart.
     cfg = _cfg(store_copy, _free_port(), retry_seconds=600)
     _update_signals(cfg)
+    n = len(_outbox(store_copy))
     assert _send(cfg, tmp=tmp_path) == 1
-    with _Server(cfg.alerts.email.port) as inbox:
-        assert _send(cfg, tmp=tmp_path) == 0  # not due for ten minutes
-        assert inbox.messages == []
+    assert f"{n} pending, {n} due: 0 sent, {n} failed" in capsys.readouterr().out
+    assert _send(cfg, tmp=tmp_path) == 0  # still down, and nothing due for ten minutes
+    assert f"{n} pending, 0 due: 0 sent, 0 failed (queued again), 0 refused for good, " \
+           f"{n} deferred; 0 late" in capsys.readouterr().out
     box = _outbox(store_copy)
+    assert (box["attempts"] == 1).all() and (box["state"] == "pending").all()
     wait = (pd.to_datetime(box["next_attempt"]) - pd.to_datetime(box["created"]))
     assert (wait >= pd.Timedelta(seconds=600)).all()
+    with _Server(cfg.alerts.email.port) as inbox:
+        assert _send(cfg, tmp=tmp_path) == 0  # not due by the back-off, sent all the same
+        assert len(inbox.messages) == n
+    assert (_outbox(store_copy)["state"] == "sent").all()
+
+
+def test_backoff_is_capped_at_thirty_minutes_and_late_alerts_exit_1(store_copy, tmp_path,
+                                                                      capsys):
+    from monitor.alerts.mailer import send_pending
+
+    cfg = _cfg(store_copy, _free_port(), retry_seconds=7 * 24 * 3600)
+    _update_signals(cfg)
+    n = len(_outbox(store_copy))
+    with Store(cfg.store.url) as store:
+        report = send_pending(store, cfg)
+        assert (report.due, report.failed, report.late) == (n, n, 0) and not report.ok
+        box = _outbox(store_copy)
+        wait = pd.to_datetime(box["next_attempt"]) - pd.to_datetime(box["created"])
+        assert (wait <= pd.Timedelta(minutes=30, seconds=5)).all()
+        # Two hours later, still down: every alert is late (older than 60 minutes).
+        later = dt.datetime.now(dt.UTC).replace(tzinfo=None) + dt.timedelta(hours=2)
+        report = send_pending(store, cfg, now=later)
+        assert (report.pending, report.late) == (n, n)
+        assert f"{n} late" in report.lines()[0]
 
 
 def test_authentication_with_credentials_from_the_environment(store_copy, tmp_path,

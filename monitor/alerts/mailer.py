@@ -3,15 +3,25 @@
 - Plain SMTP, STARTTLS (``alerts.email.starttls``) or SMTP over TLS (``alerts.email.ssl``);
   credentials come from the environment variables the configuration names, never from the
   file.
-- Every message carries its outbox id as ``Message-ID``; a message is marked sent in its own
-  transaction as soon as the server accepts it and only pending messages are ever sent, so a
-  re-run never sends one twice.
-- A failure leaves the message pending with its attempt count and last error, and the next
-  attempt waits ``alerts.retry_seconds`` doubled per attempt (at most six hours).
-- With ``alerts.digest`` the due messages of a run go out as one digest (its own id, derived
-  from its members').
+- A run first connects. When the server answers, it claims **every** pending message (one
+  atomic claim, so concurrent runs never send a message twice) and tries each once: an alert
+  goes out as soon as the server is back, whatever its back-off said. When the server does not
+  answer, only the messages whose back-off is over record a failed attempt; the others are
+  deferred. The back-off is ``alerts.retry_seconds`` doubled per failed attempt, at most
+  :data:`MAX_RETRY` (30 minutes).
+- Every message carries its outbox id as ``Message-ID`` and is marked sent in its own
+  transaction as soon as the server accepts it.
+- One message never blocks the others: a message that cannot be built, or that the server
+  refuses for good (a 5xx answer), is recorded as ``failed`` with the reason and the run goes
+  on; a temporary refusal (4xx) or a lost connection leaves it pending for the next run.
+  ``comove alerts send --retry-failed`` puts the failed ones back in the queue.
+- With ``alerts.digest`` the claimed messages of a run go out as one digest (its own id,
+  derived from its members').
 - A small chart of the pair's tail coefficients is attached inline when plotly's static
   export (kaleido with a local Chromium) works; the HTML part always has the table.
+- The run's report says how many were pending, attempted, sent, failed (to be retried),
+  refused for good and deferred, and how many are late: still undelivered more than
+  ``alerts.late_after_minutes`` after they were queued (the command then exits 1).
 """
 
 from __future__ import annotations
@@ -21,6 +31,7 @@ import hashlib
 import os
 import smtplib
 import ssl
+import uuid
 from collections.abc import Callable
 from dataclasses import dataclass
 from email.message import EmailMessage
@@ -29,27 +40,56 @@ from email.utils import format_datetime, make_msgid
 from monitor.common.errors import InputError
 from monitor.config import Config
 
-#: Longest wait between attempts.
-MAX_RETRY = dt.timedelta(hours=6)
+#: Longest wait between attempts while the server keeps failing.
+MAX_RETRY = dt.timedelta(minutes=30)
 SMTP_TIMEOUT = 20.0
 
 
 @dataclass(frozen=True, slots=True)
 class SendReport:
-    """What one ``alerts send`` run did."""
+    """What one ``alerts send`` run did.
 
+    Attributes
+    ----------
+    pending : int
+        Messages waiting when the run started.
+    due : int
+        Messages this run tried (all pending when the server answered; those whose back-off
+        was over when it did not).
+    sent, failed, refused, deferred : int
+        Accepted by the server; failed and queued again; refused for good (state
+        ``failed``); not tried (server unreachable, back-off not over).
+    late : int
+        Still undelivered after the run and queued more than ``alerts.late_after_minutes``
+        ago.
+    dry_run : bool
+    errors : tuple of str
+        One line per distinct problem met.
+    """
+
+    pending: int
     due: int
     sent: int
     failed: int
+    refused: int
+    deferred: int
+    late: int
     dry_run: bool
     errors: tuple[str, ...] = ()
 
+    @property
+    def ok(self) -> bool:
+        """Nothing failed or was refused in this run, and nothing is late."""
+        return not (self.failed or self.refused or self.late)
+
     def lines(self) -> list[str]:
         if self.dry_run:
-            return [f"dry run: {self.due} message(s) would be sent; nothing was sent or changed"]
-        out = [f"alerts: {self.sent} of {self.due} due message(s) sent"]
-        if self.failed:
-            out.append(f"  {self.failed} failed and stay queued: {self.errors[0]}")
+            return [(f"dry run: {self.pending} pending message(s) would be tried; nothing "
+                     "was sent or changed")]
+        out = [(f"alerts: {self.pending} pending, {self.due} due: {self.sent} sent, "
+                f"{self.failed} failed (queued again), {self.refused} refused for good, "
+                f"{self.deferred} deferred; {self.late} late")]
+        out += [f"  {e}" for e in self.errors]
         return out
 
 
@@ -168,14 +208,14 @@ def send_pending(store, cfg: Config, *, dry_run: bool = False,
                  chart: Callable[[dict], bytes | None] | None = None,
                  echo: Callable[[str], None] = print, now: dt.datetime | None = None
                  ) -> SendReport:
-    """Deliver every pending outbox message that is due.
+    """Deliver the pending outbox messages (see the module notes for which are tried).
 
     Parameters
     ----------
     store : monitor.data.store.Store
     cfg : Config
     dry_run : bool
-        Print what would be sent (subjects and recipients); change nothing.
+        Print what would be tried (subjects and recipients); change nothing.
     chart : callable, optional
         Row -> PNG bytes or None (see :func:`monitor.alerts.charts.tail_chart`).
     echo : callable
@@ -186,76 +226,109 @@ def send_pending(store, cfg: Config, *, dry_run: bool = False,
     Raises
     ------
     InputError
-        Messages are due but no server, sender or recipients are configured, or a
+        Messages are pending but no server, sender or recipients are configured, or a
         credential variable is missing.
     """
     now = now or _utcnow()
-    rows = store.due_messages(now)
     if dry_run:
+        rows = store.pending_messages()
         e = cfg.alerts.email
         for r in rows:
             echo(f"would send {r['message_id']} to {', '.join(e.recipients) or '(none)'}: "
                  f"{r['subject']}")
-        return SendReport(len(rows), 0, 0, True)
-    if not rows:
-        return SendReport(0, 0, 0, False)
+        return SendReport(len(rows), 0, 0, 0, 0, 0, 0, True)
+    pending = store.undelivered_count()
+    if not pending:
+        return SendReport(0, 0, 0, 0, 0, 0, 0, False)
     e = cfg.alerts.email
     if not (e.host and e.sender and e.recipients):
-        raise InputError(f"{len(rows)} message(s) are due but alerts.email needs host, sender "
-                         "and recipients; nothing sent")
+        raise InputError(f"{pending} message(s) are pending but alerts.email needs host, "
+                         "sender and recipients; nothing sent")
     login = credentials(cfg)
-    batches = [rows] if cfg.alerts.digest else [[r] for r in rows]
+    token = uuid.uuid4().hex
     try:
         server = _connect(cfg, login)
     except Exception as exc:  # noqa: BLE001 - every failure is recorded and reported
         reason = _describe(exc, cfg)
-        _record_failure(store, rows, reason, cfg, now)
-        return SendReport(len(rows), 0, len(rows), False, (reason,))
-    sent = failed = 0
-    errors: list[str] = []
+        due = store.claim_messages(token, now, due_only=True)
+        store.release_messages(token, [_retry(m, reason, cfg, now) for m in due])
+        return _report(store, cfg, now, pending, len(due), 0, len(due), 0, (reason,))
+    claimed = store.claim_messages(token, now, due_only=False)
     try:
-        while batches:
-            members = batches[0]
-            if cfg.alerts.digest:
-                sent_as, msg = digest_message(cfg, members)
-            else:
-                sent_as = members[0]["message_id"]
-                msg = build_message(cfg, members[0], chart(members[0]) if chart else None)
-            try:
-                server.send_message(msg)
-            except Exception as exc:  # noqa: BLE001
-                reason = _describe(exc, cfg)
-                errors.append(reason)
-                # A lost connection fails everything still due; a refused message only itself.
-                lost = isinstance(exc, smtplib.SMTPServerDisconnected | OSError)
-                failing = [m for ms in batches for m in ms] if lost else members
-                _record_failure(store, failing, reason, cfg, now)
-                failed += len(failing)
-                if lost:
-                    break
-                batches.pop(0)
-                continue
-            _mark_sent(store, members, sent_as)
-            sent += len(members)
-            batches.pop(0)
+        sent, failed, refused, errors = _deliver(store, cfg, server, claimed, token, chart, now)
     finally:
         try:
             server.quit()
         except Exception:  # noqa: BLE001 - the messages are already accounted for
             server.close()
-    return SendReport(len(rows), sent, failed, False, tuple(errors))
+    return _report(store, cfg, now, pending, len(claimed), sent, failed, refused, errors)
 
 
-def _mark_sent(store, members: list[dict], sent_as: str) -> None:
-    store.mark_sent([m["message_id"] for m in members], sent_as, _utcnow())
+def _deliver(store, cfg: Config, server: smtplib.SMTP, claimed: list[dict], token: str,
+             chart: Callable[[dict], bytes | None] | None, now: dt.datetime
+             ) -> tuple[int, int, int, tuple[str, ...]]:
+    """Send the claimed messages (or their digest) one by one; returns (sent, failed,
+    refused, distinct errors). Every message ends sent, queued again or refused."""
+    batches = [claimed] if cfg.alerts.digest else [[r] for r in claimed]
+    sent = failed = refused = 0
+    errors: dict[str, None] = {}
+    for i, members in enumerate(batches):
+        try:
+            if cfg.alerts.digest:
+                sent_as, msg = digest_message(cfg, members)
+            else:
+                sent_as = members[0]["message_id"]
+                msg = build_message(cfg, members[0], chart(members[0]) if chart else None)
+        except Exception as exc:  # noqa: BLE001 - a message that cannot be built is refused
+            reason = f"cannot build the message: {type(exc).__name__}: {exc}"
+            store.release_messages(token, [_refuse(m, reason) for m in members])
+            refused += len(members)
+            errors[reason] = None
+            continue
+        try:
+            server.send_message(msg)
+        except Exception as exc:  # noqa: BLE001
+            reason = _describe(exc, cfg)
+            errors[reason] = None
+            if _permanent(exc):
+                store.release_messages(token, [_refuse(m, reason) for m in members])
+                refused += len(members)
+                continue
+            # A lost connection fails everything not tried yet; a temporary refusal only this.
+            lost = isinstance(exc, smtplib.SMTPServerDisconnected) or (
+                isinstance(exc, OSError) and not isinstance(exc, smtplib.SMTPException))
+            failing = [m for ms in batches[i:] for m in ms] if lost else members
+            store.release_messages(token, [_retry(m, reason, cfg, now) for m in failing])
+            failed += len(failing)
+            if lost:
+                break
+            continue
+        store.mark_sent([m["message_id"] for m in members], sent_as, _utcnow(), token)
+        sent += len(members)
+    return sent, failed, refused, tuple(errors)
 
 
-def _record_failure(store, members: list[dict], reason: str, cfg: Config,
-                    now: dt.datetime) -> None:
-    failures = []
-    for m in members:
-        attempts = int(m["attempts"]) + 1
-        wait = min(dt.timedelta(seconds=cfg.alerts.retry_seconds * 2 ** (attempts - 1)),
-                   MAX_RETRY)
-        failures.append((m["message_id"], attempts, reason[:500], now + wait))
-    store.record_failures(failures)
+def _permanent(exc: BaseException) -> bool:
+    """A 5xx answer: the server will refuse the message again (RFC 5321, section 4.2.1)."""
+    if isinstance(exc, smtplib.SMTPRecipientsRefused):
+        return all(code >= 500 for code, _ in exc.recipients.values())
+    return isinstance(exc, smtplib.SMTPResponseException) and exc.smtp_code >= 500
+
+
+def _retry(m: dict, reason: str, cfg: Config, now: dt.datetime
+           ) -> tuple[str, str, int, str, dt.datetime]:
+    """A failed attempt: pending again, due after the back-off."""
+    attempts = int(m["attempts"]) + 1
+    wait = min(dt.timedelta(seconds=cfg.alerts.retry_seconds * 2 ** (attempts - 1)), MAX_RETRY)
+    return m["message_id"], "pending", attempts, reason[:500], now + wait
+
+
+def _refuse(m: dict, reason: str) -> tuple[str, str, int, str, dt.datetime]:
+    """A message refused for good: state failed, its error kept."""
+    return m["message_id"], "failed", int(m["attempts"]) + 1, reason[:500], m["next_attempt"]
+
+
+def _report(store, cfg: Config, now: dt.datetime, pending: int, due: int, sent: int,
+            failed: int, refused: int, errors: tuple[str, ...]) -> SendReport:
+    late = store.undelivered_count(now - dt.timedelta(minutes=cfg.alerts.late_after_minutes))
+    return SendReport(pending, due, sent, failed, refused, pending - due, late, False, errors)

@@ -227,13 +227,16 @@ outbox = sa.Table(
     sa.Column("subject", sa.Text, nullable=False),
     sa.Column("body_text", sa.Text, nullable=False),
     sa.Column("body_html", sa.Text, nullable=False),
-    sa.Column("state", sa.String(8), nullable=False),  # pending, sent
+    sa.Column("state", sa.String(8), nullable=False),  # pending, sending, sent, failed
     sa.Column("attempts", sa.Integer, nullable=False),
     sa.Column("last_error", sa.Text),
     sa.Column("created", sa.DateTime, nullable=False),
     sa.Column("next_attempt", sa.DateTime, nullable=False),
     sa.Column("sent_at", sa.DateTime),
     sa.Column("sent_as", sa.String(128)),  # the Message-ID it went out under (digests)
+    # the sender holding a message while it is being sent (state "sending"), and since when
+    sa.Column("claimed_by", sa.String(64)),
+    sa.Column("claimed_at", sa.DateTime),
 )
 
 

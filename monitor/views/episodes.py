@@ -59,8 +59,9 @@ EPISODE_COLUMNS = (
 #: Documented columns of the alert outbox (the ``outbox`` store table, issue 6).
 OUTBOX_COLUMNS = ("created", "pair", "tail", "rule", "kind", "event_date", "subject", "state",
                   "attempts", "last_error", "next_attempt", "sent_at")
-#: States of an outbox row (a failed delivery stays pending, with its error and attempts).
-OUTBOX_STATES = ("pending", "sent")
+#: States of an outbox row (a temporary failure stays pending, with its error and attempts;
+#: "sending" while a sender holds it; "failed" when refused for good).
+OUTBOX_STATES = ("pending", "sending", "sent", "failed")
 
 #: Columns of :func:`rules_table`.
 RULE_COLUMNS = ("group", "setting", "value", "meaning", "calibration")

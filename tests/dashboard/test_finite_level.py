@@ -16,11 +16,11 @@ import pytest
 
 from callbacks.board import show_board
 from callbacks.timeline import show_pair
+from layouts.drilldown import results
 from monitor.alerts.rules import compose_pair
 from monitor.common.wording import finite_level_note
 from monitor.stats.empirical import pseudo_observations, tail_dependence
 from monitor.views.drilldown import study_pair, tail_figure, tail_table
-from layouts.drilldown import results
 from monitor.views.report import report_html
 from monitor.views.timeline import pair_history, timeline_figure
 
