@@ -20,6 +20,7 @@ import pandas as pd
 from monitor.common.errors import InputError
 from monitor.common.wording import CAUTION
 from monitor.config import Config, load_config
+from monitor.data.tables import FORMULA_STARTS
 
 
 class _Parser(argparse.ArgumentParser):
@@ -114,6 +115,9 @@ def _add_ingest(sub) -> None:
     p.add_argument("--accept-revisions", action="store_true",
                    help="replace stored values that differ, keeping the old ones in the audit "
                         "table (default: refuse)")
+    p.add_argument("--accept-outliers", action="store_true",
+                   help="store returns beyond ingest.max_abs_log_return (default 1.0) instead "
+                        "of refusing the file; they are named in the ingest history")
     p.add_argument("--sql", metavar="URL", help="read from a database (SQLAlchemy URL) instead")
     grp = p.add_mutually_exclusive_group()
     grp.add_argument("--table", help="with --sql: a table to read whole")
@@ -313,21 +317,35 @@ def _cmd_ingest(args: argparse.Namespace, cfg: Config) -> int:
             raise InputError("--sep, --decimal, --thousands, --date-format and --columns go "
                              "with files (a SQL source's cells are typed)")
         sources = [read_sql_table_source(args.sql, args.kind, query=args.query,
-                                         table=args.table)]
+                                         table=args.table, limits=cfg.ingest,
+                                         accept_outliers=args.accept_outliers)]
     else:
         if not args.files:
             raise InputError("name at least one file (or --sql)")
         options = _read_options(args)
         paths = [p for pattern in args.files for p in expand_paths(pattern)]
         # Every source is read and checked before the store is opened.
-        sources = [read_file_source(p, args.kind, options) for p in paths]
+        sources = [read_file_source(p, args.kind, options, cfg.ingest,
+                                    accept_outliers=args.accept_outliers) for p in paths]
     with Store(cfg.store.url) as store:
         for report in ingest_sources(store, sources, accept_revisions=args.accept_revisions):
             print("\n".join(report.lines()))
     return 0
 
 
+def _defused(value):
+    """A text cell a spreadsheet would run as a formula, with a leading apostrophe (OWASP,
+    "CSV Injection"); numbers and other cells unchanged. Ingest refuses such asset names;
+    this covers a store written before it did."""
+    if isinstance(value, str) and value.startswith(FORMULA_STARTS):
+        return "'" + value
+    return value
+
+
 def _write_csv(frame, out: str | None) -> None:
+    frame = frame.rename(columns=_defused)
+    for col in frame.columns[frame.dtypes == object]:
+        frame[col] = frame[col].map(_defused)
     text = frame.to_csv(date_format="%Y-%m-%d")  # floats as the shortest exact repr
     if out:
         try:

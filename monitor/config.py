@@ -8,6 +8,7 @@ falls back to a default.
 
 from __future__ import annotations
 
+import datetime as dt
 import os
 import re
 import tomllib
@@ -16,7 +17,7 @@ from pathlib import Path
 from typing import Any
 
 from monitor.common.errors import InputError
-from monitor.data.tables import ReadOptions, read_options
+from monitor.data.tables import NAME_CHARS_CAP, Limits, ReadOptions, read_options
 from monitor.stats.copulas import FAMILY_NAMES
 from monitor.stats.rolling import RollingSettings
 
@@ -137,6 +138,8 @@ class SourceConfig:
     query: str = ""
     kind: str = "prices"
     accept_revisions: bool = False
+    #: Store returns beyond ``ingest.max_abs_log_return`` (as ``ingest --accept-outliers``).
+    accept_outliers: bool = False
     #: Reading options of a file source (see :class:`monitor.data.tables.ReadOptions`).
     sep: str = ","
     decimal: str = "."
@@ -164,6 +167,8 @@ class Config:
     marginals: MarginalsConfig = field(default_factory=MarginalsConfig)
     compute: ComputeConfig = field(default_factory=ComputeConfig)
     alerts: AlertsConfig = field(default_factory=AlertsConfig)
+    #: ``[ingest]``: the limits every input is read within (:class:`monitor.data.tables.Limits`).
+    ingest: Limits = field(default_factory=Limits)
     sources: tuple[SourceConfig, ...] = ()
     source: str = "defaults"
 
@@ -173,7 +178,7 @@ _TABLE_ARRAYS: dict[tuple[type, str], type] = {(AlertsConfig, "rules"): AlertRul
 
 _SECTIONS: dict[str, type] = {
     "store": StoreConfig, "rolling": RollingConfig, "marginals": MarginalsConfig,
-    "compute": ComputeConfig, "alerts": AlertsConfig, "sources": SourceConfig,
+    "compute": ComputeConfig, "alerts": AlertsConfig, "ingest": Limits, "sources": SourceConfig,
 }
 
 
@@ -195,6 +200,13 @@ def _coerce(where: str, value: Any, default: Any) -> Any:
         if not isinstance(value, str):
             raise InputError(f"{where} must be a string, got {value!r}")
         return value
+    if isinstance(default, dt.date):
+        if isinstance(value, dt.datetime) or not isinstance(value, dt.date | str):
+            raise InputError(f"{where} must be a date (YYYY-MM-DD), got {value!r}")
+        try:
+            return value if isinstance(value, dt.date) else dt.date.fromisoformat(value)
+        except ValueError:
+            raise InputError(f"{where} must be a date (YYYY-MM-DD), got {value!r}") from None
     if isinstance(default, tuple):
         if not isinstance(value, list) or not all(isinstance(x, str) for x in value):
             raise InputError(f"{where} must be a list of strings, got {value!r}")
@@ -283,6 +295,17 @@ def _validate(cfg: Config, path: str) -> None:
                          f"got {m.mode!r}")
     if m.refit_every < 1:
         raise InputError(f"{path}: marginals.refit_every must be at least 1, got {m.refit_every}")
+    g = cfg.ingest
+    for name in ("max_megabytes", "max_columns", "max_line_bytes", "max_name_chars",
+                 "max_abs_log_return"):
+        if not getattr(g, name) > 0:
+            raise InputError(f"{path}: ingest.{name} must be positive, got {getattr(g, name)}")
+    if g.max_name_chars > NAME_CHARS_CAP:
+        raise InputError(f"{path}: ingest.max_name_chars must be at most {NAME_CHARS_CAP} (the "
+                         f"longest asset name every store column holds), got {g.max_name_chars}")
+    if g.max_future_days < 0:
+        raise InputError(f"{path}: ingest.max_future_days must be 0 or more, "
+                         f"got {g.max_future_days}")
     c = cfg.compute
     if c.backend not in ("local", "dask"):
         raise InputError(f"{path}: compute.backend must be \"local\" or \"dask\", got {c.backend!r}")

@@ -493,9 +493,14 @@ def test_returns_are_stored_as_given(store_url, tmp_path, run):
                 "2021-03-03,0.0,",
                 "2021-03-04,2.5,-3.25e-05")
     path = write(tmp_path, "returns.csv", text)
+    # 2.5 is beyond the plausibility bound (|r| > 1): stored with --accept-outliers, named.
     code, out, err = run("ingest", path, "--kind", "returns", "--store", store_url)
+    assert code == 2 and "2021-03-04, column 'OAK': implausible log return 2.5" in err
+    code, out, err = run("ingest", path, "--kind", "returns", "--accept-outliers",
+                         "--store", store_url)
     assert (code, err) == (0, "")
     assert "stored 7 new value(s) (returns)" in out
+    assert "1 implausible return(s) stored with --accept-outliers (|r| > 1): OAK 2021-03-04" in out
     # Exactly the given numbers, including the first date (no differencing).
     expected = {(a, d.date()): v for (d, a), v in frame_of(text).stack().dropna().items()}
     assert stored(store_url, returns_table) == expected

@@ -226,12 +226,19 @@ def test_csv_refusals_name_file_and_place(tmp_path, name, content, message):
 
 
 def test_line_numbers_count_blank_lines_and_quoted_line_breaks(tmp_path):
-    # Line 1-2: header whose second name holds a quoted line break; line 3: blank;
-    # lines 4-5: good rows; line 6: the bad cell.
+    # Lines 1-2: a quoted line break inside the header's second name, which is then refused
+    # (issue 14: a name with a control character would reach e-mail headers and the store).
     text = 'date,"ALDER\nclose"\n\n2021-03-01,1\n2021-03-02,2\n2021-03-03,oops\n'
     path = write(tmp_path, "lines.csv", text)
+    with pytest.raises(InputError, match=at(path, r": column 2: asset name 'ALDER\\nclose' "
+                                                  r"holds the control character '\\n'")):
+        read_series(path)
+    # Line 1: header; lines 2-3: a date cell with a quoted line break (read, once trimmed);
+    # line 4 blank; line 5 good; line 6 the bad cell: lines are counted through both.
+    text = 'date,ALDER\n"2021-03-01\n",1\n\n2021-03-02,2\n2021-03-03,oops\n'
+    path = write(tmp_path, "lines2.csv", text)
     with pytest.raises(InputError, match=at(path, r": line 6 \(2021-03-03\), column "
-                                                  r"'ALDER\\nclose': 'oops'")):
+                                                  r"'ALDER': 'oops'")):
         read_series(path)
 
 

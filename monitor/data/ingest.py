@@ -35,19 +35,55 @@ from monitor.data.store import (
     values_differ,
 )
 from monitor.data.store_base import utc_now
-from monitor.data.tables import ReadOptions, log_returns, read_series, read_sql_source
+from monitor.data.tables import (
+    DEFAULT_LIMITS,
+    Limits,
+    ReadOptions,
+    check_returns,
+    log_returns,
+    read_sql_source,
+    read_table,
+)
 
 KINDS = ("prices", "returns")
 
 
 @dataclass(frozen=True, slots=True)
 class Source:
-    """One validated input: its name, checksum, kind and wide frame."""
+    """One validated input: its name, checksum, kind and wide frame; the limits it was read
+    within, whether implausible returns are stored anyway (``--accept-outliers``), the date of
+    a last line without a line ending, and the outliers and notes found so far."""
 
     name: str
     checksum: str
     kind: str
     frame: pd.DataFrame = field(repr=False)
+    limits: Limits = DEFAULT_LIMITS
+    accept_outliers: bool = False
+    open_end: pd.Timestamp | None = None
+    outliers: tuple[tuple[pd.Timestamp, str, float], ...] = ()
+    notes: tuple[str, ...] = ()
+    #: Accept values that differ from stored ones for this source alone (a ``[[sources]]``
+    #: entry's ``accept_revisions``).
+    accept_revisions: bool = False
+
+
+def _checked(name: str, checksum: str, kind: str, frame: pd.DataFrame, limits: Limits,
+             accept: bool, open_end: pd.Timestamp | None = None) -> Source:
+    """A Source whose in-file returns (derived from prices, or given) passed
+    :func:`~monitor.data.tables.check_returns`."""
+    if kind == "prices":
+        rets = log_returns(frame, name)  # refuses zero, negative and non-finite prices
+        what = "log return implied by the prices"
+    else:
+        rets, what = frame, "log return"
+    found = check_returns(rets, name, limits, accept=accept, open_end=open_end, what=what)
+    notes: tuple[str, ...] = ()
+    if open_end is not None:
+        note = (f"the file did not end with a line ending; its last line ({open_end.date()}) "
+                "passed the plausibility checks")
+        notes = (note,)
+    return Source(name, checksum, kind, frame, limits, accept, open_end, tuple(found), notes)
 
 
 @dataclass(frozen=True, slots=True)
@@ -105,6 +141,7 @@ class IngestReport:
     revised_values: int
     coverage: Coverage
     ingest_id: int | None
+    notes: tuple[str, ...] = ()
 
     def lines(self) -> list[str]:
         head = {
@@ -115,32 +152,38 @@ class IngestReport:
             "unchanged": f"{self.source}: nothing new ({self.rows} rows already stored); "
                          "the store is unchanged",
         }[self.outcome]
-        return [head, *self.coverage.lines()]
+        return [head, *self.coverage.lines(), *(f"  note: {n}" for n in self.notes)]
 
 
-def read_file_source(path: str | Path, kind: str, options: ReadOptions | None = None
-                     ) -> Source:
-    """Read and fully validate one file (nothing is stored yet); ``options`` as in
-    :func:`monitor.data.tables.read_series`."""
+def read_file_source(path: str | Path, kind: str, options: ReadOptions | None = None,
+                     limits: Limits | None = None, *, accept_outliers: bool = False) -> Source:
+    """Read and fully validate one file (nothing is stored yet).
+
+    ``options`` as in :func:`monitor.data.tables.read_series`; ``limits`` as in
+    :func:`monitor.data.tables.read_table`; ``accept_outliers`` stores returns beyond
+    ``limits.max_abs_log_return`` instead of refusing the file (they are recorded with the
+    ingest), except on a last line without a line ending.
+    """
     if kind not in KINDS:
         raise InputError(f"--kind must be prices or returns, got {kind!r}")
     path = Path(path)
-    frame = read_series(path, options)
-    if kind == "prices":
-        log_returns(frame, str(path))  # refuses zero, negative and non-finite prices
-    return Source(str(path), checksum_bytes(path.read_bytes()), kind, frame)
+    limits = limits or DEFAULT_LIMITS
+    table = read_table(path, options, limits)
+    return _checked(str(path), checksum_bytes(path.read_bytes()), kind, table.frame, limits,
+                    accept_outliers, table.open_end)
 
 
 def read_sql_table_source(url: str, kind: str, *, query: str | None = None,
-                          table: str | None = None) -> Source:
-    """Read and validate a SQL source (nothing is stored yet)."""
+                          table: str | None = None, limits: Limits | None = None,
+                          accept_outliers: bool = False) -> Source:
+    """Read and validate a SQL source (nothing is stored yet); ``limits`` and
+    ``accept_outliers`` as in :func:`read_file_source`."""
     if kind not in KINDS:
         raise InputError(f"--kind must be prices or returns, got {kind!r}")
-    frame = read_sql_source(url, query=query, table=table)
-    name = f"sql {table or 'query'}"
-    if kind == "prices":
-        log_returns(frame, name)
-    return Source(name, frame_checksum(frame), kind, frame)
+    limits = limits or DEFAULT_LIMITS
+    frame = read_sql_source(url, query=query, table=table, limits=limits)
+    return _checked(f"sql {table or 'query'}", frame_checksum(frame), kind, frame, limits,
+                    accept_outliers)
 
 
 def expand_paths(pattern: str) -> list[str]:
@@ -174,7 +217,8 @@ def ingest_sources(store: Store, sources: list[Source], *, accept_revisions: boo
     reports = []
     with store.transaction() as conn:
         for src in sources:
-            reports.append(_ingest_one(store, conn, src, accept_revisions))
+            reports.append(_ingest_one(store, conn, src,
+                                       accept_revisions or src.accept_revisions))
     return reports
 
 
@@ -207,9 +251,11 @@ def _ingest_one(store: Store, conn, src: Source, accept: bool) -> IngestReport:
     cov = coverage(wide)
     first, last = wide.index.min().date(), wide.index.max().date()
 
+    notes = list(src.notes)
+
     def report(outcome, new=0, revised=0, ingest_id=None):
         return IngestReport(src.name, src.kind, outcome, len(wide), tuple(assets), first, last,
-                            new, revised, cov, ingest_id)
+                            new, revised, cov, ingest_id, tuple(notes))
 
     table = prices if src.kind == "prices" else returns
     stored = store.stored_values(conn, table, assets)
@@ -220,18 +266,27 @@ def _ingest_one(store: Store, conn, src: Source, accept: bool) -> IngestReport:
         _refuse_revision(src, changed, "price" if src.kind == "prices" else "return")
     if new_rows.empty and changed.empty:
         return report("unchanged")
+    upserts = pd.concat([new_rows, changed.rename(columns={"new": "value"})[
+        ["asset", "date", "value"]]])
+    derived = None
+    outliers = set(src.outliers)
+    if src.kind == "prices":
+        touched = upserts.groupby("asset")["date"].min()
+        derived = _derive_returns(store, conn, src, touched, accept, upserts)
+        outliers |= set(derived[2])
+    if outliers:
+        shown = ", ".join(f"{a} {d.date()} {v:.4g}" for d, a, v in sorted(outliers)[:5])
+        notes.append(f"{len(outliers)} implausible return(s) stored with --accept-outliers "
+                     f"(|r| > {src.limits.max_abs_log_return:g}): {shown}")
     ingest_id = store.insert_ingest(
         conn, source=src.name, checksum=src.checksum, kind=src.kind, rows=len(wide),
         assets=json.dumps(assets), first_date=first, last_date=last,
         new_values=len(new_rows), revised_values=len(changed), started_at=started,
-        outcome="stored", summary="; ".join(cov.lines()) or "no gaps")
-    upserts = pd.concat([new_rows, changed.rename(columns={"new": "value"})[
-        ["asset", "date", "value"]]])
-    if src.kind == "prices":
+        outcome="stored", summary="; ".join([*cov.lines(), *notes]) or "no gaps")
+    if derived is not None:
         store.upsert_values(conn, prices, upserts, {"ingest_id": ingest_id})
         store.record_revisions(conn, ingest_id, "prices", changed)
-        touched = upserts.groupby("asset")["date"].min()
-        derived_new, derived_changed = _derive_returns(store, conn, src, touched, accept)
+        derived_new, derived_changed, _ = derived
         store.upsert_values(conn, returns, derived_new, {"origin": "prices",
                                                          "ingest_id": ingest_id})
         store.upsert_values(conn, returns, derived_changed.rename(columns={"new": "value"}),
@@ -278,15 +333,20 @@ def _refuse_lone_prices(src: Source, tidy: pd.DataFrame, stored: pd.DataFrame,
                 "needs each asset's previous close); a new asset needs a history file first")
 
 
-def _derive_returns(store: Store, conn, src: Source, touched: pd.Series, accept: bool):
-    """Log returns implied by the stored prices (now including this source) of the touched
-    assets, from the first touched date on; split into new and differing ones."""
+def _derive_returns(store: Store, conn, src: Source, touched: pd.Series, accept: bool,
+                    upserts: pd.DataFrame):
+    """Log returns implied by the stored prices with this source's ``upserts`` (not written
+    yet) of the touched assets, from the first touched date on: (new rows, differing rows,
+    the implausible ones stored with ``--accept-outliers``). A return against the previous
+    stored close is checked as the source's own are (a one-day file's only returns)."""
     assets = list(touched.index)
     first = pd.Timestamp(touched.min()).date()
     # Only the prices the touched returns need: a daily append reads a few days, not the
     # whole history (each return uses its asset's previous price, however far back).
     stored_prices = store.read_prices(assets, conn, since=store.last_price_date_before(
         conn, assets, first) or first)
+    incoming = upserts.pivot(index="date", columns="asset", values="value")
+    stored_prices = incoming.combine_first(stored_prices).sort_index()
     rets = log_returns(stored_prices, src.name)
     tidy = as_tidy(rets)
     since = tidy["asset"].map(touched)
@@ -295,4 +355,9 @@ def _derive_returns(store: Store, conn, src: Source, touched: pd.Series, accept:
     new_rows, changed = _compare(store.stored_values(conn, returns, assets, since=first), tidy)
     if len(changed) and not accept:
         _refuse_revision(src, changed, "the log return implied by the prices,")
-    return new_rows, changed
+    fresh = pd.concat([new_rows, changed.rename(columns={"new": "value"})[
+        ["asset", "date", "value"]]])
+    found = check_returns(fresh.pivot(index="date", columns="asset", values="value"),
+                          src.name, src.limits, accept=src.accept_outliers,
+                          open_end=src.open_end, what="log return implied by the prices")
+    return new_rows, changed, found

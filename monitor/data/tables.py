@@ -43,6 +43,59 @@ _SEPARATORS = (";", "\t", "|", ",")
 #: Thousands separators accepted (none, comma, point, space, apostrophe, underscore).
 _THOUSANDS = ("", ",", ".", " ", "'", "_")
 _ROLES = ("date", "asset", "value")
+#: First characters a spreadsheet reads as the start of a formula (OWASP, "CSV Injection").
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+#: Longest asset name every store column holds (the outbox keeps names in 64 characters).
+NAME_CHARS_CAP = 64
+
+
+@dataclass(frozen=True, slots=True)
+class Limits:
+    """What one input may hold (``[ingest]`` in comove.toml); inputs beyond are refused.
+
+    Parameters
+    ----------
+    max_megabytes : float
+        Largest file.
+    max_columns : int
+        Most columns of a file or SQL source.
+    max_line_bytes : int
+        Longest line of a CSV file.
+    max_name_chars : int
+        Longest asset name, at most :data:`NAME_CHARS_CAP`.
+    first_date : date
+        Earliest date accepted.
+    max_future_days : int
+        Latest date accepted: this many days after today (UTC).
+    max_abs_log_return : float
+        Largest |log return| stored without ``--accept-outliers`` (1.0: a price falling to
+        37% or rising to 272% of the day before).
+    """
+
+    max_megabytes: float = 256.0
+    max_columns: int = 2000
+    max_line_bytes: int = 100_000
+    max_name_chars: int = NAME_CHARS_CAP
+    first_date: dt.date = dt.date(1900, 1, 1)
+    max_future_days: int = 1
+    max_abs_log_return: float = 1.0
+
+    @property
+    def last_date(self) -> dt.date:
+        """The latest date accepted today."""
+        return dt.datetime.now(dt.UTC).date() + dt.timedelta(days=self.max_future_days)
+
+
+DEFAULT_LIMITS = Limits()
+
+
+@dataclass(frozen=True, slots=True)
+class Table:
+    """A checked input (:func:`read_table`): the wide frame, and the date of the row on a
+    last line without a line ending (None when the file ended with one, or is not CSV)."""
+
+    frame: pd.DataFrame
+    open_end: pd.Timestamp | None = None
 
 
 @dataclass(frozen=True, slots=True)
@@ -319,8 +372,18 @@ def _parse_numbers(raw: pd.Series, path: str, column: str, dates: pd.DatetimeInd
     return values
 
 
-def _read_csv(path: Path, data: bytes, options: ReadOptions = DEFAULT_OPTIONS
-              ) -> tuple[pd.DataFrame, np.ndarray]:
+def _check_lines(path: Path, data: bytes, limits: Limits) -> None:
+    """Refuse a line longer than ``limits.max_line_bytes`` (before the CSV reader sees it)."""
+    ends = np.flatnonzero(np.frombuffer(data, dtype=np.uint8) == 10)
+    lengths = np.diff(np.concatenate([[-1], ends, [len(data)]])) - 1
+    k = int(np.argmax(lengths))
+    if lengths[k] > limits.max_line_bytes:
+        raise InputError(f"{path}: line {k + 1}: {int(lengths[k])} bytes, longer than the limit "
+                         f"{limits.max_line_bytes} (ingest.max_line_bytes)")
+
+
+def _read_csv(path: Path, data: bytes, options: ReadOptions = DEFAULT_OPTIONS,
+              limits: Limits = DEFAULT_LIMITS) -> tuple[pd.DataFrame, np.ndarray]:
     """Cells of a CSV file as text, with the file line of every data row.
 
     The csv module rather than pandas' reader, because pandas renames a repeated header name
@@ -334,6 +397,7 @@ def _read_csv(path: Path, data: bytes, options: ReadOptions = DEFAULT_OPTIONS
         line = data[:exc.start].count(b"\n") + 1
         raise InputError(f"{path}: line {line}: not UTF-8 text, expected CSV or "
                          "Parquet") from None
+    _check_lines(path, data, limits)
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=options.sep,
                         skipinitialspace=options.sep != " ", strict=True)
     header: list[str] | None = None
@@ -348,6 +412,7 @@ def _read_csv(path: Path, data: bytes, options: ReadOptions = DEFAULT_OPTIONS
             if header is None:
                 header = row
                 _check_separator(path, first, header, options)
+                _check_width(path, len(header), limits)
                 continue
             if len(row) != len(header):
                 raise InputError(f"{path}: line {first}: {len(row)} fields where the header "
@@ -363,6 +428,12 @@ def _read_csv(path: Path, data: bytes, options: ReadOptions = DEFAULT_OPTIONS
     return frame, np.asarray(lines, dtype=int)
 
 
+def _check_width(path: Path | str, columns: int, limits: Limits) -> None:
+    if columns > limits.max_columns:
+        raise InputError(f"{path}: {columns} columns, more than the limit {limits.max_columns} "
+                         "(ingest.max_columns)")
+
+
 def _check_separator(path: Path, line: int, header: list[str], options: ReadOptions) -> None:
     """A header read as one column that holds another separator: name the option."""
     if len(header) != 1:
@@ -375,13 +446,19 @@ def _check_separator(path: Path, line: int, header: list[str], options: ReadOpti
                              f"{options.suggest('sep', sep)}")
 
 
-def _read_raw(path: Path, options: ReadOptions = DEFAULT_OPTIONS
-              ) -> tuple[pd.DataFrame, np.ndarray | None]:
-    """The file's cells and, for a CSV, the file line of each row (None for Parquet)."""
+def _read_raw(path: Path, options: ReadOptions = DEFAULT_OPTIONS,
+              limits: Limits = DEFAULT_LIMITS
+              ) -> tuple[pd.DataFrame, np.ndarray | None, bool]:
+    """The file's cells, for a CSV the file line of each row (None for Parquet), and whether
+    a CSV's last line lacks a line ending."""
     if not path.exists():
         raise InputError(f"{path}: file not found")
     if not path.is_file():
         raise InputError(f"{path}: not a file")
+    size = path.stat().st_size
+    if size > limits.max_megabytes * 2**20:
+        raise InputError(f"{path}: {size / 2**20:.1f} MB, larger than the limit "
+                         f"{limits.max_megabytes:g} MB (ingest.max_megabytes)")
     data = path.read_bytes()
     if not data:
         raise InputError(f"{path}: file is empty")
@@ -397,10 +474,38 @@ def _read_raw(path: Path, options: ReadOptions = DEFAULT_OPTIONS
         if any(name is not None for name in frame.index.names):
             # A frame saved together with its date index comes back with it as the index.
             frame = frame.reset_index()
-        return frame, None
+        return frame, None, False
     if b"\x00" in data:
         raise InputError(f"{path}: binary file, expected CSV or Parquet")
-    return _read_csv(path, data, options)
+    frame, lines = _read_csv(path, data, options, limits)
+    return frame, lines, not data.endswith((b"\n", b"\r"))
+
+
+def _check_name(name: str, where: str, limits: Limits) -> None:
+    """Refuse an asset name the store, an e-mail header or a spreadsheet would mishandle."""
+    shown = _show(name, 24)
+    if not name.isprintable():
+        bad = next(ch for ch in name if not ch.isprintable())
+        raise InputError(f"{where}: asset name {shown} holds the control character "
+                         f"{bad!r}; names must be printable text")
+    if len(name) > limits.max_name_chars:
+        raise InputError(f"{where}: asset name {shown} has {len(name)} characters, more than "
+                         f"the limit {limits.max_name_chars} (ingest.max_name_chars)")
+    if name.startswith(FORMULA_STARTS):
+        raise InputError(f"{where}: asset name {shown} starts with {name[0]!r}, which a "
+                         "spreadsheet reads as a formula; rename the asset")
+
+
+def _check_date_range(dates: pd.DatetimeIndex, path: str | Path, lines: np.ndarray | None,
+                      limits: Limits) -> None:
+    """Refuse dates before ``limits.first_date`` or after ``limits.last_date``."""
+    low, high = pd.Timestamp(limits.first_date), pd.Timestamp(limits.last_date)
+    bad = np.flatnonzero((dates < low) | (dates > high))
+    if bad.size:
+        i = int(bad[0])
+        raise InputError(f"{path}: {_where(i, lines)}: date {dates[i].date()} is outside the "
+                         f"plausible range {low.date()} to {high.date()} (ingest.first_date, "
+                         "ingest.max_future_days)")
 
 
 def _check_header(names: list[str], path: str | Path) -> None:
@@ -450,10 +555,26 @@ def read_series(path: str | Path, options: ReadOptions | None = None) -> pd.Data
     A single row (one date) is a valid file: whether it gives returns depends on what is
     already stored (see :func:`monitor.data.ingest.ingest_sources`).
     """
+    return read_table(path, options).frame
+
+
+def read_table(path: str | Path, options: ReadOptions | None = None,
+               limits: Limits | None = None) -> Table:
+    """:func:`read_series` within ``limits`` (default :data:`DEFAULT_LIMITS`: file size,
+    columns, line length, asset names, date range), and where a CSV's last line has no line
+    ending, the date of its row (a file cut short in transfer ends that way)."""
     path = Path(path)
     options = options or DEFAULT_OPTIONS
-    frame, lines = _read_raw(path, options)
-    return tidy_frame(frame, path, lines, options)
+    limits = limits or DEFAULT_LIMITS
+    frame, lines, open_end = _read_raw(path, options, limits)
+    last_row = None
+    if open_end and lines is not None and len(lines):
+        k = int(np.argmax(lines))
+        last_row = (frame.iloc[[k]].copy(), lines[[k]])
+    wide = tidy_frame(frame, path, lines, options, limits)
+    last = None if last_row is None else pd.Timestamp(
+        tidy_frame(*last_row[:1], path, last_row[1], options, limits).index[0])
+    return Table(wide, last)
 
 
 def _map_columns(frame: pd.DataFrame, names: list[str], path: str | Path,
@@ -493,14 +614,17 @@ def _map_columns(frame: pd.DataFrame, names: list[str], path: str | Path,
 
 
 def tidy_frame(frame: pd.DataFrame, path: str | Path, lines: np.ndarray | None = None,
-               options: ReadOptions | None = None) -> pd.DataFrame:
+               options: ReadOptions | None = None, limits: Limits | None = None
+               ) -> pd.DataFrame:
     """Check a raw table of cells (wide or long, as read from a file or a SQL query) and
     return the wide frame :func:`read_series` describes; ``path`` names the source in
     messages and ``lines`` gives each row's file line (None: rows are numbered from 1);
-    ``options`` as in :func:`read_series`."""
+    ``options`` as in :func:`read_series`, ``limits`` as in :func:`read_table`."""
     options = options or DEFAULT_OPTIONS
+    limits = limits or DEFAULT_LIMITS
     if frame.shape[1] == 0:
         raise InputError(f"{path}: file is empty")
+    _check_width(path, frame.shape[1], limits)
     if frame.shape[0] == 0:
         raise InputError(f"{path}: header only, no data rows")
     names = [str(c).strip() for c in frame.columns]
@@ -513,12 +637,16 @@ def tidy_frame(frame: pd.DataFrame, path: str | Path, lines: np.ndarray | None =
                          f"{options.suggest('columns', 'date=' + names[0])} if {names[0]!r} "
                          "holds the dates")
     dates = _parse_dates(frame[lower["date"]], str(path), lines, options)
+    _check_date_range(dates, path, lines, limits)
     long = set(lower) == {"date", "asset", "value"} and len(names) == 3
     if long:
         assets = frame[lower["asset"]].astype("string").str.strip().fillna("")
         blank = np.flatnonzero((assets == "").to_numpy())
         if blank.size:
             raise InputError(f"{path}: {_where(int(blank[0]), lines)}: empty asset name")
+        for name, first_row in zip(*np.unique(assets.to_numpy(dtype=object),
+                                              return_index=True), strict=True):
+            _check_name(str(name), f"{path}: {_where(int(first_row), lines)}", limits)
         values = _parse_numbers(frame[lower["value"]], str(path), "value", dates, lines,
                                 options)
         tidy = pd.DataFrame({"date": dates, "asset": assets.to_numpy(dtype=object),
@@ -539,6 +667,9 @@ def tidy_frame(frame: pd.DataFrame, path: str | Path, lines: np.ndarray | None =
         cols = [c for c in names if c != lower["date"]]
         if not cols:
             raise InputError(f"{path}: no asset columns besides 'date'")
+        for k, c in enumerate(names):
+            if c in cols:
+                _check_name(c, f"{path}: column {k + 1}", limits)
         data = {}
         date_name = dict(options.columns).get("date", lower["date"])
         for c in cols:
@@ -566,6 +697,56 @@ def tidy_frame(frame: pd.DataFrame, path: str | Path, lines: np.ndarray | None =
     elif empty:
         raise InputError(f"{path}: column {empty[0]!r} has no values")
     return wide.astype(float)
+
+
+def check_returns(rets: pd.DataFrame, source: str, limits: Limits, *, accept: bool = False,
+                  open_end: pd.Timestamp | None = None, what: str = "log return"
+                  ) -> list[tuple[pd.Timestamp, str, float]]:
+    """Refuse implausible returns: |r| above ``limits.max_abs_log_return``.
+
+    Parameters
+    ----------
+    rets : DataFrame
+        Wide log returns (date x asset), NaN where there is none.
+    source : str
+        Named in the message.
+    limits : Limits
+    accept : bool
+        Store them anyway (``--accept-outliers``): they are returned for the ingest record.
+    open_end : Timestamp, optional
+        The date of a last line without a line ending: its returns are refused even with
+        ``accept`` (a file cut short inside a number reads as a plausible-looking price).
+    what : str
+        What the values are, for the message.
+
+    Returns
+    -------
+    list of (Timestamp, str, float)
+        The outliers accepted, by date then asset.
+
+    Raises
+    ------
+    InputError
+        The first outlier not accepted, naming date, column and value.
+    """
+    values = rets.to_numpy(dtype=float)
+    with np.errstate(invalid="ignore"):
+        big = np.abs(values) > limits.max_abs_log_return
+    rows, cols = np.nonzero(big)
+    found = sorted((rets.index[i], str(rets.columns[j]), float(values[i, j]))
+                   for i, j in zip(rows, cols, strict=True))
+    bound = f"|r| > {limits.max_abs_log_return:g}, ingest.max_abs_log_return"
+    for day, asset, value in found:
+        if open_end is not None and day == open_end:
+            raise InputError(f"{source}: {day.date()}, column {asset!r}: implausible {what} "
+                             f"{value:.4g} ({bound}) on the last line, which has no line "
+                             "ending: the file looks cut short; send it again")
+    if found and not accept:
+        day, asset, value = found[0]
+        raise InputError(f"{source}: {day.date()}, column {asset!r}: implausible {what} "
+                         f"{value:.4g} ({bound}; {len(found)} such value(s)); check the "
+                         "data, or pass --accept-outliers to store them")
+    return found
 
 
 def log_returns(prices: pd.DataFrame, source: str = "prices") -> pd.DataFrame:
@@ -642,9 +823,10 @@ def _source_statement(query: str | None, table: str | None
     raise InputError("a SQL source needs exactly one of a query and a table")
 
 
-def read_sql_source(url: str, *, query: str | None = None, table: str | None = None
-                    ) -> pd.DataFrame:
-    """Read series from a SQL source: a whole table or a query, wide or long.
+def read_sql_source(url: str, *, query: str | None = None, table: str | None = None,
+                    limits: Limits | None = None) -> pd.DataFrame:
+    """Read series from a SQL source: a whole table or a query, wide or long, within
+    ``limits`` (columns, asset names, dates; default :data:`DEFAULT_LIMITS`).
 
     Parameters
     ----------
@@ -682,4 +864,4 @@ def read_sql_source(url: str, *, query: str | None = None, table: str | None = N
     finally:
         if engine is not None:
             engine.dispose()
-    return tidy_frame(frame, name)
+    return tidy_frame(frame, name, limits=limits)

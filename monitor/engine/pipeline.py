@@ -13,7 +13,7 @@ import time
 from collections.abc import Callable, Iterator
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from contextlib import contextmanager
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import partial
 from itertools import combinations
 from typing import Any
@@ -34,6 +34,7 @@ from monitor.data.ingest import (
     read_sql_table_source,
 )
 from monitor.data.store import Store, outbox
+from monitor.data.tables import Limits
 from monitor.settings import marginal_settings, rolling_key, rolling_settings, signals_key
 from monitor.stats.marginals import FilteredSeries, MarginalSettings, extend_series, filter_series
 from monitor.stats.rolling import (
@@ -60,19 +61,24 @@ def read_configured_sources(cfg: Config) -> list[Source]:
     """Read and validate every ``[[sources]]`` entry (nothing is stored yet)."""
     out = []
     for i, src in enumerate(cfg.sources, start=1):
-        out.extend(_read_source(src, i))
+        out.extend(_read_source(src, i, cfg.ingest))
     return out
 
 
-def _read_source(src: SourceConfig, i: int) -> list[Source]:
+def _read_source(src: SourceConfig, i: int, limits: Limits) -> list[Source]:
     if src.path:
         options = source_read_options(src, f"sources[{i}]")
-        return [read_file_source(p, src.kind, options) for p in expand_paths(src.path)]
-    url = src.url or os.environ.get(src.url_env, "")
-    if not url:
-        raise InputError(f"sources[{i}]: environment variable {src.url_env} is not set")
-    return [read_sql_table_source(url, src.kind, query=src.query or None,
-                                  table=src.table or None)]
+        read = [read_file_source(p, src.kind, options, limits,
+                                 accept_outliers=src.accept_outliers)
+                for p in expand_paths(src.path)]
+    else:
+        url = src.url or os.environ.get(src.url_env, "")
+        if not url:
+            raise InputError(f"sources[{i}]: environment variable {src.url_env} is not set")
+        read = [read_sql_table_source(url, src.kind, query=src.query or None,
+                                      table=src.table or None, limits=limits,
+                                      accept_outliers=src.accept_outliers)]
+    return [replace(s, accept_revisions=src.accept_revisions) for s in read]
 
 
 @dataclass(frozen=True, slots=True)
