@@ -2,6 +2,11 @@
 
 Pages are routed by our own small router (one callback on the URL) rather than Dash's global
 page registry, so that several apps can live in one process (tests build many).
+
+Every request must name one of the allowed host names in its ``Host`` header (the loopback
+names by default, see :data:`LOOPBACK_HOSTS`): a page on another site cannot reach the
+loopback server through a DNS name that it rebinds to 127.0.0.1. A path under Dash's asset
+routes that leaves its folder (``..``) is answered 404, not 500.
 """
 
 from __future__ import annotations
@@ -9,7 +14,7 @@ from __future__ import annotations
 import hmac
 import importlib
 import tempfile
-from urllib.parse import parse_qs
+from urllib.parse import parse_qs, unquote
 
 import dash
 import diskcache
@@ -23,8 +28,12 @@ from monitor.config import Config
 from monitor.data.store import Store
 from monitor.views.common import StoreView
 
+from .jobs import DEFAULT_JOBS, BoundedJobs
+
 #: Environment variable holding the access secret required off the loopback interface.
 SECRET_ENV = "COMOVE_DASHBOARD_SECRET"
+#: Host names every dashboard answers to (with any port).
+LOOPBACK_HOSTS = ("127.0.0.1", "localhost", "::1")
 
 
 def page_modules(kind: str) -> dict[str, object]:
@@ -33,7 +42,8 @@ def page_modules(kind: str) -> dict[str, object]:
 
 
 def create_app(cfg: Config, *, store: Store | None = None, secret: str | None = None,
-               cache_dir: str | None = None) -> dash.Dash:
+               cache_dir: str | None = None, hosts: tuple[str, ...] = (),
+               max_jobs: int = DEFAULT_JOBS) -> dash.Dash:
     """The dashboard for ``cfg``.
 
     Parameters
@@ -47,11 +57,17 @@ def create_app(cfg: Config, *, store: Store | None = None, secret: str | None = 
         127.0.0.1.
     cache_dir : str, optional
         Folder of the background-callback cache (default: a new temporary folder).
+    hosts : tuple of str
+        Host names the server answers to besides :data:`LOOPBACK_HOSTS` (the bind address,
+        a team's name behind a reverse proxy); any other ``Host`` header gets 400.
+    max_jobs : int
+        Window studies computing at once (:class:`callbacks.jobs.BoundedJobs`); the app's
+        ``jobs`` attribute holds the manager, to shut it down with the server.
     """
     store = store or Store(cfg.store.url, create=False)
     view = StoreView.open(cfg, store)
-    manager = dash.DiskcacheManager(diskcache.Cache(cache_dir or tempfile.mkdtemp(
-        prefix="comove-dash-")))
+    manager = BoundedJobs(diskcache.Cache(cache_dir or tempfile.mkdtemp(
+        prefix="comove-dash-")), max_jobs)
     app = dash.Dash(__name__, title="comove", suppress_callback_exceptions=True,
                     background_callback_manager=manager, update_title=None)
     app.layout = shell(view.provenance())
@@ -69,9 +85,32 @@ def create_app(cfg: Config, *, store: Store | None = None, secret: str | None = 
 
     for module in page_modules("callbacks").values():
         module.register(app, view)
+    _guard_requests(app, (*LOOPBACK_HOSTS, *hosts))
     if secret:
         _require_secret(app, secret)
+    app.jobs = manager  # type: ignore[attr-defined]
     return app
+
+
+def host_name(header: str) -> str:
+    """The host of a ``Host`` header, without its port (``[::1]:8050`` -> ``::1``)."""
+    header = header.strip().lower()
+    if header.startswith("["):
+        return header[1:].split("]", 1)[0]
+    return header.rsplit(":", 1)[0] if header.count(":") == 1 else header
+
+
+def _guard_requests(app: dash.Dash, hosts: tuple[str, ...]) -> None:
+    allowed = {h.lower() for h in hosts}
+
+    @app.server.before_request
+    def check_host():
+        if host_name(request.headers.get("Host", "")) not in allowed:
+            return Response("comove: unknown host name (start the dashboard with "
+                            "--server-name NAME to answer to it)", 400)
+        if request.path.startswith("/_dash-") and ".." in unquote(request.path).split("/"):
+            return Response("not found", 404)
+        return None
 
 
 def _require_secret(app: dash.Dash, secret: str) -> None:

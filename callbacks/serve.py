@@ -6,6 +6,10 @@ secret in the environment variable :data:`callbacks.app.SECRET_ENV` (HTTP basic
 authentication, any user name), and the server refuses to start without it. Debug mode is
 never on.
 
+Host names: requests must name a host the dashboard answers to (``Host`` header): the
+loopback names, the bind address, and any ``--server-name`` given; others get 400 (a guard
+against DNS rebinding of the unauthenticated loopback server).
+
 Serving: the dashboard runs on waitress, a production WSGI server in pure Python (several
 threads, so that the board, a figure and a running window study are served side by side), not
 on Flask's development server. Behind a reverse proxy (TLS, a team's host name), keep
@@ -87,14 +91,16 @@ def _check_port(host: str, port: int) -> None:
 
 
 def serve(cfg: Config, host: str = "127.0.0.1", port: int = 8050, *,
-          open_browser: bool = False) -> None:
-    """Serve the dashboard of ``cfg``'s store until interrupted."""
+          open_browser: bool = False, server_names: tuple[str, ...] = ()) -> None:
+    """Serve the dashboard of ``cfg``'s store until interrupted; it answers to the loopback
+    names, the bind address (unless a wildcard) and ``server_names``."""
     secret = access_secret(host)
     _check_port(host, port)
     from monitor.data.store import Store
 
     store = Store(cfg.store.url, create=False)
-    app = create_app(cfg, store=store, secret=secret)
+    bound = () if host in ("0.0.0.0", "::") else (host,)
+    app = create_app(cfg, store=store, secret=secret, hosts=(*bound, *server_names))
     url = f"http://{'127.0.0.1' if host in ('0.0.0.0', '::') else host}:{port}/"
     print(f"dashboard on {url} (store {store.shown_url}; waitress, {SERVER_THREADS} threads; "
           "Ctrl+C stops it)", flush=True)
@@ -108,6 +114,7 @@ def serve(cfg: Config, host: str = "127.0.0.1", port: int = 8050, *,
         server.run()
     finally:
         server.close()
+        app.jobs.shutdown()  # no window study outlives the server
         store.close()
 
 

@@ -204,6 +204,10 @@ def _add_serve(sub) -> None:
     _common(p)
     p.add_argument("--host", default="127.0.0.1", help="bind address (default 127.0.0.1)")
     p.add_argument("--port", type=int, default=8050, help="port (default 8050)")
+    p.add_argument("--server-name", action="append", default=[], metavar="NAME",
+                   help="a host name the dashboard answers to besides the loopback names and "
+                        "the bind address (e.g. a team's name behind a reverse proxy); "
+                        "repeatable. Requests naming any other host get 400")
 
 
 # ----------------------------------------------------------------------------- commands
@@ -439,7 +443,7 @@ def _cmd_serve(args: argparse.Namespace, cfg: Config) -> int:
     # The dashboard lives outside the library (monitor/ does not depend on dash).
     from callbacks.serve import serve
 
-    serve(cfg, args.host, args.port)
+    serve(cfg, args.host, args.port, server_names=tuple(args.server_name))
     return 0
 
 

@@ -122,3 +122,68 @@ def test_comove_serve_answers_on_a_production_wsgi_server(dash_store):
     # Flask's development server announces itself with this warning; waitress never does.
     assert "development server" not in out.lower() and "WARNING: This is" not in out
     assert "Traceback" not in out
+
+
+# ----------------------------------------------------------------------------- issue 14
+def test_only_the_allowed_host_names_are_answered(dash_store):
+    # DNS rebinding: a page on evil.example whose name resolves to 127.0.0.1 sends
+    # "Host: evil.example"; the loopback server has no authentication, so it must refuse.
+    from callbacks.app import host_name
+
+    assert host_name("[::1]:8050") == "::1" and host_name("Localhost:8050") == "localhost"
+    assert host_name("127.0.0.1") == "127.0.0.1"
+    with Store(dash_store.url, create=False) as store:
+        app = create_app(dash_store.cfg, store=store, hosts=("risk-board.example",))
+        client = app.server.test_client()
+        for host in ("localhost", "127.0.0.1:8050", "[::1]:8050", "risk-board.example"):
+            assert client.get("/", headers={"Host": host}).status_code == 200, host
+        for host in ("evil.example", "evil.example:8050", "127.0.0.1.evil.example", ""):
+            denied = client.get("/_dash-layout", headers={"Host": host})
+            assert denied.status_code == 400 and b"unknown host name" in denied.data, host
+
+
+def test_a_path_leaving_the_asset_folders_is_404(dash_store):
+    with Store(dash_store.url, create=False) as store:
+        client = create_app(dash_store.cfg, store=store).server.test_client()
+        for path in ("/_dash-component-suites/dash/../../../../etc/passwd",
+                     "/_dash-component-suites/dash/%2e%2e/%2e%2e/etc/passwd"):
+            assert client.get(path).status_code == 404, path
+
+
+def test_window_studies_are_bounded_queued_and_reaped(tmp_path):
+    import time
+
+    import diskcache
+    import multiprocess
+
+    from callbacks.jobs import BoundedJobs
+
+    cache = diskcache.Cache(str(tmp_path / "jobs"))
+    jobs = BoundedJobs(cache, max_jobs=1)
+
+    def job(key, progress_key, args, context):
+        cache.set(f"start-{key}", time.monotonic())
+        time.sleep(args)
+        cache.set(key, f"done {key}")
+
+    first = jobs.call_job_fn("a", job, 1.5, {})
+    time.sleep(0.5)
+    second = jobs.call_job_fn("b", job, 0.1, {})
+    deadline = time.monotonic() + 30
+    label = None
+    while time.monotonic() < deadline and label is None:
+        label = cache.get(jobs._make_progress_key("b"))
+        time.sleep(0.05)
+    assert label[2] == "waiting: 1 study running, this one 1 in the queue"
+    while time.monotonic() < deadline and not (jobs.result_ready("a") and jobs.result_ready("b")):
+        time.sleep(0.05)
+    # One slot: the second started only after the first finished (1.5 s after it began).
+    assert cache.get("start-b") - cache.get("start-a") >= 1.4
+    time.sleep(0.2)
+    assert not jobs.job_running(first) and not jobs.job_running(second)
+    assert multiprocess.active_children() == []  # reaped: no zombie left
+    third = jobs.call_job_fn("c", job, 60, {})
+    time.sleep(0.5)
+    assert jobs.job_running(third)
+    jobs.shutdown()  # the server stops: no study outlives it
+    assert not jobs.job_running(third) and multiprocess.active_children() == []
