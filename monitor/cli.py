@@ -129,6 +129,9 @@ def _add_update(sub) -> None:
     """``comove update``: the daily job."""
     p = sub.add_parser("update", help="marginals, rolling metrics, signals, alert queue")
     _common(p)
+    p.add_argument("--wait", type=float, default=0.0, metavar="SECONDS",
+                   help="wait this long for an update already running on the store (default "
+                        "0: refuse at once, exit 2)")
 
 
 def _add_fit(sub) -> None:
@@ -382,7 +385,9 @@ def _cmd_export(args: argparse.Namespace, cfg: Config) -> int:
 def _cmd_update(args: argparse.Namespace, cfg: Config) -> int:
     from monitor.engine.pipeline import run_update
 
-    summary = run_update(cfg, progress=True)
+    if args.wait < 0:
+        raise InputError(f"--wait must be 0 or more seconds, got {args.wait:g}")
+    summary = run_update(cfg, progress=True, wait=args.wait)
     print("\n".join(summary.lines()), flush=True)
     problem = summary.shortfall()
     if problem is not None:

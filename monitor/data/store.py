@@ -69,8 +69,16 @@ __all__ = [
     "Store", "StoredMarginals", "Table", "as_tidy", "checksum_bytes", "episodes",
     "frame_checksum", "ingests", "marginal_fits", "marginal_state", "metadata", "metrics",
     "outbox", "pair_state", "prices", "residuals", "returns", "revisions", "schema_info",
-    "signal_resume", "state_runs", "universe_daily", "values_differ",
+    "shown_url", "signal_resume", "state_runs", "universe_daily", "values_differ",
 ]
+
+
+def shown_url(url: str) -> str:
+    """A store URL as messages show it (password hidden); the URL itself if it is not one."""
+    try:
+        return sa.engine.make_url(url).render_as_string(hide_password=True)
+    except sa.exc.ArgumentError:
+        return url
 
 
 class Store(PriceStore, ResidualStore, MetricStore, SignalStore, UniverseStore,
@@ -93,7 +101,7 @@ class Store(PriceStore, ResidualStore, MetricStore, SignalStore, UniverseStore,
         except sa.exc.ArgumentError:
             raise InputError(f"--store / store.url: {url!r} is not a database URL") from None
         self.url = url
-        self.shown_url = parsed.render_as_string(hide_password=True)
+        self.shown_url = shown_url(url)
         if parsed.get_backend_name() == "sqlite" and parsed.database not in (None, "", ":memory:"):
             path = Path(parsed.database)
             if not path.exists():

@@ -33,7 +33,8 @@ from monitor.data.ingest import (
     read_file_source,
     read_sql_table_source,
 )
-from monitor.data.store import Store, outbox
+from monitor.data.store import Store, outbox, shown_url
+from monitor.data.store_lock import update_lock
 from monitor.data.tables import Limits
 from monitor.settings import marginal_settings, rolling_key, rolling_settings, signals_key
 from monitor.stats.marginals import FilteredSeries, MarginalSettings, extend_series, filter_series
@@ -722,15 +723,17 @@ def _open_store(cfg: Config, create: bool) -> Store:
     return store
 
 
-def run_update(cfg: Config, *, progress: bool = True) -> UpdateSummary:
+def run_update(cfg: Config, *, progress: bool = True, wait: float = 0.0) -> UpdateSummary:
     """The whole daily job: configured sources, marginals, the rolling engine, signals (then,
-    as it arrives, the alert queue).
+    as it arrives, the alert queue), under the store's update lock
+    (:func:`monitor.data.store_lock.update_lock`; ``wait`` seconds for a running update).
 
     Raises
     ------
     InputError
-        No store at the configured URL (and no ``[[sources]]`` to fill one), or a store
-        holding no returns: the job would do nothing (a wrong working directory, say).
+        No store at the configured URL (and no ``[[sources]]`` to fill one), a store
+        holding no returns (the job would do nothing: a wrong working directory, say), or
+        another update running after ``wait`` seconds.
 
     Notes
     -----
@@ -740,6 +743,11 @@ def run_update(cfg: Config, *, progress: bool = True) -> UpdateSummary:
     """
     t0 = time.perf_counter()
     sources = read_configured_sources(cfg)
+    with update_lock(cfg.store.url, shown_url(cfg.store.url), wait=wait):
+        return _update(cfg, sources, progress, t0)
+
+
+def _update(cfg: Config, sources: list[Source], progress: bool, t0: float) -> UpdateSummary:
     if sources:
         with Store(cfg.store.url) as store, StepProgress("sources", len(sources), "source",
                                                          enabled=progress) as bar:
