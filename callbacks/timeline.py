@@ -51,7 +51,8 @@ def show_pair(view, pair_text: str | None) -> tuple:
             f"state (lower/upper tail) {state}; {len(history.episodes)} alert episode(s). "
             f"{int((~f['converged'].astype(bool)).sum())} window(s) whose selected fit did not "
             f"converge are shown as estimated. {finite_level_note(history.tail_q)}"
-            + (f" {history.fallback_note()}" if history.fallback_note() else ""))
+            + "".join(f" {n}" for n in (history.degenerate_note(), history.fallback_note())
+                      if n))
     data, columns = records(episodes_table(history))
     first, end = (d.strftime("%Y-%m-%d") for d in (f["date"].iloc[0], f["date"].iloc[-1]))
     return (timeline_figure(history), note, data, columns, "", first, end,

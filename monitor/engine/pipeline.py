@@ -43,6 +43,7 @@ from monitor.stats.rolling import (
     PairWindows,
     RollingSettings,
     batch_metrics,
+    degeneracy,
     window_end_positions,
 )
 from monitor.stats.signals import (
@@ -247,9 +248,24 @@ class _PairTask:
 
 
 def _pair_batch(batch: list[_PairTask], settings: RollingSettings):
-    """Worker: the new window ends of a few pairs, fitted as one batch (or one big pair)."""
+    """Worker: the new window ends of a few pairs, fitted as one batch (or one big pair).
+    When the batch fails, its pairs are computed one by one, so that one pair that cannot be
+    computed (its reason recorded in place of its metrics) never stops the others."""
     items = [PairWindows(t.dates, t.za, t.zb, t.positions, t.warm, t.last_tau) for t in batch]
-    return list(zip(batch, batch_metrics(items, settings), strict=True))
+    try:
+        return list(zip(batch, batch_metrics(items, settings), strict=True))
+    except Exception:  # noqa: BLE001 - retried pair by pair below
+        if len(batch) == 1:
+            return [(batch[0], _failure(batch[0], items[0], settings))]
+        return [(t, _failure(t, it, settings)) for t, it in zip(batch, items, strict=True)]
+
+
+def _failure(task: _PairTask, item: PairWindows, settings: RollingSettings):
+    """One pair's metrics, or the reason it cannot be computed (a string)."""
+    try:
+        return batch_metrics([item], settings)[0]
+    except Exception as exc:  # noqa: BLE001 - reported in the update summary
+        return f"{type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else ''}"
 
 
 #: Pairs with at most CHAIN_FROM new windows are fitted together, up to this many windows
@@ -285,10 +301,23 @@ class RollingSummary:
     updated_pairs: int
     new_windows: int
     backend: str
+    #: Pairs that could not be computed, with the reason (the others were stored).
+    failed: dict[tuple[str, str], str] = field(default_factory=dict)
+    #: Pairs whose latest window is degenerate, with why (:func:`degenerate_pairs`).
+    degenerate: dict[tuple[str, str], str] = field(default_factory=dict)
 
     def lines(self) -> list[str]:
-        return [(f"rolling ({self.settings_key}, {self.backend}): {self.updated_pairs} of "
+        out = [(f"rolling ({self.settings_key}, {self.backend}): {self.updated_pairs} of "
                 f"{self.pairs} pair(s) updated, {self.new_windows} new window end(s)")]
+        if self.failed:
+            out.append(f"  {len(self.failed)} pair(s) could not be computed (the others were "
+                       "stored): " + "; ".join(f"{a}/{b}: {why}"
+                                               for (a, b), why in sorted(self.failed.items())))
+        if self.degenerate:
+            out.append(f"  {len(self.degenerate)} degenerate pair(s) in their latest window "
+                       "(stored; read with care): " + "; ".join(
+                           f"{a}/{b} {why}" for (a, b), why in sorted(self.degenerate.items())))
+        return out
 
 
 def _pair_tasks(store: Store, key: str, settings: RollingSettings, z: pd.DataFrame,
@@ -386,13 +415,33 @@ def update_rolling(store: Store, cfg: Config, *, progress: bool = True) -> Rolli
     key = settings.key(m_key)
     pairs, tasks = _rolling_tasks(store, m_key, key, settings, cfg)
     new = 0
+    failed: dict[tuple[str, str], str] = {}
     for done in _run_tasks(tasks, settings, cfg, progress):
+        failed.update({(t.a, t.b): out for t, out in done if isinstance(out, str)})
         # One transaction per batch: a pair's rows and state always land together.
         with store.transaction() as conn:
             new += store.save_metrics(conn, key, [
                 (t.a, t.b, out.frame, out.last_params, out.last_tau, t.replace_all)
-                for t, out in done])
-    return RollingSummary(key, len(pairs), len(tasks), new, cfg.compute.backend)
+                for t, out in done if not isinstance(out, str)])
+    return RollingSummary(key, len(pairs), len(tasks) - len(failed), new, cfg.compute.backend,
+                          failed, degenerate_pairs(store, key, settings.window))
+
+
+def degenerate_pairs(store: Store, key: str, window: int) -> dict[tuple[str, str], str]:
+    """Pairs whose latest stored window is degenerate, with why: two copies of one series
+    (:func:`monitor.stats.rolling.degeneracy`), or an asset whose price did not move on most
+    days of the window (stale prices)."""
+    states = store.load_pair_states(key)
+    if not states:
+        return {}
+    pairs = sorted(states)
+    rets = store.read_returns(sorted({x for p in pairs for x in p}))
+    stale = {a: float((rets[a].dropna().iloc[-window:] == 0).mean()) for a in rets.columns}
+    taus = np.array([states[p]["last_tau"] for p in pairs], dtype=float)
+    why = degeneracy(taus, np.array([stale[a] for a, _ in pairs]),
+                     np.array([stale[b] for _, b in pairs]))
+    return {p: reason.replace("A ", f"{p[0]} ").replace("B ", f"{p[1]} ")
+            for p, reason in zip(pairs, why, strict=True) if reason}
 
 
 # ----------------------------------------------------------------------------- signals

@@ -32,7 +32,7 @@ from itertools import pairwise
 import numpy as np
 import pandas as pd
 from numpy.lib.stride_tricks import sliding_window_view
-from numpy.typing import NDArray
+from numpy.typing import ArrayLike, NDArray
 
 from monitor.stats.copulas import FAMILY_NAMES, family
 from monitor.stats.criteria import information_criterion
@@ -56,6 +56,9 @@ METRIC_COLUMNS = (
 
 #: Below this |tau| no same-tau Clayton alternative is defined; the day's ratios are 0.
 TAU_FLOOR = 0.02
+#: Above this tau the same-tau alternatives are taken at it (Clayton theta = 2t/(1-t) = 30,
+#: the end of its box); tau = 1 is a pair of copies of one series.
+TAU_CEILING = 30.0 / 32.0
 
 
 @dataclass(frozen=True, slots=True)
@@ -378,15 +381,55 @@ def _window_statistics(series: list[tuple[np.ndarray, np.ndarray, np.ndarray]], 
             np.concatenate([p[2] for p in ordered]), np.concatenate([p[3] for p in ordered]))
 
 
+#: |tau| at or above which a window's two series are taken for copies of one series.
+COPY_TAU = 0.98
+#: Share of a window's returns at exactly 0 above which an asset's prices are taken as stale.
+STALE_SHARE = 0.5
+
+
+def degeneracy(tau: ArrayLike, stale_a: ArrayLike, stale_b: ArrayLike) -> NDArray[np.object_]:
+    """Why windows are degenerate ("" where they are not).
+
+    Parameters
+    ----------
+    tau : array_like
+        Kendall's tau of each window.
+    stale_a, stale_b : array_like
+        Share of each asset's returns in the window that are exactly 0.
+
+    Returns
+    -------
+    ndarray of str
+        ``"|tau| 1.00: copies of one series?"`` at or above :data:`COPY_TAU` (the same
+        instrument under two names, a share class and its ordinary line: the copula is then
+        at the comonotone bound and says nothing about tails); ``"A price stale on 60% of the
+        window"`` (or ``B``) above :data:`STALE_SHARE` (a suspended or unrefreshed price:
+        the window's ranks are mostly ties); both joined by "; ".
+    """
+    tau, share_a, share_b = np.broadcast_arrays(
+        *(np.asarray(x, dtype=float) for x in (tau, stale_a, stale_b)))
+    copies = np.abs(tau) >= COPY_TAU
+    stale = np.stack([share_a > STALE_SHARE, share_b > STALE_SHARE])
+    out = np.full(tau.shape, "", dtype=object)
+    for i in zip(*np.nonzero(copies | stale.any(axis=0)), strict=True):  # flagged ones only
+        parts = [f"|tau| {abs(tau[i]):.2f}: copies of one series?"] if copies[i] else []
+        parts += [f"{name} price stale on {share[i]:.0%} of the window"
+                  for name, share, hit in (("A", share_a, stale[0]), ("B", share_b, stale[1]))
+                  if hit[i]]
+        out[i] = "; ".join(parts)
+    return out
+
+
 def _newest_day_ratios(u: np.ndarray, v: np.ndarray, tau: np.ndarray):
     """log c_alt(u, v) - log c_Gauss(u, v) for the newest day of each window, with Clayton
     (lower tail) and survival Clayton (upper tail) alternatives and the Gaussian all at the
     same Kendall's tau (theta = 2 tau/(1 - tau), rho = sin(pi tau / 2)); 0 where tau is below
     :data:`TAU_FLOOR` (no positive-dependence alternative with that tau)."""
     ok = tau > TAU_FLOOR
-    t = np.where(ok, tau, 0.5)
+    # inside the families' boxes: tau -> 1 (two copies of one series) has no finite theta
+    t = np.clip(np.where(ok, tau, 0.5), None, TAU_CEILING)
     theta = np.clip(2 * t / (1 - t), 1e-4, 30.0)
-    rho = np.sin(np.pi * t / 2)
+    rho = np.clip(np.sin(np.pi * t / 2), -0.999, 0.999)
     gauss = family("gaussian").logpdf(u, v, (rho,))
     lo = family("clayton").logpdf(u, v, (theta,)) - gauss
     hi = family("clayton", 180).logpdf(u, v, (theta,)) - gauss

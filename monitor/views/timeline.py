@@ -41,6 +41,7 @@ from monitor.common.palette import (
     VERMILION,
     figure_layout,
 )
+from monitor.stats.rolling import degeneracy
 from monitor.stats.signals import STATES, TAILS, states_on
 from monitor.views.common import StoreView, binomial_band, rounded_for_plot, tau_band
 
@@ -145,9 +146,10 @@ class PairHistory:
         One row per window end: ``date, start, n, kendall_tau, kendall_tau_se, tau_low,
         tau_high, family, rotation, converged, tail_lower, tail_upper, tail_lower_emp,
         tail_upper_emp, tail_lower_low, tail_lower_high, tail_upper_low, tail_upper_high,
-        gauss_tail_q, state_lower, state_upper, fallback`` (bands at
+        gauss_tail_q, state_lower, state_upper, fallback, degenerate`` (bands at
         :data:`monitor.views.common.LEVEL`; ``fallback``: the window holds residuals of either
-        asset filtered by a fallback marginal fit, see ``fallbacks``).
+        asset filtered by a fallback marginal fit, see ``fallbacks``; ``degenerate``:
+        :func:`monitor.stats.rolling.degeneracy` of the window, "" when it is not).
     families : DataFrame
         :func:`family_runs` of the frame.
     episodes : DataFrame
@@ -167,6 +169,18 @@ class PairHistory:
     tail_q: float
     provenance: str
     fallbacks: pd.DataFrame
+
+    def degenerate_note(self) -> str:
+        """A sentence on the degenerate windows ("" when there are none)."""
+        why = self.frame["degenerate"]
+        hit = why.ne("")
+        if not hit.any():
+            return ""
+        a, b = self.pair
+        kinds = why[hit].str.replace("A price", f"{a} price").str.replace("B price", f"{b} price")
+        first = kinds.iloc[-1] if hit.iloc[-1] else kinds.iloc[0]
+        return (f"{int(hit.sum())} window(s) are degenerate (e.g. {first}): the copula there "
+                "is at a bound of what it can describe; read their figures with care.")
 
     def fallback_note(self) -> str:
         """A sentence naming the fallback days behind the timeline ("" when there are none)."""
@@ -218,10 +232,23 @@ def pair_history(view: StoreView, a: str, b: str) -> PairHistory:
     fallbacks = view.store.fallback_spans(view.marginal_key, (a, b))
     frame["fallback"] = overlap_days(frame["start"], frame["date"], fallbacks["first"],
                                      fallbacks["last"])
+    rets = view.store.read_returns([a, b])
+    frame["degenerate"] = degeneracy(frame["kendall_tau"],
+                                     *(_zero_share(rets[x], frame) for x in (a, b)))
     spans = episode_spans(view.store.read_episodes(view.signals_key, (a, b)),
                           frame["date"].iloc[-1])
     return PairHistory((a, b), frame, family_runs(frame), spans, q, view.settings.provenance(),
                        fallbacks)
+
+
+def _zero_share(returns: pd.Series, frame: pd.DataFrame) -> np.ndarray:
+    """Share of an asset's returns that are exactly 0 within each window [start, date]."""
+    r = returns.dropna()
+    zeros = np.concatenate([[0], np.cumsum(r.to_numpy() == 0)])
+    days = r.index.to_numpy()
+    lo = np.searchsorted(days, frame["start"].to_numpy(), side="left")
+    hi = np.searchsorted(days, frame["date"].to_numpy(), side="right")
+    return (zeros[hi] - zeros[lo]) / np.maximum(hi - lo, 1)
 
 
 def episodes_table(history: PairHistory) -> pd.DataFrame:
