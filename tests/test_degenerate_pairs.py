@@ -85,8 +85,8 @@ def test_degeneracy_names_each_reason():
     assert list(why) == ["", "|tau| 0.99: copies of one series?",
                          "|tau| 0.98: copies of one series?",
                          "A price stale on 60% of the window",
-                         "|tau| 1.00: copies of one series?; A price stale on 70% of the "
-                         "window; B price stale on 55% of the window"]
+                         ("|tau| 1.00: copies of one series?; A price stale on 70% of the "
+                          "window; B price stale on 55% of the window")]
 
 
 def test_a_pair_that_cannot_be_computed_leaves_the_others_in_its_batch():

@@ -62,8 +62,8 @@ def test_two_updates_at_once_one_runs_the_other_is_refused_or_waits(store_url, t
     first = _comove("update", "--config", str(config))
     time.sleep(1.0)
     second = _comove("update", "--config", str(config))
-    out2, err2 = second.communicate(timeout=300)
-    out1, err1 = first.communicate(timeout=300)
+    _, err2 = second.communicate(timeout=300)
+    _, err1 = first.communicate(timeout=300)
     assert first.returncode == 0, err1
     if second.returncode == 0:  # the first had not taken the lock yet: they ran in turn
         assert "another update" not in err2
