@@ -8,6 +8,7 @@ fails) no chart is made and the message carries its table only.
 from __future__ import annotations
 
 import contextlib
+import threading
 import warnings
 from collections.abc import Callable, Iterator
 
@@ -44,33 +45,70 @@ def tail_figure(timeline: pd.DataFrame, a: str, b: str, until) -> go.Figure:
     return fig
 
 
+#: Longest wait for the export server to start or for one chart; past it the run's remaining
+#: messages go without a chart (a hung browser must not hold up the alerts).
+CHART_TIMEOUT = 60.0
+
+
+def _within(seconds: float, fn, *args, **kwargs):
+    """``fn(*args, **kwargs)`` in a daemon thread; its result, or None after ``seconds`` or
+    on an error."""
+    box: list = []
+
+    def run():
+        with contextlib.suppress(Exception):
+            box.append(fn(*args, **kwargs))
+
+    worker = threading.Thread(target=run, daemon=True)
+    worker.start()
+    worker.join(seconds)
+    return box[0] if box else None
+
+
 @contextlib.contextmanager
 def chart_maker(store, rolling_key: str) -> Iterator[Callable[[dict], bytes | None]]:
-    """A function outbox row -> PNG bytes (or None), with one export server for all rows."""
-    try:
-        import kaleido
+    """A function outbox row -> PNG bytes (or None), with one export server for all rows,
+    started at the first row that has a chart to draw; a server that does not start, or a
+    chart not drawn, within :data:`CHART_TIMEOUT` seconds turns charts off for the run."""
+    state = {"server": None}  # None: not started yet; True: running; False: unavailable
 
-        kaleido.start_sync_server(silence_warnings=True)
-    except Exception:  # noqa: BLE001 - no static export here: messages go without a chart
-        yield lambda row: None
-        return
+    def start() -> bool:
+        if state["server"] is None:
+            try:
+                import kaleido
+            except Exception:  # noqa: BLE001 - no static export here: no charts
+                state["server"] = False
+                return False
+            started = _within(CHART_TIMEOUT, lambda: kaleido.start_sync_server(
+                silence_warnings=True) or True)
+            state["server"] = bool(started)
+        return bool(state["server"])
 
     def make(row: dict) -> bytes | None:
-        if not row.get("asset_a"):
+        if not row.get("asset_a") or state["server"] is False:
             return None
         try:
             tl = store.read_timeline(rolling_key, row["asset_a"], row["asset_b"])
-            if tl.empty:
-                return None
-            fig = tail_figure(tl, row["asset_a"], row["asset_b"], row["event_date"])
+        except Exception:  # noqa: BLE001 - a chart is an extra; the table is in the message
+            return None
+        if tl.empty or not start():
+            return None
+        fig = tail_figure(tl, row["asset_a"], row["asset_b"], row["event_date"])
+
+        def draw() -> bytes:
             with warnings.catch_warnings():
                 warnings.simplefilter("ignore", UserWarning)  # plotly's note on the server
                 return fig.to_image(format="png")
-        except Exception:  # noqa: BLE001 - a chart is an extra; the table is in the message
-            return None
+
+        png = _within(CHART_TIMEOUT, draw)
+        if png is None:
+            state["server"] = False
+        return png
 
     try:
         yield make
     finally:
-        with contextlib.suppress(Exception):
-            kaleido.stop_sync_server(silence_warnings=True)
+        if state["server"]:
+            import kaleido
+
+            _within(CHART_TIMEOUT, kaleido.stop_sync_server, silence_warnings=True)

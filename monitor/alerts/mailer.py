@@ -58,7 +58,8 @@ class SendReport:
         was over when it did not).
     sent, failed, refused, deferred : int
         Accepted by the server; failed and queued again; refused for good (state
-        ``failed``); not tried (server unreachable, back-off not over).
+        ``failed``); not tried: the server unreachable and their back-off not over, or (with
+        the server reachable) held by another ``alerts send`` running at the same time.
     late : int
         Still undelivered after the run and queued more than ``alerts.late_after_minutes``
         ago.
@@ -89,6 +90,8 @@ class SendReport:
         out = [(f"alerts: {self.pending} pending, {self.due} due: {self.sent} sent, "
                 f"{self.failed} failed (queued again), {self.refused} refused for good, "
                 f"{self.deferred} deferred; {self.late} late")]
+        if self.deferred and not self.errors:
+            out.append(f"  {self.deferred} held by another alerts send running now")
         out += [f"  {e}" for e in self.errors]
         return out
 

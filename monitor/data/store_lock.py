@@ -54,8 +54,8 @@ def update_lock(url: str, shown_url: str, *, wait: float = 0.0) -> Iterator[None
     """
     parsed = sa.engine.make_url(url)
     if parsed.get_backend_name() == "sqlite":
-        if parsed.database in (None, "", ":memory:"):
-            yield
+        if parsed.database in (None, "", ":memory:") or not Path(parsed.database).parent.is_dir():
+            yield  # no store folder yet: nothing to lock, and nothing is created for it
             return
         with _file_lock(Path(parsed.database + ".update-lock"), shown_url, wait):
             yield
