@@ -202,7 +202,7 @@ def test_delivery_content_and_no_duplicates(store_copy, tmp_path, capsys):
         assert len({m["Message-ID"] for m in inbox.messages}) == len(queued)
     box = _outbox(store_copy)
     assert (box["state"] == "sent").all() and (box["attempts"] == 1).all()
-    assert "alerts: 0 pending, 0 due: 0 sent" in capsys.readouterr().out
+    assert "alerts: nothing to send" in capsys.readouterr().out
 
 
 def test_server_down_then_up_delivers_every_alert_once(store_copy, tmp_path, capsys):

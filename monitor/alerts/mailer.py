@@ -87,6 +87,8 @@ class SendReport:
         if self.dry_run:
             return [(f"dry run: {self.pending} pending message(s) would be tried; nothing "
                      "was sent or changed")]
+        if not self.pending:
+            return ["alerts: nothing to send"]
         out = [(f"alerts: {self.pending} pending, {self.due} due: {self.sent} sent, "
                 f"{self.failed} failed (queued again), {self.refused} refused for good, "
                 f"{self.deferred} deferred; {self.late} late")]
