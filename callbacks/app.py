@@ -28,6 +28,7 @@ from monitor.config import Config
 from monitor.data.store import Store
 from monitor.views.common import StoreView
 
+from .cache import ResponseCache
 from .jobs import DEFAULT_JOBS, BoundedJobs
 
 #: Environment variable holding the access secret required off the loopback interface.
@@ -71,6 +72,7 @@ def create_app(cfg: Config, *, store: Store | None = None, secret: str | None = 
     app = dash.Dash(__name__, title="comove", suppress_callback_exceptions=True,
                     background_callback_manager=manager, update_title=None)
     app.layout = shell(view.provenance())
+    app.responses = ResponseCache(store)  # type: ignore[attr-defined]
     layouts = page_modules("layouts")
 
     @app.callback(Output(ids.NAV, "children"), Output(ids.PAGE, "children"),
@@ -81,7 +83,8 @@ def create_app(cfg: Config, *, store: Store | None = None, secret: str | None = 
         module = layouts.get(path)
         if module is None:
             return nav(path), not_found(path)
-        return nav(path), module.layout(view, query)
+        return nav(path), app.responses(f"page {path}", lambda q: module.layout(view, dict(q)),
+                                        tuple(sorted(query.items())))
 
     for module in page_modules("callbacks").values():
         module.register(app, view)

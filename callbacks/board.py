@@ -116,4 +116,4 @@ def register(app, view) -> None:
     @app.callback(*[Output(i, p) for i, p in OUTPUTS], Input(ids.BOARD_DATE, "date"),
                   Input(ids.BOARD_TAIL_SOURCE, "value"), Input(ids.BOARD_HORIZON, "value"))
     def board(date, source, horizon):
-        return show_board(view, date, source, horizon)
+        return app.responses("board", lambda *x: show_board(view, *x), date, source, horizon)

@@ -51,4 +51,4 @@ def register(app, view) -> None:
                   Output(ids.INPUTS_LJUNG_BOX, "columns"), Output(ids.INPUTS_NOTE, "children"),
                   Input(ids.INPUTS_ASSET, "value"), Input(ids.INPUTS_LAGS, "value"))
     def diagnostics(asset, lags):
-        return show_diagnostics(view, asset, lags)
+        return app.responses("inputs", lambda *x: show_diagnostics(view, *x), asset, lags)

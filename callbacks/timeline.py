@@ -119,7 +119,7 @@ def register(app, view) -> None:
 
     @app.callback(*[Output(i, p) for i, p in OUTPUTS], Input(ids.TIMELINE_PAIR, "value"))
     def pair(pair_text):
-        return show_pair(view, pair_text)
+        return app.responses("timeline", lambda x: show_pair(view, x), pair_text)
 
     @app.callback(Output(ids.TIMELINE_RANGE, "start_date"),
                   Output(ids.TIMELINE_RANGE, "end_date"),

@@ -126,6 +126,23 @@ class Store(PriceStore, ResidualStore, MetricStore, SignalStore, UniverseStore,
             raise InputError(f"store {self.shown_url}: database driver missing ({exc.name})"
                              ) from None
 
+    def data_version(self) -> tuple:
+        """A fingerprint of what the store holds, in one cheap statement: it changes whenever
+        an ingest, an update or an ``alerts send`` stores something (the dashboard caches
+        its pages against it)."""
+        stmt = sa.select(
+            sa.select(sa.func.max(ingests.c.id)).scalar_subquery(),
+            sa.select(sa.func.max(marginal_state.c.updated_at)).scalar_subquery(),
+            sa.select(sa.func.max(pair_state.c.updated_at)).scalar_subquery(),
+            sa.select(sa.func.max(episodes.c.updated_at)).scalar_subquery(),
+            sa.select(sa.func.max(signal_resume.c.updated_at)).scalar_subquery(),
+            sa.select(sa.func.max(universe_daily.c.date)).scalar_subquery(),
+            sa.select(sa.func.count()).select_from(outbox).scalar_subquery(),
+            sa.select(sa.func.sum(outbox.c.attempts)).scalar_subquery(),
+            sa.select(sa.func.count(outbox.c.sent_at)).scalar_subquery())
+        with self.engine.connect() as conn:
+            return tuple(conn.execute(stmt).one())
+
     def close(self) -> None:
         """Close the store's pooled connections."""
         self.engine.dispose()

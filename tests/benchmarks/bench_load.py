@@ -59,8 +59,11 @@ def _spec(dep: dict, inputs: list[dict], state: list[dict] | None = None) -> dic
             "changedPropIds": [f"{i['id']}.{i['property']}" for i in inputs]}
 
 
-def requests_per_page(base: str, pair: str, asset: str) -> dict[str, list[dict]]:
-    """The Dash requests of each page load: the router, then the page's main callback."""
+def requests_per_page(base: str, pair: str, asset: str, day: str | None = None,
+                      search: str = "") -> dict[str, list[dict]]:
+    """The Dash requests of each page load: the router (with ``search`` as the address's
+    query), then the page's main callback (Board on ``day``, Timeline of ``pair``, Inputs of
+    ``asset``)."""
     with urllib.request.urlopen(f"{base}/_dash-dependencies", timeout=60) as r:
         deps = json.load(r)
 
@@ -71,9 +74,9 @@ def requests_per_page(base: str, pair: str, asset: str) -> dict[str, list[dict]]
     out = {}
     for page in PAGES:
         out[page] = [_spec(router, [{"id": "shell-url", "property": "pathname", "value": page}],
-                           [{"id": "shell-url", "property": "search", "value": ""}])]
+                           [{"id": "shell-url", "property": "search", "value": search}])]
     out["/"].append(_spec(dep("board-matrix-tau.figure"), [
-        {"id": "board-date", "property": "date", "value": None},
+        {"id": "board-date", "property": "date", "value": day},
         {"id": "board-tail-source", "property": "value", "value": "nonparametric"},
         {"id": "board-horizon", "property": "value", "value": "1m"}]))
     out["/timeline"].append(_spec(dep("timeline-figure.figure"), [
@@ -84,19 +87,23 @@ def requests_per_page(base: str, pair: str, asset: str) -> dict[str, list[dict]]
     return out
 
 
-def _client(base: str, plan: dict[str, list[dict]], rounds: int) -> dict[str, list[float]]:
+def _client(base: str, plans: list[dict[str, list[dict]]], rounds: int
+            ) -> dict[str, list[float]]:
     times: dict[str, list[float]] = {}
-    for _ in range(rounds):
-        for page, payloads in plan.items():
+    for r in range(rounds):
+        for page, payloads in plans[r % len(plans)].items():
             for k, payload in enumerate(payloads):
                 name = f"{page} {'page' if k == 0 else 'main callback'}"
                 times.setdefault(name, []).append(_post(base, payload))
     return times
 
 
-def run(base: str, plan: dict, clients: int, rounds: int) -> dict[str, tuple[float, float]]:
+def run(base: str, plans: list[list[dict]], clients: int, rounds: int
+        ) -> dict[str, tuple[float, float]]:
+    """Each client ``c`` runs the plans ``plans[c % len(plans)]`` round after round."""
     with ThreadPoolExecutor(clients) as pool:
-        parts = list(pool.map(lambda _: _client(base, plan, rounds), range(clients)))
+        parts = list(pool.map(lambda c: _client(base, plans[c % len(plans)], rounds),
+                              range(clients)))
     merged: dict[str, list[float]] = {}
     for p in parts:
         for name, t in p.items():
@@ -111,6 +118,9 @@ def main() -> None:
     ap.add_argument("--window", type=int, default=250)
     ap.add_argument("--clients", type=int, default=10)
     ap.add_argument("--rounds", type=int, default=3)
+    ap.add_argument("--cold", action="store_true",
+                    help="every request of every client different (another Board date, pair, "
+                         "asset and address each time): no response is served from the cache")
     args = ap.parse_args()
     port = _free_port()
     config = Path(os.environ.get("TMPDIR", "/tmp")) / f"bench-load-{port}.toml"
@@ -134,19 +144,34 @@ def main() -> None:
         sys.path.insert(0, str(ROOT))
         from monitor.config import load_config
         from monitor.data.store import Store
-        from monitor.settings import rolling_key
+        from monitor.settings import rolling_key, signals_key
+        from monitor.stats.signals import universe_key
 
         cfg = load_config(str(config))
         with Store(args.store, create=False) as store:
             pairs = store.monitored_pairs(rolling_key(cfg))
-            asset = min(a for p in pairs for a in p)
-        a, b = pairs[len(pairs) // 2]
-        plan = requests_per_page(base, f"{a}/{b}", asset)
-        run(base, plan, 1, 1)  # warm-up: imports, caches, first connections
-        one = run(base, plan, 1, args.rounds)
-        many = run(base, plan, args.clients, args.rounds)
+            days = sorted(store.read_universe(universe_key(signals_key(cfg))).index)
+        assets = sorted({a for p in pairs for a in p})
+
+        def plan(k: int) -> dict[str, list[dict]]:
+            a, b = pairs[(len(pairs) // 2 + 7 * k) % len(pairs)]
+            day = None if not args.cold else f"{days[-1 - 5 * k]:%Y-%m-%d}"
+            return requests_per_page(base, f"{a}/{b}", assets[k % len(assets)], day,
+                                     f"?n={k}" if args.cold else "")
+
+        n = (args.clients + 1) * (args.rounds + 1) if args.cold else 1
+        all_plans = [plan(k) for k in range(n)]
+        run(base, [[all_plans[-1]]], 1, 1)  # warm-up: imports, first connections
+        if args.cold:
+            one = run(base, [all_plans[:args.rounds]], 1, args.rounds)
+            many = run(base, [all_plans[args.rounds * (c + 1):args.rounds * (c + 2)]
+                              for c in range(args.clients)], args.clients, args.rounds)
+        else:
+            one = run(base, [all_plans], 1, args.rounds)
+            many = run(base, [all_plans], args.clients, args.rounds)
         print(f"store {args.store}: {len(pairs)} pairs; {args.rounds} rounds per client; "
-              f"waitress (8 threads) on 127.0.0.1")
+              f"{'cold: every request different' if args.cold else 'the same requests'}; "
+              "waitress (8 threads) on 127.0.0.1")
         print(f"{'request':34s} {'1 client p50':>12s} {'p95':>7s} "
               f"{f'{args.clients} clients p50':>17s} {'p95':>7s} {'ratio':>6s}")
         for name in one:
