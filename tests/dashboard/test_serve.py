@@ -190,3 +190,35 @@ def test_window_studies_are_bounded_queued_and_reaped(tmp_path):
     assert jobs.job_running(third)
     jobs.shutdown()  # the server stops: no study outlives it
     assert not jobs.job_running(third) and not psutil.pid_exists(third)
+
+
+def test_responses_are_reused_until_the_store_changes(dash_store, tmp_path):
+    import datetime as dt
+    import shutil
+
+    import sqlalchemy as sa
+
+    from callbacks.cache import ResponseCache
+    from monitor.data.store import outbox
+
+    path = tmp_path / "store.sqlite"
+    shutil.copy(sa.engine.make_url(dash_store.url).database, path)
+    with Store(f"sqlite:///{path}", create=False) as store:
+        cache = ResponseCache(store, size=2)
+        calls = []
+
+        def compute(*x):
+            calls.append(x)
+            return len(calls)
+
+        assert cache("board", compute, "2021-01-04", "model") == 1
+        assert cache("board", compute, "2021-01-04", "model") == 1  # the same store: reused
+        assert cache("board", compute, "2021-01-05", "model") == 2  # other inputs
+        with store.transaction() as conn:  # anything stored changes the fingerprint
+            store.queue_messages(conn, [{
+                "message_id": "<x@test>", "settings": "s", "rule": "r", "kind": "episode",
+                "asset_a": "A", "asset_b": "B", "tail": "lower",
+                "event_date": dt.date(2021, 1, 4), "subject": "s", "body_text": "t",
+                "body_html": "h"}], outbox)
+        assert cache("board", compute, "2021-01-04", "model") == 3
+        assert (cache.hits, cache.misses) == (1, 3)
