@@ -61,7 +61,8 @@ def _postgres_bindir() -> Path | None:
     return None
 
 
-def _free_port() -> int:
+def free_port() -> int:
+    """A free TCP port on 127.0.0.1 for a test server (aiosmtpd, PostgreSQL, the dashboard)."""
     # Port 0 lets the kernel choose; the socket is closed again before the server binds.
     with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
         s.bind(("127.0.0.1", 0))
@@ -123,7 +124,7 @@ def postgres_url() -> Iterator[str]:
         if init.returncode != 0:
             _unavailable(f"initdb failed: {(init.stderr or init.stdout).strip()[-500:]}")
         for _attempt in range(3):  # another process may take the free port before we bind it
-            port = _free_port()
+            port = free_port()
             options = (f"-c listen_addresses=127.0.0.1 -p {port} -k {sockets} -c fsync=off "
                        "-c synchronous_commit=off -c full_page_writes=off")
             start = server.run(str(bindir / "pg_ctl"), "-D", str(data), "-l",

@@ -7,7 +7,6 @@ import datetime as dt
 import email
 import email.policy
 import shutil
-import socket
 from dataclasses import replace
 from pathlib import Path
 
@@ -25,12 +24,7 @@ from monitor.data.store import Store, episodes, outbox
 from monitor.engine.pipeline import update_marginals, update_rolling, update_signals
 from synthetic_feeds import generate
 
-
-def _free_port() -> int:
-    # aiosmtpd cannot bind port 0 itself (setup notes): ask the OS for a free one first.
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
+from .conftest import free_port
 
 
 class _Inbox:
@@ -136,7 +130,7 @@ def _toml(cfg: Config) -> str:
 
 
 def test_update_queues_one_message_per_new_episode_once(store_copy):
-    cfg = _cfg(store_copy, _free_port())
+    cfg = _cfg(store_copy, free_port())
     _update_signals(cfg)
     eps, box = _episodes(store_copy), _outbox(store_copy)
     assert len(eps) >= 1, "the Clayton regime should raise at least one episode"
@@ -151,7 +145,7 @@ def test_update_queues_one_message_per_new_episode_once(store_copy):
 
 
 def test_queue_and_episode_change_share_one_transaction(store_copy, monkeypatch):
-    cfg = _cfg(store_copy, _free_port())
+    cfg = _cfg(store_copy, free_port())
 
     def broken(*args, **kwargs):
         raise RuntimeError("disk full while queueing")
@@ -164,7 +158,7 @@ def test_queue_and_episode_change_share_one_transaction(store_copy, monkeypatch)
 
 
 def test_default_age_limit_keeps_history_out_of_the_queue(store_copy):
-    cfg = replace(_cfg(store_copy, _free_port()), alerts=AlertsConfig())
+    cfg = replace(_cfg(store_copy, free_port()), alerts=AlertsConfig())
     _update_signals(cfg)
     assert not _episodes(store_copy).empty
     newest = pd.Timestamp(_episodes(store_copy)["start"].max())
@@ -173,7 +167,7 @@ def test_default_age_limit_keeps_history_out_of_the_queue(store_copy):
 
 
 def test_delivery_content_and_no_duplicates(store_copy, tmp_path, capsys):
-    port = _free_port()
+    port = free_port()
     cfg = _cfg(store_copy, port)
     _update_signals(cfg)
     queued = _outbox(store_copy)
@@ -206,7 +200,7 @@ def test_delivery_content_and_no_duplicates(store_copy, tmp_path, capsys):
 
 
 def test_server_down_then_up_delivers_every_alert_once(store_copy, tmp_path, capsys):
-    port = _free_port()  # nothing listens there yet
+    port = free_port()  # nothing listens there yet
     cfg = _cfg(store_copy, port)
     _update_signals(cfg)
     n = len(_outbox(store_copy))
@@ -227,7 +221,7 @@ def test_backoff_spaces_failures_but_a_reachable_server_gets_everything(store_co
                                                                          capsys):
     # issue 14: with the server back, every pending alert goes at once; the back-off only
     # spaces the attempts recorded while the server keeps failing, at most 30 minutes apart.
-    cfg = _cfg(store_copy, _free_port(), retry_seconds=600)
+    cfg = _cfg(store_copy, free_port(), retry_seconds=600)
     _update_signals(cfg)
     n = len(_outbox(store_copy))
     assert _send(cfg, tmp=tmp_path) == 1
@@ -249,7 +243,7 @@ def test_backoff_is_capped_at_thirty_minutes_and_late_alerts_exit_1(store_copy, 
                                                                       capsys):
     from monitor.alerts.mailer import send_pending
 
-    cfg = _cfg(store_copy, _free_port(), retry_seconds=7 * 24 * 3600)
+    cfg = _cfg(store_copy, free_port(), retry_seconds=7 * 24 * 3600)
     _update_signals(cfg)
     n = len(_outbox(store_copy))
     with Store(cfg.store.url) as store:
@@ -267,7 +261,7 @@ def test_backoff_is_capped_at_thirty_minutes_and_late_alerts_exit_1(store_copy, 
 
 def test_authentication_with_credentials_from_the_environment(store_copy, tmp_path,
                                                               monkeypatch, capsys):
-    port = _free_port()
+    port = free_port()
     cfg = _cfg(store_copy, port)
     cfg = replace(cfg, alerts=replace(cfg.alerts, email=replace(
         cfg.alerts.email, username_env="COMOVE_TEST_SMTP_USER",
@@ -292,7 +286,7 @@ def test_authentication_with_credentials_from_the_environment(store_copy, tmp_pa
 
 
 def test_starttls_refused_by_the_server_is_a_clear_error(store_copy, tmp_path, capsys):
-    port = _free_port()
+    port = free_port()
     cfg = _cfg(store_copy, port)
     cfg = replace(cfg, alerts=replace(cfg.alerts, email=replace(cfg.alerts.email,
                                                                 starttls=True)))
@@ -306,7 +300,7 @@ def test_starttls_refused_by_the_server_is_a_clear_error(store_copy, tmp_path, c
 
 
 def test_dry_run_prints_and_changes_nothing(store_copy, tmp_path, capsys):
-    cfg = _cfg(store_copy, _free_port())
+    cfg = _cfg(store_copy, free_port())
     _update_signals(cfg)
     before = _outbox(store_copy)
     assert _send(cfg, "--dry-run", tmp=tmp_path) == 0
@@ -317,7 +311,7 @@ def test_dry_run_prints_and_changes_nothing(store_copy, tmp_path, capsys):
 
 
 def test_digest_sends_one_message_with_every_alert(store_copy, tmp_path):
-    port = _free_port()
+    port = free_port()
     cfg = _cfg(store_copy, port, digest=True)
     _update_signals(cfg)
     box = _outbox(store_copy)

@@ -11,9 +11,9 @@ from __future__ import annotations
 import datetime as dt
 import email
 import email.policy
-import socket
 import subprocess
 import sys
+from contextlib import contextmanager
 from pathlib import Path
 
 import pandas as pd
@@ -24,11 +24,7 @@ from aiosmtpd.controller import Controller
 from monitor import cli
 from monitor.data.store import Store, outbox
 
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
+from .conftest import free_port
 
 
 class _Inbox:
@@ -45,6 +41,19 @@ class _Inbox:
             return "451 4.3.0 try again later"
         self.messages.append(msg)
         return "250 OK"
+
+
+@contextmanager
+def _smtp():
+    """A real SMTP server on a free 127.0.0.1 port: (inbox, port)."""
+    port = free_port()
+    inbox = _Inbox()
+    controller = Controller(inbox, hostname="127.0.0.1", port=port)
+    controller.start()
+    try:
+        yield inbox, port
+    finally:
+        controller.stop()
 
 
 def _queue(url: str, subjects: list[str]) -> None:
@@ -78,11 +87,7 @@ def test_a_poison_message_and_a_permanent_refusal_block_nothing(store_url, tmp_p
     subjects[3] = "comove: REJECT this one"
     subjects[4] = "comove: BUSY this one"
     _queue(store_url, subjects)
-    port = _free_port()
-    inbox = _Inbox()
-    controller = Controller(inbox, hostname="127.0.0.1", port=port)
-    controller.start()
-    try:
+    with _smtp() as (inbox, port):
         config = str(_config(tmp_path, store_url, port))
         assert cli.main(["alerts", "send", "--config", config]) == 1
         out, err = capsys.readouterr()
@@ -105,19 +110,13 @@ def test_a_poison_message_and_a_permanent_refusal_block_nothing(store_url, tmp_p
         assert cli.main(["alerts", "send", "--retry-failed", "--config", config]) == 1
         out = capsys.readouterr().out
         assert "2 refused message(s) queued again" in out and "3 pending, 3 due" in out
-    finally:
-        controller.stop()
 
 
 @pytest.mark.parametrize("senders", [2, 8])
 def test_concurrent_senders_never_send_a_message_twice(store_url, tmp_path, senders):
     n = 35
     _queue(store_url, [f"comove: alert {i}" for i in range(n)])
-    port = _free_port()
-    inbox = _Inbox()
-    controller = Controller(inbox, hostname="127.0.0.1", port=port)
-    controller.start()
-    try:
+    with _smtp() as (inbox, port):
         config = str(_config(tmp_path, store_url, port))
         code = "import sys; from monitor.cli import main; sys.exit(main(sys.argv[1:]))"
         procs = [subprocess.Popen([sys.executable, "-c", code, "alerts", "send", "--config",
@@ -125,8 +124,6 @@ def test_concurrent_senders_never_send_a_message_twice(store_url, tmp_path, send
                                   text=True) for _ in range(senders)]
         results = [p.communicate(timeout=300) for p in procs]
         assert [p.returncode for p in procs] == [0] * senders, results
-    finally:
-        controller.stop()
     ids = [m["Message-ID"] for m in inbox.messages]
     assert len(ids) == n == len(set(ids))  # every message once, none twice
     box = _box(store_url)

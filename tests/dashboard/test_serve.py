@@ -14,6 +14,8 @@ from monitor import cli
 from monitor.common.errors import InputError
 from monitor.data.store import Store
 
+from ..conftest import free_port
+
 
 @pytest.mark.parametrize("host", ["127.0.0.1", "127.0.0.2", "::1", "localhost"])
 def test_loopback_needs_no_secret(host):
@@ -76,10 +78,6 @@ def test_loopback_app_serves_without_credentials(dash_store):
         assert "statistical estimates with model risk" in str(layout)
 
 
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
 
 
 def test_comove_serve_answers_on_a_production_wsgi_server(dash_store):
@@ -93,7 +91,7 @@ def test_comove_serve_answers_on_a_production_wsgi_server(dash_store):
     from pathlib import Path
 
     root = Path(__file__).resolve().parents[2]
-    port = _free_port()
+    port = free_port()
     env = {**os.environ, "PYTHONPATH": str(root), "PYTHONUNBUFFERED": "1"}
     env.pop(SECRET_ENV, None)
     proc = subprocess.Popen(
