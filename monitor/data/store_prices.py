@@ -68,6 +68,18 @@ class PriceStore(StoreBase):
         asset has no value)."""
         return self._read_wide(returns, assets, conn)
 
+    def zero_return_shares(self, assets: Iterable[str], last: int) -> dict[str, float]:
+        """Per asset, the share of its ``last`` stored returns (its newest) that are exactly
+        0: a price that did not move (counted in the database, the returns are not read)."""
+        newest = sa.select(returns.c.asset, returns.c.value, sa.func.row_number().over(
+            partition_by=returns.c.asset, order_by=returns.c.date.desc()).label("k")).where(
+            returns.c.asset.in_(list(assets))).subquery()
+        stmt = (sa.select(newest.c.asset, sa.func.avg(sa.case((newest.c.value == 0, 1.0),
+                                                               else_=0.0)))
+                .where(newest.c.k <= last).group_by(newest.c.asset))
+        with self.engine.connect() as conn:
+            return {a: float(share) for a, share in conn.execute(stmt).all()}
+
     def read_prices(self, assets: Iterable[str] | None = None,
                     conn: sa.Connection | None = None, since: dt.date | None = None
                     ) -> pd.DataFrame:

@@ -254,18 +254,23 @@ def _pair_batch(batch: list[_PairTask], settings: RollingSettings):
     items = [PairWindows(t.dates, t.za, t.zb, t.positions, t.warm, t.last_tau) for t in batch]
     try:
         return list(zip(batch, batch_metrics(items, settings), strict=True))
-    except Exception:  # noqa: BLE001 - retried pair by pair below
-        if len(batch) == 1:
-            return [(batch[0], _failure(batch[0], items[0], settings))]
-        return [(t, _failure(t, it, settings)) for t, it in zip(batch, items, strict=True)]
+    except Exception as exc:  # noqa: BLE001 - retried pair by pair below
+        if len(batch) == 1:  # that pair's own failure: nothing to retry
+            return [(batch[0], _reason(exc))]
+        return [(t, _alone(it, settings)) for t, it in zip(batch, items, strict=True)]
 
 
-def _failure(task: _PairTask, item: PairWindows, settings: RollingSettings):
+def _alone(item: PairWindows, settings: RollingSettings):
     """One pair's metrics, or the reason it cannot be computed (a string)."""
     try:
         return batch_metrics([item], settings)[0]
     except Exception as exc:  # noqa: BLE001 - reported in the update summary
-        return f"{type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else ''}"
+        return _reason(exc)
+
+
+def _reason(exc: Exception) -> str:
+    """An exception in one line, for the update summary."""
+    return f"{type(exc).__name__}: {str(exc).splitlines()[0] if str(exc) else ''}"
 
 
 #: Pairs with at most CHAIN_FROM new windows are fitted together, up to this many windows
@@ -435,13 +440,11 @@ def degenerate_pairs(store: Store, key: str, window: int) -> dict[tuple[str, str
     if not states:
         return {}
     pairs = sorted(states)
-    rets = store.read_returns(sorted({x for p in pairs for x in p}))
-    stale = {a: float((rets[a].dropna().iloc[-window:] == 0).mean()) for a in rets.columns}
+    stale = store.zero_return_shares(sorted({x for p in pairs for x in p}), window)
     taus = np.array([states[p]["last_tau"] for p in pairs], dtype=float)
-    why = degeneracy(taus, np.array([stale[a] for a, _ in pairs]),
-                     np.array([stale[b] for _, b in pairs]))
-    return {p: reason.replace("A ", f"{p[0]} ").replace("B ", f"{p[1]} ")
-            for p, reason in zip(pairs, why, strict=True) if reason}
+    why = degeneracy(taus, [stale[a] for a, _ in pairs], [stale[b] for _, b in pairs],
+                     [a for a, _ in pairs], [b for _, b in pairs])
+    return {p: reason for p, reason in zip(pairs, why, strict=True) if reason}
 
 
 # ----------------------------------------------------------------------------- signals

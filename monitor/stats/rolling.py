@@ -387,7 +387,8 @@ COPY_TAU = 0.98
 STALE_SHARE = 0.5
 
 
-def degeneracy(tau: ArrayLike, stale_a: ArrayLike, stale_b: ArrayLike) -> NDArray[np.object_]:
+def degeneracy(tau: ArrayLike, stale_a: ArrayLike, stale_b: ArrayLike,
+               name_a: ArrayLike = "A", name_b: ArrayLike = "B") -> NDArray[np.object_]:
     """Why windows are degenerate ("" where they are not).
 
     Parameters
@@ -396,6 +397,8 @@ def degeneracy(tau: ArrayLike, stale_a: ArrayLike, stale_b: ArrayLike) -> NDArra
         Kendall's tau of each window.
     stale_a, stale_b : array_like
         Share of each asset's returns in the window that are exactly 0.
+    name_a, name_b : str or array_like of str
+        The assets, as the reasons name them (one per window, or one for all).
 
     Returns
     -------
@@ -403,18 +406,19 @@ def degeneracy(tau: ArrayLike, stale_a: ArrayLike, stale_b: ArrayLike) -> NDArra
         ``"|tau| 1.00: copies of one series?"`` at or above :data:`COPY_TAU` (the same
         instrument under two names, a share class and its ordinary line: the copula is then
         at the comonotone bound and says nothing about tails); ``"A price stale on 60% of the
-        window"`` (or ``B``) above :data:`STALE_SHARE` (a suspended or unrefreshed price:
-        the window's ranks are mostly ties); both joined by "; ".
+        window"`` (``A`` the asset's name) above :data:`STALE_SHARE` (a suspended or
+        unrefreshed price: the window's ranks are mostly ties); both joined by "; ".
     """
     tau, share_a, share_b = np.broadcast_arrays(
         *(np.asarray(x, dtype=float) for x in (tau, stale_a, stale_b)))
+    names = [np.broadcast_to(np.asarray(n, dtype=object), tau.shape) for n in (name_a, name_b)]
     copies = np.abs(tau) >= COPY_TAU
     stale = np.stack([share_a > STALE_SHARE, share_b > STALE_SHARE])
     out = np.full(tau.shape, "", dtype=object)
     for i in zip(*np.nonzero(copies | stale.any(axis=0)), strict=True):  # flagged ones only
         parts = [f"|tau| {abs(tau[i]):.2f}: copies of one series?"] if copies[i] else []
-        parts += [f"{name} price stale on {share[i]:.0%} of the window"
-                  for name, share, hit in (("A", share_a, stale[0]), ("B", share_b, stale[1]))
+        parts += [f"{name[i]} price stale on {share[i]:.0%} of the window"
+                  for name, share, hit in zip(names, (share_a, share_b), stale, strict=True)
                   if hit[i]]
         out[i] = "; ".join(parts)
     return out

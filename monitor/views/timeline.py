@@ -176,9 +176,7 @@ class PairHistory:
         hit = why.ne("")
         if not hit.any():
             return ""
-        a, b = self.pair
-        kinds = why[hit].str.replace("A price", f"{a} price").str.replace("B price", f"{b} price")
-        first = kinds.iloc[-1] if hit.iloc[-1] else kinds.iloc[0]
+        first = why.iloc[-1] if hit.iloc[-1] else why[hit].iloc[0]
         return (f"{int(hit.sum())} window(s) are degenerate (e.g. {first}): the copula there "
                 "is at a bound of what it can describe; read their figures with care.")
 
@@ -234,7 +232,7 @@ def pair_history(view: StoreView, a: str, b: str) -> PairHistory:
                                      fallbacks["last"])
     rets = view.store.read_returns([a, b])
     frame["degenerate"] = degeneracy(frame["kendall_tau"],
-                                     *(_zero_share(rets[x], frame) for x in (a, b)))
+                                     *(_zero_share(rets[x], frame) for x in (a, b)), a, b)
     spans = episode_spans(view.store.read_episodes(view.signals_key, (a, b)),
                           frame["date"].iloc[-1])
     return PairHistory((a, b), frame, family_runs(frame), spans, q, view.settings.provenance(),
