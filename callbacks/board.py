@@ -4,6 +4,7 @@ level and excess matrices, ranking and the universe summary out (all computed by
 
 from __future__ import annotations
 
+from functools import partial
 from urllib.parse import quote
 
 from dash import Input, Output
@@ -116,4 +117,4 @@ def register(app, view) -> None:
     @app.callback(*[Output(i, p) for i, p in OUTPUTS], Input(ids.BOARD_DATE, "date"),
                   Input(ids.BOARD_TAIL_SOURCE, "value"), Input(ids.BOARD_HORIZON, "value"))
     def board(date, source, horizon):
-        return app.responses("board", lambda *x: show_board(view, *x), date, source, horizon)
+        return app.responses("board", partial(show_board, view), date, source, horizon)

@@ -3,6 +3,8 @@ diagnostics."""
 
 from __future__ import annotations
 
+from functools import partial
+
 from dash import Input, Output
 
 from layouts import ids
@@ -51,4 +53,4 @@ def register(app, view) -> None:
                   Output(ids.INPUTS_LJUNG_BOX, "columns"), Output(ids.INPUTS_NOTE, "children"),
                   Input(ids.INPUTS_ASSET, "value"), Input(ids.INPUTS_LAGS, "value"))
     def diagnostics(asset, lags):
-        return app.responses("inputs", lambda *x: show_diagnostics(view, *x), asset, lags)
+        return app.responses("inputs", partial(show_diagnostics, view), asset, lags)

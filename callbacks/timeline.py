@@ -4,6 +4,7 @@ drag on the figure fills the date range; the range and the pair make the Drill-d
 from __future__ import annotations
 
 import re
+from functools import partial
 from urllib.parse import urlencode
 
 import pandas as pd
@@ -119,7 +120,7 @@ def register(app, view) -> None:
 
     @app.callback(*[Output(i, p) for i, p in OUTPUTS], Input(ids.TIMELINE_PAIR, "value"))
     def pair(pair_text):
-        return app.responses("timeline", lambda x: show_pair(view, x), pair_text)
+        return app.responses("timeline", partial(show_pair, view), pair_text)
 
     @app.callback(Output(ids.TIMELINE_RANGE, "start_date"),
                   Output(ids.TIMELINE_RANGE, "end_date"),

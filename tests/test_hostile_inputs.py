@@ -81,7 +81,8 @@ def test_asset_names_the_store_mail_or_a_spreadsheet_would_mishandle(store_url, 
     if len(header) > 100_000:  # the long name is also past the line limit: raise that
         path.write_text(header.replace("A" * 100_000, "A" * 65) + "\n2024-01-02,1,2\n")
         match = "has 65 characters, more than the limit 64"
-    _refused(run, store_url, path, match=match)
+    err = _refused(run, store_url, path, match=match)
+    assert err.count("asset name ") == 1 and "column 2" in err  # names the one bad name
 
 
 def test_long_files_have_their_asset_names_checked(store_url, tmp_path, run):

@@ -32,6 +32,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from monitor.common.arrays import overlap_days
 from monitor.common.wording import CAUTION, finite_level_note
 from monitor.config import AlertRule, AlertsConfig, Config
 from monitor.data.store import Connection, Store, Table
@@ -282,7 +283,7 @@ def _fallback_words(fallbacks: pd.DataFrame | None, start: pd.Timestamp, end: pd
     marginal fit ("" when none did)."""
     if fallbacks is None or fallbacks.empty:
         return ""
-    hit = fallbacks[(fallbacks["first"] <= end) & (fallbacks["last"] >= start)]
+    hit = fallbacks[overlap_days(fallbacks["first"], fallbacks["last"], [start], [end])]
     if hit.empty:
         return ""
     assets = ", ".join(sorted(set(hit["asset"])))
