@@ -47,7 +47,7 @@ _BUTTON = {"padding": "6px 14px", "marginRight": "8px", "cursor": "pointer"}
 def pair_options(view) -> list[dict]:
     """Dropdown options ``{"label": "A / B", "value": "A/B"}``: the pairs with stored rolling
     results, or every pair of stored assets when none has been rolled yet."""
-    pairs = sorted(view.store.stored_pairs(view.rolling_key))
+    pairs = view.store.monitored_pairs(view.rolling_key)
     if not pairs:
         pairs = list(combinations(view.store.assets(), 2))
     return [{"label": f"{a} / {b}", "value": f"{a}/{b}"} for a, b in pairs]
@@ -59,10 +59,9 @@ def _latest_window(view, value: str | None) -> tuple[str | None, str | None]:
         return None, None
     a, b = parse_pair(value)
     for x, y in ((a, b), (b, a)):
-        timeline = view.store.read_timeline(view.rolling_key, x, y)
-        if not timeline.empty:
-            row = timeline.iloc[-1]
-            return row["start"].strftime("%Y-%m-%d"), row["date"].strftime("%Y-%m-%d")
+        window = view.store.last_window(view.rolling_key, x, y)
+        if window is not None:
+            return window[0].strftime("%Y-%m-%d"), window[1].strftime("%Y-%m-%d")
     return None, None
 
 

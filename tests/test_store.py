@@ -320,6 +320,8 @@ def test_metrics_of_an_earlier_window_end_and_tail_level_counts(store_url):
         now = store.metrics_as_of("r", days[8].date(), ["date", "kendall_tau"])
         back = store.metrics_as_of("r", days[8].date(), ["date", "kendall_tau"], back=5)
         counts = store.tail_level_counts("r", days[2].date(), days[8].date(), 0.3)
+        last = [store.last_window("r", *p) for p in (("ALDER", "CEDAR"), ("CEDAR", "ALDER"),
+                                                      ("ALDER", "ELM"))]
         with pytest.raises(ValueError, match="back must be an integer >= 0"):
             store.metrics_as_of("r", days[8].date(), ["date"], back=-1)
     assert now["date"].tolist() == [days[8], days[8]]
@@ -328,6 +330,8 @@ def test_metrics_of_an_earlier_window_end_and_tail_level_counts(store_url):
     assert back[["asset_a", "asset_b"]].values.tolist() == [["ALDER", "BIRCH"]]
     assert back["date"].tolist() == [days[3]] and back["kendall_tau"].iloc[0] == a[
         "kendall_tau"].iloc[3]
+    # The latest stored window, in the stored order only; None for a pair never rolled.
+    assert last == [(b["start"].iloc[-1].date(), days[-1].date()), None, None]
     # Counted by hand from the frames: window ends in [day 2, day 8] at or above 0.3.
     for frame, (x, y) in ((a, ("ALDER", "BIRCH")), (b, ("ALDER", "CEDAR"))):
         part = frame[(frame["date"] >= days[2]) & (frame["date"] <= days[8])]

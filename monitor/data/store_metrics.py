@@ -253,8 +253,9 @@ class MetricStore(StoreBase):
                           level: float, columns: tuple[str, str] = ("tail_lower_avg",
                                                                     "tail_upper_avg")
                           ) -> pd.DataFrame:
-        """Per pair, how many of its window ends in ``[first, last]`` have each of two tail
-        columns at or above ``level``: one grouped query over those dates.
+        """Per pair with a stored rolling state, how many of its window ends in
+        ``[first, last]`` have each of two tail columns at or above ``level``: one grouped
+        query over those dates (pairs with none are left out).
 
         Returns
         -------
@@ -269,16 +270,36 @@ class MetricStore(StoreBase):
         def above(col: str) -> sa.ColumnElement:
             return sa.func.sum(sa.case((sa.and_(known, m[col] >= level), 1), else_=0))
 
-        stmt = (sa.select(m.asset_a, m.asset_b,
+        # Joined from pair_state, so that each pair's dates are one range of the metrics key
+        # (settings, pair, date) rather than a filter on every stored window end.
+        p = pair_state.c
+        stmt = (sa.select(p.asset_a, p.asset_b,
                           sa.func.sum(sa.case((known, 1), else_=0)), above(a), above(b))
-                .where(m.settings == settings_key, m.date >= first, m.date <= last)
-                .group_by(m.asset_a, m.asset_b).order_by(m.asset_a, m.asset_b))
+                .select_from(pair_state.join(metrics, sa.and_(
+                    m.settings == p.settings, m.asset_a == p.asset_a, m.asset_b == p.asset_b,
+                    m.date >= first, m.date <= last)))
+                .where(p.settings == settings_key)
+                .group_by(p.asset_a, p.asset_b).order_by(p.asset_a, p.asset_b))
         with self.engine.connect() as conn:
             frame = row_frame(conn.execute(stmt).all(),
                            ["asset_a", "asset_b", "n_ends", f"n_{a}", f"n_{b}"])
         for c in ("n_ends", f"n_{a}", f"n_{b}"):
             frame[c] = pd.to_numeric(frame[c]).fillna(0).astype(np.int64)
         return frame
+
+    def last_window(self, settings_key: str, a: str, b: str
+                    ) -> tuple[dt.date, dt.date] | None:
+        """(start, end) of the pair's latest stored window (in the stored order ``a, b``), or
+        None: two index seeks, not a read of its timeline."""
+        m = metrics.c
+        last = (sa.select(pair_state.c.last_date).where(
+            pair_state.c.settings == settings_key, pair_state.c.asset_a == a,
+            pair_state.c.asset_b == b).scalar_subquery())
+        with self.engine.connect() as conn:
+            row = conn.execute(sa.select(m.start, m.date).where(
+                m.settings == settings_key, m.asset_a == a, m.asset_b == b,
+                m.date == last)).first()
+        return None if row is None else (row[0], row[1])
 
     def latest_window_end(self, settings_key: str) -> dt.date | None:
         """The latest stored window end of any pair under a rolling settings key."""

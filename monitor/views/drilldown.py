@@ -355,7 +355,7 @@ def pair_residuals(view, a: str, b: str) -> pd.DataFrame:
 
 
 def _stored_order(view, a: str, b: str) -> tuple[str, str] | None:
-    pairs = set(view.store.stored_pairs(view.rolling_key))
+    pairs = set(view.store.monitored_pairs(view.rolling_key))
     if (a, b) in pairs:
         return a, b
     if (b, a) in pairs:
