@@ -10,13 +10,19 @@ binaries the tests that need it skip with the reason, unless ``COMOVE_REQUIRE_PO
 database (``CREATE DATABASE`` with a unique name, dropped afterwards), so a store test covers
 both backends the design names. ``store_snapshot(url)`` captures everything a store holds so a
 test can assert that a refusal left it exactly as it was.
+
+Figures are built with plotly's property checks on (``COMOVE_VALIDATE_FIGURES=1``, set here
+before anything imports the views; servers the tests start inherit it), which serving skips.
 """
 
 from __future__ import annotations
 
+import os
+
+os.environ.setdefault("COMOVE_VALIDATE_FIGURES", "1")
+
 import glob
 import hashlib
-import os
 import re
 import shutil
 import socket

@@ -63,7 +63,6 @@ import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
 from numpy.typing import ArrayLike, NDArray
-from plotly.subplots import make_subplots
 from scipy.cluster import hierarchy
 from scipy.spatial.distance import squareform
 
@@ -81,7 +80,16 @@ from monitor.common.palette import (
     figure_layout,
 )
 from monitor.stats.signals import STATES, TAILS, states_on, universe_key
-from monitor.views.common import StoreView, binomial_band, parse_date, rounded_for_plot, tau_band
+from monitor.views.common import (
+    StoreView,
+    binomial_band,
+    figure,
+    parse_date,
+    rounded_for_plot,
+    row_axes,
+    stacked_layout,
+    tau_band,
+)
 
 __all__ = [
     "BOARD_COLUMNS",
@@ -705,22 +713,20 @@ def _heatmap_figure(data: BoardData, z: np.ndarray, hover: np.ndarray, title: st
                     colorscale, zmin: float, zmax: float, cell_format: str,
                     note: str | None = None) -> go.Figure:
     labels = list(data.assets)
-    heat = go.Heatmap(z=z, x=labels, y=labels, text=hover,
-                      hovertemplate="%{text}<extra></extra>", colorscale=colorscale,
-                      zmin=zmin, zmax=zmax, hoverongaps=False,
-                      colorbar={"thickness": 10, "len": 0.85})
+    heat = {"type": "heatmap", "z": z, "x": labels, "y": labels, "text": hover,
+            "hovertemplate": "%{text}<extra></extra>", "colorscale": colorscale,
+            "zmin": zmin, "zmax": zmax, "hoverongaps": False,
+            "colorbar": {"thickness": 10, "len": 0.85}}
     if len(labels) <= 12:
         heat.update(texttemplate=cell_format, textfont={"size": 10})
-    fig = go.Figure(heat)
-    fig.update_layout(**figure_layout(
+    notes = [] if not note else [{
+        "text": note, "xref": "paper", "yref": "paper", "x": 0, "y": -0.3,
+        "showarrow": False, "xanchor": "left", "font": {"size": 10, "color": MUTED}}]
+    return figure([heat], figure_layout(
         title={"text": title, "x": 0.01, "font": {"size": 13}}, height=420,
-        margin={"l": 70, "r": 10, "t": 36, "b": 70 if note is None else 92}))
-    fig.update_yaxes(autorange="reversed", tickfont={"size": 10})
-    fig.update_xaxes(tickangle=-45, tickfont={"size": 10})
-    if note:
-        fig.add_annotation(text=note, xref="paper", yref="paper", x=0, y=-0.3,
-                           showarrow=False, xanchor="left", font={"size": 10, "color": MUTED})
-    return fig
+        margin={"l": 70, "r": 10, "t": 36, "b": 70 if note is None else 92},
+        yaxis={"autorange": "reversed", "tickfont": {"size": 10}},
+        xaxis={"tickangle": -45, "tickfont": {"size": 10}}, annotations=notes))
 
 
 def _check(quantity: str, source: str) -> None:
@@ -878,10 +884,14 @@ def summary_figure(summary: pd.DataFrame, as_of: pd.Timestamp | None = None) -> 
     """
     x = summary.index.strftime("%Y-%m-%d").to_numpy()
     summary = rounded_for_plot(summary)
-    fig = make_subplots(rows=3, cols=1, shared_xaxes=True, vertical_spacing=0.07,
-                        row_heights=[0.5, 0.3, 0.2], subplot_titles=(
-                            "Cross-pair means", "Share of pairs in alert",
-                            "Pairs counted (carried: latest window from an earlier date)"))
+    layout = stacked_layout([0.5, 0.3, 0.2], 0.07, (
+        "Cross-pair means", "Share of pairs in alert",
+        "Pairs counted (carried: latest window from an earlier date)"))
+
+    def on(row: int, trace: dict) -> dict:
+        xa, ya = row_axes(row)
+        return {**trace, "x": x, "xaxis": xa, "yaxis": ya}
+
     lines = [("kendall_tau", "Kendall's tau", BLUE, "solid"),
              ("tail_lower_emp", "lower tail, nonparametric", VERMILION, "solid"),
              ("tail_lower_avg", "lower tail, model-averaged", VERMILION, "dash"),
@@ -889,34 +899,39 @@ def summary_figure(summary: pd.DataFrame, as_of: pd.Timestamp | None = None) -> 
              ("tail_upper_emp", "upper tail, nonparametric", SKY, "solid"),
              ("tail_upper_avg", "upper tail, model-averaged", SKY, "dash"),
              ("tail_upper", "upper tail, selected family", SKY, "dot")]
-    for col, name, colour, dash in lines:
-        if col not in summary or summary[col].isna().all():
-            continue  # e.g. averaged tails of a store written before they existed
-        fig.add_trace(go.Scatter(x=x, y=summary[col], name=name, mode="lines",
-                                 line={"color": colour, "dash": dash, "width": 1.4},
-                                 hovertemplate=f"{name} %{{y:.3f}}<extra></extra>"), row=1, col=1)
+    traces = [on(1, {"type": "scatter", "y": summary[col].to_numpy(), "name": name,
+                     "mode": "lines", "line": {"color": colour, "dash": dash, "width": 1.4},
+                     "hovertemplate": f"{name} %{{y:.3f}}<extra></extra>"})
+              for col, name, colour, dash in lines
+              # e.g. averaged tails of a store written before they existed
+              if col in summary and not summary[col].isna().all()]
     n = summary["n_pairs"].to_numpy(dtype=float)
     for tail, colour in (("lower", ORANGE), ("upper", PURPLE)):
-        fig.add_trace(go.Scatter(
-            x=x, y=summary[f"n_alert_{tail}"] / n, name=f"in {tail}-tail alert", mode="lines",
-            line={"color": colour, "width": 1.4}, customdata=np.c_[summary[f"n_alert_{tail}"], n],
-            hovertemplate=(f"{tail}-tail alert %{{y:.1%}} (%{{customdata[0]:.0f}} of "
-                           "%{customdata[1]:.0f} pairs)<extra></extra>")), row=2, col=1)
-    fig.add_trace(go.Scatter(x=x, y=summary["n_pairs"], name="pairs counted", mode="lines",
-                             line={"color": MUTED, "width": 1.4, "shape": "hv"},
-                             hovertemplate="%{y:.0f} pairs counted<extra></extra>"),
-                  row=3, col=1)
-    carried = summary["n_carried"] if "n_carried" in summary else pd.Series(0, summary.index)
-    fig.add_trace(go.Bar(x=x, y=carried, name="of them carried forward",
-                         marker={"color": ORANGE},
-                         hovertemplate="%{y:.0f} carried forward<extra></extra>"), row=3, col=1)
+        alerts = summary[f"n_alert_{tail}"].to_numpy(dtype=float)
+        traces.append(on(2, {
+            "type": "scatter", "y": alerts / n, "name": f"in {tail}-tail alert",
+            "mode": "lines", "line": {"color": colour, "width": 1.4},
+            "customdata": np.c_[alerts, n],
+            "hovertemplate": (f"{tail}-tail alert %{{y:.1%}} (%{{customdata[0]:.0f}} of "
+                              "%{customdata[1]:.0f} pairs)<extra></extra>")}))
+    traces.append(on(3, {"type": "scatter", "y": summary["n_pairs"].to_numpy(),
+                         "name": "pairs counted", "mode": "lines",
+                         "line": {"color": MUTED, "width": 1.4, "shape": "hv"},
+                         "hovertemplate": "%{y:.0f} pairs counted<extra></extra>"}))
+    carried = (summary["n_carried"].to_numpy() if "n_carried" in summary
+               else np.zeros(len(summary), dtype=int))
+    traces.append(on(3, {"type": "bar", "y": carried, "name": "of them carried forward",
+                         "marker": {"color": ORANGE},
+                         "hovertemplate": "%{y:.0f} carried forward<extra></extra>"}))
     if as_of is not None:
-        for row in (1, 2, 3):
-            fig.add_vline(x=pd.Timestamp(as_of).strftime("%Y-%m-%d"),
-                          line={"color": MUTED, "width": 1, "dash": "dash"}, row=row, col=1)
-    fig.update_yaxes(tickformat=".0%", rangemode="tozero", row=2, col=1)
-    fig.update_yaxes(rangemode="tozero", row=3, col=1)
-    fig.update_layout(**figure_layout(
-        height=560, hovermode="x unified", bargap=0,
+        day = pd.Timestamp(as_of).strftime("%Y-%m-%d")
+        layout["shapes"] = [
+            {"type": "line", "x0": day, "x1": day, "xref": row_axes(row)[0], "y0": 0,
+             "y1": 1, "yref": f"{row_axes(row)[1]} domain",
+             "line": {"color": MUTED, "width": 1, "dash": "dash"}} for row in (1, 2, 3)]
+    layout["yaxis2"].update(tickformat=".0%", rangemode="tozero")
+    layout["yaxis3"].update(rangemode="tozero")
+    fig = figure(traces, figure_layout(
+        **layout, height=560, hovermode="x unified", bargap=0,
         legend={"orientation": "h", "y": -0.1, "x": 0, "font": {"size": 11}}))
     return fig

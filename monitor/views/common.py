@@ -9,6 +9,7 @@ criterion, marginal model and mode, signal thresholds; :class:`monitor.settings.
 from __future__ import annotations
 
 import datetime as dt
+import os
 from dataclasses import dataclass
 
 import numpy as np
@@ -26,8 +27,14 @@ from monitor.settings import Settings
 from monitor.stats.empirical import tail_share_interval
 from monitor.stats.rolling import RollingSettings
 
-__all__ = ["LEVEL", "StoreView", "binomial_band", "blank_figure", "parse_date", "parse_pair",
-           "rounded_for_plot", "tau_band"]
+__all__ = ["LEVEL", "StoreView", "binomial_band", "blank_figure", "figure", "parse_date",
+           "parse_pair", "rounded_for_plot", "row_axes", "stacked_layout", "tau_band"]
+
+#: Whether :func:`figure` has plotly check every property. Off when serving: for a 30-asset
+#: heatmap with hover text, the checks (and the copies they make) cost 15 times the rest of
+#: building it. The test suite sets ``COMOVE_VALIDATE_FIGURES=1``, so that a misspelt
+#: property fails there.
+VALIDATE_FIGURES = os.environ.get("COMOVE_VALIDATE_FIGURES") == "1"
 
 
 @dataclass(frozen=True, slots=True)
@@ -249,6 +256,65 @@ def rounded_for_plot(frame: pd.DataFrame, digits: int = 4) -> pd.DataFrame:
     floats = out.select_dtypes("float").columns
     out[floats] = out[floats].round(digits)
     return out
+
+
+def figure(traces: list[dict], layout: dict) -> go.Figure:
+    """A plotly figure of trace and layout dictionaries, checked by plotly only when
+    :data:`VALIDATE_FIGURES` is on (tests); it reads and updates as any other figure."""
+    return go.Figure({"data": traces, "layout": layout}, _validate=VALIDATE_FIGURES)
+
+
+def row_axes(row: int, *, layout: bool = False) -> tuple[str, str]:
+    """The (x, y) axis names of row ``row`` (from 1) of :func:`stacked_layout`: as traces
+    name them, ``("x", "y")``, ``("x2", "y2")``, ...; with ``layout``, as the layout's keys
+    (``("xaxis", "yaxis")``, ``("xaxis2", "yaxis2")``, ...)."""
+    suffix = "" if row == 1 else str(row)
+    kind = "axis" if layout else ""
+    return f"x{kind}{suffix}", f"y{kind}{suffix}"
+
+
+def stacked_layout(row_heights: list[float], spacing: float,
+                   titles: tuple[str, ...] = ()) -> dict:
+    """Layout entries of plots stacked in rows over one shared x axis (the tick labels on the
+    bottom row), with a title above each row: what ``plotly.subplots.make_subplots(rows=n,
+    cols=1, shared_xaxes=True)`` lays out, as a dictionary for :func:`figure`.
+
+    Parameters
+    ----------
+    row_heights : list of float
+        Relative heights, top row first.
+    spacing : float
+        Gap between rows, as a share of the plotting height.
+    titles : tuple of str
+        One per row (or none).
+
+    Returns
+    -------
+    dict
+        ``xaxis``/``yaxis`` entries per row (:func:`row_axes`) and ``annotations`` holding
+        the titles; add the figure's own layout to it.
+    """
+    n = len(row_heights)
+    heights = np.asarray(row_heights, dtype=float)
+    heights = heights / heights.sum() * (1 - spacing * (n - 1))
+    bottom_axis = row_axes(n)[0]
+    layout: dict = {"annotations": []}
+    top = 1.0
+    for row, h in enumerate(heights, start=1):
+        x, y = row_axes(row)
+        x_key, y_key = row_axes(row, layout=True)
+        low = max(0.0, top - h)
+        layout[x_key] = {"anchor": y, "domain": [0.0, 1.0]}
+        if row < n:
+            layout[x_key].update(matches=bottom_axis, showticklabels=False)
+        layout[y_key] = {"anchor": x, "domain": [low, top]}
+        if titles:
+            layout["annotations"].append({
+                "text": titles[row - 1], "x": 0.5, "xanchor": "center", "xref": "paper",
+                "y": top, "yanchor": "bottom", "yref": "paper", "showarrow": False,
+                "font": {"size": 16}})
+        top = low - spacing
+    return layout
 
 
 def blank_figure(text: str = "", height: int = 200) -> go.Figure:

@@ -26,7 +26,6 @@ import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
 from numpy.typing import ArrayLike
-from plotly.subplots import make_subplots
 
 from monitor.common.arrays import overlap_days
 from monitor.common.errors import InputError
@@ -43,7 +42,15 @@ from monitor.common.palette import (
 )
 from monitor.stats.rolling import degeneracy
 from monitor.stats.signals import STATES, TAILS, states_on
-from monitor.views.common import StoreView, binomial_band, rounded_for_plot, tau_band
+from monitor.views.common import (
+    StoreView,
+    binomial_band,
+    figure,
+    rounded_for_plot,
+    row_axes,
+    stacked_layout,
+    tau_band,
+)
 
 __all__ = [
     "EPISODE_COLOURS",
@@ -299,12 +306,19 @@ def translucent(colour: str, alpha: float) -> str:
     return f"rgba({r},{g},{b},{alpha})"
 
 
-def _band(fig: go.Figure, x, low, high, colour: str, name: str, row: int, group: str) -> None:
-    fig.add_trace(go.Scatter(x=x, y=high, mode="lines", line={"width": 0}, hoverinfo="skip",
-                             showlegend=False, legendgroup=group), row=row, col=1)
-    fig.add_trace(go.Scatter(x=x, y=low, mode="lines", line={"width": 0}, fill="tonexty",
-                             fillcolor=translucent(colour, 0.2), name=name, legendgroup=group,
-                             hoverinfo="skip"), row=row, col=1)
+def _on(row: int, trace: dict) -> dict:
+    """A trace dictionary drawn on row ``row`` of the timeline (a scatter unless it says)."""
+    x_axis, y_axis = row_axes(row)
+    return {"type": "scatter", **trace, "xaxis": x_axis, "yaxis": y_axis}
+
+
+def _band(x, low, high, colour: str, name: str, row: int, group: str,
+          showlegend: bool = True) -> list[dict]:
+    return [_on(row, {"x": x, "y": high, "mode": "lines", "line": {"width": 0},
+                      "hoverinfo": "skip", "showlegend": False, "legendgroup": group}),
+            _on(row, {"x": x, "y": low, "mode": "lines", "line": {"width": 0},
+                      "fill": "tonexty", "fillcolor": translucent(colour, 0.2), "name": name,
+                      "legendgroup": group, "hoverinfo": "skip", "showlegend": showlegend})]
 
 
 #: Rows of the strip beneath the timeline, top to bottom.
@@ -412,151 +426,147 @@ def timeline_figure(history: PairHistory) -> go.Figure:
     """
     f = rounded_for_plot(history.frame)
     x = f["date"].dt.strftime("%Y-%m-%d").to_numpy()
-    fig = make_subplots(rows=4, cols=1, shared_xaxes=True, vertical_spacing=0.035,
-                        row_heights=[0.29, 0.29, 0.29, 0.13], subplot_titles=(
-                            "Kendall's tau (95% band)",
-                            f"Lower tail at q = {history.tail_q:g} (finite level)",
-                            f"Upper tail at q = {history.tail_q:g} (finite level)",
-                            "Selected family, its rotation, and the tail states"))
-    _tau_row(fig, f, x)
-    _fallback_marks(fig, f, x)
-    _tail_rows(fig, f, x, history.tail_q)
-    _strip_row(fig, f, x)
-    _episode_shading(fig, history.episodes)
-    _finish(fig, f, history.pair)
-    return fig
+    layout = stacked_layout([0.29, 0.29, 0.29, 0.13], 0.035, (
+        "Kendall's tau (95% band)", f"Lower tail at q = {history.tail_q:g} (finite level)",
+        f"Upper tail at q = {history.tail_q:g} (finite level)",
+        "Selected family, its rotation, and the tail states"))
+    traces = [*_tau_row(f, x), *_fallback_marks(f, x), *_tail_rows(f, x, history.tail_q),
+              *_strip_row(f, x)]
+    layout["shapes"] = _episode_shading(history.episodes)
+    return figure(traces, _finish(layout, f, history.pair))
 
 
-def _tau_row(fig: go.Figure, f: pd.DataFrame, x: np.ndarray) -> None:
+def _tau_row(f: pd.DataFrame, x: np.ndarray) -> list[dict]:
     """Row 1: Kendall's tau and its band."""
     tau_colour = SERIES_COLOURS["tau"]
-    _band(fig, x, f["tau_low"], f["tau_high"], tau_colour, "tau 95% band", 1, "tau")
-    fig.add_trace(go.Scatter(x=x, y=f["kendall_tau"], mode="lines", name="Kendall's tau",
-                             line={"color": tau_colour, "width": 1.5}, legendgroup="tau",
-                             customdata=np.c_[f["tau_low"], f["tau_high"]],
-                             hovertemplate="tau %{y:.3f} (95%: %{customdata[0]:.3f} to "
-                                           "%{customdata[1]:.3f})<extra></extra>"), row=1, col=1)
+    return [*_band(x, f["tau_low"].to_numpy(), f["tau_high"].to_numpy(), tau_colour,
+                   "tau 95% band", 1, "tau"),
+            _on(1, {"x": x, "y": f["kendall_tau"].to_numpy(), "mode": "lines",
+                    "name": "Kendall's tau", "line": {"color": tau_colour, "width": 1.5},
+                    "legendgroup": "tau", "customdata": np.c_[f["tau_low"], f["tau_high"]],
+                    "hovertemplate": "tau %{y:.3f} (95%: %{customdata[0]:.3f} to "
+                                     "%{customdata[1]:.3f})<extra></extra>"})]
 
 
-def _fallback_marks(fig: go.Figure, f: pd.DataFrame, x: np.ndarray) -> None:
+def _fallback_marks(f: pd.DataFrame, x: np.ndarray) -> list[dict]:
     """On the tau row, an x on every window holding residuals from a fallback fit."""
     hit = f["fallback"].to_numpy(dtype=bool)
     if not hit.any():
-        return
-    fig.add_trace(go.Scatter(
-        x=x[hit], y=f["kendall_tau"].to_numpy()[hit], mode="markers",
-        name="window holds EWMA-t fallback residuals", legendgroup="fallback",
-        marker={"symbol": "x-thin", "size": 7, "color": MUTED, "line": {"width": 1}},
-        hovertemplate="residuals from the EWMA-t fallback in this window<extra></extra>"),
-        row=1, col=1)
+        return []
+    return [_on(1, {
+        "x": x[hit], "y": f["kendall_tau"].to_numpy()[hit], "mode": "markers",
+        "name": "window holds EWMA-t fallback residuals", "legendgroup": "fallback",
+        "marker": {"symbol": "x-thin", "size": 7, "color": MUTED, "line": {"width": 1}},
+        "hovertemplate": "residuals from the EWMA-t fallback in this window<extra></extra>"})]
 
 
-def _tail_rows(fig: go.Figure, f: pd.DataFrame, x: np.ndarray, q: float) -> None:
+def _tail_rows(f: pd.DataFrame, x: np.ndarray, q: float) -> list[dict]:
     """Rows 2 and 3: per tail the Wilson band, the nonparametric, model-averaged, selected
     family's and Gaussian same-tau lines, and the independent pair's value q (the legend
     entries once, from the lower tail)."""
     emp_colour, model_colour = SERIES_COLOURS["tail_empirical"], SERIES_COLOURS["tail_model"]
+    traces = []
     for row, tail in ((2, "lower"), (3, "upper")):
         first = tail == "lower"
-        _band(fig, x, f[f"tail_{tail}_low"], f[f"tail_{tail}_high"], emp_colour,
-              "nonparametric 95% band (Wilson)", row, "emp-band")
-        fig.data[-1].showlegend = first
-        fig.add_trace(go.Scatter(
-            x=x, y=f[f"tail_{tail}_emp"], mode="lines", name="nonparametric C(q,q)/q",
-            line={"color": emp_colour, "width": 1.2}, legendgroup="emp", showlegend=first,
-            customdata=np.c_[f[f"tail_{tail}_low"], f[f"tail_{tail}_high"]],
-            hovertemplate=f"{tail} nonparametric %{{y:.3f}} (95%: %{{customdata[0]:.3f}} to "
-                          "%{customdata[1]:.3f})<extra></extra>"), row=row, col=1)
-        fig.add_trace(go.Scatter(
-            x=x, y=f[f"tail_{tail}_avg"], mode="lines", name="model-averaged (Akaike weights)",
-            line={"color": model_colour, "width": 1.5}, legendgroup="averaged",
-            showlegend=first,
-            hovertemplate=f"{tail} model-averaged %{{y:.3f}} (no stored s.e.)<extra></extra>"),
-            row=row, col=1)
-        # The selected family's own coefficient jumps between 0 and a large value as the
-        # choice flips between tail-free and tail-dependent families: a click in the legend
-        # shows it.
-        fig.add_trace(go.Scatter(
-            x=x, y=f[f"tail_{tail}"], mode="lines", name="model-implied (selected family)",
-            line={"color": model_colour, "width": 1, "dash": "dot"}, legendgroup="model",
-            showlegend=first, visible="legendonly",
-            hovertemplate=f"{tail} selected family %{{y:.3f}} (no stored s.e.)<extra></extra>"),
-            row=row, col=1)
-        fig.add_trace(go.Scatter(
-            x=x, y=f["gauss_tail_q"], mode="lines", name="Gaussian at the same tau",
-            line={"color": SERIES_COLOURS["gaussian_same_tau"], "width": 1, "dash": "dot"},
-            legendgroup="gauss",
-            showlegend=first, hovertemplate="Gaussian same-tau %{y:.3f}<extra></extra>"),
-            row=row, col=1)
-        # C_n(q,q)/q is a finite-level figure: an independent pair reads q, not 0.
-        fig.add_trace(go.Scatter(
-            x=[x[0], x[-1]], y=[q, q], mode="lines", name=f"independent pair (= q = {q:g})",
-            line={"color": MUTED, "width": 1, "dash": "dash"}, legendgroup="independent",
-            showlegend=first, hoverinfo="skip"), row=row, col=1)
+        low, high = f[f"tail_{tail}_low"].to_numpy(), f[f"tail_{tail}_high"].to_numpy()
+        traces += _band(x, low, high, emp_colour, "nonparametric 95% band (Wilson)", row,
+                        "emp-band", showlegend=first)
+        traces += [_on(row, {
+            "x": x, "y": f[f"tail_{tail}_emp"].to_numpy(), "mode": "lines",
+            "name": "nonparametric C(q,q)/q", "line": {"color": emp_colour, "width": 1.2},
+            "legendgroup": "emp", "showlegend": first, "customdata": np.c_[low, high],
+            "hovertemplate": f"{tail} nonparametric %{{y:.3f}} (95%: %{{customdata[0]:.3f}} "
+                             "to %{customdata[1]:.3f})<extra></extra>"}), _on(row, {
+            "x": x, "y": f[f"tail_{tail}_avg"].to_numpy(), "mode": "lines",
+            "name": "model-averaged (Akaike weights)",
+            "line": {"color": model_colour, "width": 1.5}, "legendgroup": "averaged",
+            "showlegend": first,
+            "hovertemplate": f"{tail} model-averaged %{{y:.3f}} (no stored s.e.)<extra></extra>"}),
+            # The selected family's own coefficient jumps between 0 and a large value as the
+            # choice flips between tail-free and tail-dependent families: a click in the
+            # legend shows it.
+            _on(row, {
+                "x": x, "y": f[f"tail_{tail}"].to_numpy(), "mode": "lines",
+                "name": "model-implied (selected family)",
+                "line": {"color": model_colour, "width": 1, "dash": "dot"},
+                "legendgroup": "model", "showlegend": first, "visible": "legendonly",
+                "hovertemplate": f"{tail} selected family %{{y:.3f}} (no stored s.e.)"
+                                 "<extra></extra>"}),
+            _on(row, {
+                "x": x, "y": f["gauss_tail_q"].to_numpy(), "mode": "lines",
+                "name": "Gaussian at the same tau",
+                "line": {"color": SERIES_COLOURS["gaussian_same_tau"], "width": 1,
+                         "dash": "dot"}, "legendgroup": "gauss", "showlegend": first,
+                "hovertemplate": "Gaussian same-tau %{y:.3f}<extra></extra>"}),
+            # C_n(q,q)/q is a finite-level figure: an independent pair reads q, not 0.
+            _on(row, {
+                "x": [x[0], x[-1]], "y": [q, q], "mode": "lines",
+                "name": f"independent pair (= q = {q:g})",
+                "line": {"color": MUTED, "width": 1, "dash": "dash"},
+                "legendgroup": "independent", "showlegend": first, "hoverinfo": "skip"})]
+    return traces
 
 
-def _strip_row(fig: go.Figure, f: pd.DataFrame, x: np.ndarray) -> None:
+def _key(row: int, name: str, group: str, title: str, marker: dict) -> dict:
+    """A legend-only entry: a coloured square naming a colour of the strip or shading."""
+    return _on(row, {"x": [None], "y": [None], "mode": "markers", "name": name,
+                     "legendgroup": group, "legendgrouptitle": {"text": title},
+                     "marker": {"symbol": "square", "size": 11, **marker}})
+
+
+def _strip_row(f: pd.DataFrame, x: np.ndarray) -> list[dict]:
     """Row 4: the family/rotation/state strip, and legend-only keys for its colours and for
     the episode shading."""
     z, labels, scale, text = _strip(f)
-    fig.add_trace(go.Heatmap(x=x, y=list(STRIP_ROWS), z=z, text=text,
-                             colorscale=scale, zmin=-0.5, zmax=len(labels) - 0.5,
-                             showscale=False, hovertemplate="%{y}: %{text}<extra></extra>",
-                             ygap=1), row=4, col=1)
-    seen = set(f["family"].astype(str))
+    traces = [_on(4, {"type": "heatmap", "x": x, "y": list(STRIP_ROWS), "z": z, "text": text,
+                      "colorscale": scale, "zmin": -0.5, "zmax": len(labels) - 0.5,
+                      "showscale": False, "hovertemplate": "%{y}: %{text}<extra></extra>",
+                      "ygap": 1})]
+    families = f["family"].astype(str)
     for fam, colour in FAMILY_COLOURS.items():
-        if fam in seen:
-            share = float((f["family"].astype(str) == fam).mean())
-            fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name=f"{fam} "
-                                     f"({share:.0%} of windows)", legendgroup="families",
-                                     legendgrouptitle_text="selected family",
-                                     marker={"symbol": "square", "size": 11, "color": colour}),
-                          row=4, col=1)
-    seen_rot = set(f["rotation"].astype(int))
+        if (families == fam).any():
+            traces.append(_key(4, f"{fam} ({(families == fam).mean():.0%} of windows)",
+                               "families", "selected family", {"color": colour}))
+    rotations = f["rotation"].astype(int)
     for rot, shade in ROTATION_SHADES.items():
-        if rot in seen_rot:
-            share = float((f["rotation"].astype(int) == rot).mean())
-            fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers",
-                                     name=f"{rot}° ({share:.0%})", legendgroup="rotations",
-                                     legendgrouptitle_text="rotation (counter-clockwise)",
-                                     marker={"symbol": "square", "size": 11, "color": shade,
-                                             "line": {"color": MUTED, "width": 1}}),
-                          row=4, col=1)
-    for state in STATES:
-        fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name=state,
-                                 legendgroup="states", legendgrouptitle_text="tail state",
-                                 marker={"symbol": "square", "size": 11,
-                                         "color": STATE_COLOURS[state]}), row=4, col=1)
-    for tail in TAILS:
-        fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers",
-                                 name=f"{tail}-tail alert episode", legendgroup="episodes",
-                                 legendgrouptitle_text="shaded",
-                                 marker={"symbol": "square", "size": 11,
-                                         "color": translucent(EPISODE_COLOURS[tail], 0.35)}),
-                      row=1, col=1)
+        if (rotations == rot).any():
+            traces.append(_key(4, f"{rot}° ({(rotations == rot).mean():.0%})", "rotations",
+                               "rotation (counter-clockwise)",
+                               {"color": shade, "line": {"color": MUTED, "width": 1}}))
+    traces += [_key(4, state, "states", "tail state", {"color": STATE_COLOURS[state]})
+               for state in STATES]
+    traces += [_key(1, f"{tail}-tail alert episode", "episodes", "shaded",
+                    {"color": translucent(EPISODE_COLOURS[tail], 0.35)}) for tail in TAILS]
+    return traces
 
 
-def _episode_shading(fig: go.Figure, episodes: pd.DataFrame) -> None:
+def _episode_shading(episodes: pd.DataFrame) -> list[dict]:
     """One shaded rectangle per episode on the tau row and its tail's row."""
+    shapes = []
     for e in episodes.itertuples(index=False):
-        rows = (1, 2) if e.tail == "lower" else (1, 3)
-        for row in rows:
-            fig.add_vrect(x0=e.start, x1=e.end, row=row, col=1, layer="below", line_width=0,
-                          fillcolor=translucent(EPISODE_COLOURS[e.tail], 0.14))
+        for row in ((1, 2) if e.tail == "lower" else (1, 3)):
+            x_axis, y_axis = row_axes(row)
+            shapes.append({"type": "rect", "x0": e.start, "x1": e.end, "xref": x_axis,
+                           "y0": 0, "y1": 1, "yref": f"{y_axis} domain", "layer": "below",
+                           "line": {"width": 0},
+                           "fillcolor": translucent(EPISODE_COLOURS[e.tail], 0.14)})
+    return shapes
 
 
-def _finish(fig: go.Figure, f: pd.DataFrame, pair: tuple[str, str]) -> None:
+def _finish(layout: dict, f: pd.DataFrame, pair: tuple[str, str]) -> dict:
     """Fixed y axes (a drag selects dates), the tau axis fitted to its band, the layout."""
     a, b = pair
-    fig.update_yaxes(fixedrange=True)
-    fig.update_yaxes(range=list(tau_axis_range(f["tau_low"], f["tau_high"])), row=1, col=1,
-                     zeroline=True, zerolinecolor=RULE)
-    fig.update_yaxes(range=[0, 1], row=2, col=1)
-    fig.update_yaxes(range=[0, 1], row=3, col=1)
-    fig.update_xaxes(showspikes=True, spikemode="across", spikecolor=MUTED, spikethickness=1)
-    fig.update_layout(**figure_layout(
-        height=900, dragmode="zoom", hovermode="x unified",
+    for row in range(1, 5):
+        x_axis, y_axis = row_axes(row, layout=True)
+        layout[y_axis]["fixedrange"] = True
+        layout[x_axis].update(showspikes=True, spikemode="across", spikecolor=MUTED,
+                              spikethickness=1)
+    layout["yaxis"].update(range=list(tau_axis_range(f["tau_low"], f["tau_high"])),
+                           zeroline=True, zerolinecolor=RULE)
+    layout["yaxis2"]["range"] = layout["yaxis3"]["range"] = [0, 1]
+    return figure_layout(
+        **layout, height=900, dragmode="zoom", hovermode="x unified",
         legend={"orientation": "h", "y": -0.05, "yanchor": "top", "x": 0,
                 "font": {"size": 11}, "groupclick": "toggleitem"},
         margin={"l": 56, "r": 16, "t": 48, "b": 120},
-        title={"text": f"{a} / {b}", "x": 0.01, "font": {"size": 14}}))
+        title={"text": f"{a} / {b}", "x": 0.01, "font": {"size": 14}})
