@@ -44,7 +44,7 @@ def page_modules(kind: str) -> dict[str, object]:
 
 def create_app(cfg: Config, *, store: Store | None = None, secret: str | None = None,
                cache_dir: str | None = None, hosts: tuple[str, ...] = (),
-               max_jobs: int = DEFAULT_JOBS) -> dash.Dash:
+               max_jobs: int = DEFAULT_JOBS, slots=None) -> dash.Dash:
     """The dashboard for ``cfg``.
 
     Parameters
@@ -64,11 +64,14 @@ def create_app(cfg: Config, *, store: Store | None = None, secret: str | None = 
     max_jobs : int
         Window studies computing at once (:class:`callbacks.jobs.BoundedJobs`); the app's
         ``jobs`` attribute holds the manager, to shut it down with the server.
+    slots : semaphore, optional
+        Job slots shared with other server processes (:func:`callbacks.jobs.job_slots` of
+        ``max_jobs``), which then share ``cache_dir`` too.
     """
     store = store or Store(cfg.store.url, create=False)
     view = StoreView.open(cfg, store)
     manager = BoundedJobs(diskcache.Cache(cache_dir or tempfile.mkdtemp(
-        prefix="comove-dash-")), max_jobs)
+        prefix="comove-dash-")), max_jobs, slots)
     app = dash.Dash(__name__, title="comove", suppress_callback_exceptions=True,
                     background_callback_manager=manager, update_title=None)
     app.layout = shell(view.provenance())

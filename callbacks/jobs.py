@@ -24,6 +24,14 @@ from dash import DiskcacheManager
 DEFAULT_JOBS = max(1, os.cpu_count() or 1)
 
 
+def job_slots(max_jobs: int = DEFAULT_JOBS):
+    """A semaphore of ``max_jobs`` slots that server processes forked after it share, so
+    that the bound holds across them (:class:`BoundedJobs`' ``slots``)."""
+    if max_jobs < 1:
+        raise ValueError(f"max_jobs must be at least 1, got {max_jobs}")
+    return multiprocess.BoundedSemaphore(max_jobs)
+
+
 class BoundedJobs(DiskcacheManager):
     """A :class:`dash.DiskcacheManager` running at most ``max_jobs`` jobs at once.
 
@@ -32,14 +40,15 @@ class BoundedJobs(DiskcacheManager):
     cache : diskcache.Cache
     max_jobs : int
         Jobs computing at once; later ones wait in their own process until a slot frees.
+    slots : semaphore, optional
+        The slots (:func:`job_slots` of ``max_jobs``), when several server processes share
+        them and the cache; by default the manager's own.
     """
 
-    def __init__(self, cache, max_jobs: int = DEFAULT_JOBS):
+    def __init__(self, cache, max_jobs: int = DEFAULT_JOBS, slots=None):
         super().__init__(cache)
-        if max_jobs < 1:
-            raise ValueError(f"max_jobs must be at least 1, got {max_jobs}")
         self.max_jobs = max_jobs
-        self._slots = multiprocess.BoundedSemaphore(max_jobs)
+        self._slots = slots if slots is not None else job_slots(max_jobs)
         self._parent = os.getpid()
         atexit.register(self.shutdown)
 

@@ -10,17 +10,25 @@ Host names: requests must name a host the dashboard answers to (``Host`` header)
 loopback names, the bind address, and any ``--server-name`` given; others get 400 (a guard
 against DNS rebinding of the unauthenticated loopback server).
 
-Serving: the dashboard runs on waitress, a production WSGI server in pure Python (several
-threads, so that the board, a figure and a running window study are served side by side), not
-on Flask's development server. Behind a reverse proxy (TLS, a team's host name), keep
-``comove serve`` on 127.0.0.1 and let the proxy forward to it.
+Serving: the dashboard runs on waitress, a production WSGI server in pure Python, not on
+Flask's development server: :data:`DEFAULT_PROCESSES` server processes (``--processes``), each
+with :data:`SERVER_THREADS` threads, accept on one listening socket. Threads of one process
+share one interpreter, so pages computed at the same time for different users queue behind
+each other there; several processes compute them side by side, one per core. Window studies
+(background jobs) are shared by every process: one job folder, one bound on the studies
+computing at once. A server process that dies is replaced. Behind a reverse proxy (TLS, a
+team's host name), keep ``comove serve`` on 127.0.0.1 and let the proxy forward to it.
 """
 
 from __future__ import annotations
 
+import base64
 import ipaddress
 import os
+import signal
 import socket
+import sys
+import tempfile
 import threading
 import time
 import webbrowser
@@ -32,10 +40,16 @@ import pandas as pd
 from monitor.common.errors import InputError
 from monitor.config import Config, StoreConfig
 
-from .app import SECRET_ENV, create_app
+from .app import LOOPBACK_HOSTS, SECRET_ENV, create_app
+from .jobs import job_slots
 
-#: Worker threads of the WSGI server (waitress's default is 4).
+#: Worker threads of each server process (waitress's default is 4).
 SERVER_THREADS = 8
+#: Server processes by default: one per core, at most 4.
+DEFAULT_PROCESSES = max(1, min(4, os.cpu_count() or 1))
+#: A server process that stops within this many seconds of starting is not replaced: the
+#: server stops with an error instead of restarting it in a loop.
+QUICK_EXIT_SECONDS = 10.0
 #: Shortest access secret accepted.
 MIN_SECRET = 12
 LOOPBACK_NAMES = ("localhost",)
@@ -78,44 +92,136 @@ def access_secret(host: str, environ=os.environ) -> str | None:
     return secret
 
 
-def _check_port(host: str, port: int) -> None:
+def _listen(host: str, port: int) -> socket.socket:
+    """The listening socket every server process accepts on."""
     if not 0 < port < 65536:
         raise InputError(f"--port must be a TCP port (1-65535), got {port}")
     family = socket.AF_INET6 if ":" in host else socket.AF_INET
-    with socket.socket(family, socket.SOCK_STREAM) as sock:
-        try:
-            sock.bind((host, port))
-        except OSError as exc:
-            raise InputError(f"--host {host} --port {port}: cannot listen there "
-                             f"({exc.strerror or exc})") from None
+    sock = socket.socket(family, socket.SOCK_STREAM)
+    sock.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)  # a restart right after a stop
+    try:
+        sock.bind((host, port))
+        sock.listen(1024)
+    except OSError as exc:
+        sock.close()
+        raise InputError(f"--host {host} --port {port}: cannot listen there "
+                         f"({exc.strerror or exc})") from None
+    return sock
 
 
 def serve(cfg: Config, host: str = "127.0.0.1", port: int = 8050, *,
-          open_browser: bool = False, server_names: tuple[str, ...] = ()) -> None:
+          open_browser: bool = False, server_names: tuple[str, ...] = (),
+          processes: int = DEFAULT_PROCESSES) -> None:
     """Serve the dashboard of ``cfg``'s store until interrupted; it answers to the loopback
-    names, the bind address (unless a wildcard) and ``server_names``."""
+    names, the bind address (unless a wildcard) and ``server_names``, from ``processes``
+    server processes."""
     secret = access_secret(host)
-    _check_port(host, port)
+    if isinstance(processes, bool) or not isinstance(processes, int) or processes < 1:
+        raise InputError(f"--processes must be a whole number of at least 1, got {processes}")
+    listener = _listen(host, port)
     from monitor.data.store import Store
 
-    store = Store(cfg.store.url, create=False)
+    try:
+        with Store(cfg.store.url, create=False) as store:  # refuses a missing store here
+            shown = store.shown_url
+    except BaseException:
+        listener.close()
+        raise
     bound = () if host in ("0.0.0.0", "::") else (host,)
-    app = create_app(cfg, store=store, secret=secret, hosts=(*bound, *server_names))
+    shared = {"secret": secret, "hosts": (*bound, *server_names),
+              "cache_dir": tempfile.mkdtemp(prefix="comove-dash-"), "slots": job_slots()}
     url = f"http://{'127.0.0.1' if host in ('0.0.0.0', '::') else host}:{port}/"
-    print(f"dashboard on {url} (store {store.shown_url}; waitress, {SERVER_THREADS} threads; "
-          "Ctrl+C stops it)", flush=True)
+    where = (f"{processes} processes x {SERVER_THREADS} threads" if processes > 1
+             else f"{SERVER_THREADS} threads")
+    print(f"dashboard on {url} (store {shown}; waitress, {where}; Ctrl+C stops it)",
+          flush=True)
     if open_browser:
         threading.Timer(1.0, webbrowser.open, args=(url,)).start()
+    try:
+        if processes == 1:
+            _serve_here(cfg, listener, shared)
+        else:
+            _supervise(cfg, listener, shared, processes)
+    finally:
+        listener.close()
+
+
+def _serve_here(cfg: Config, listener: socket.socket, shared: dict) -> None:
+    """One server process: its own store connections and app, on the shared socket."""
     from waitress import create_server
 
-    server = create_server(app.server, host=host, port=port, threads=SERVER_THREADS,
+    from monitor.data.store import Store
+
+    # A terminated server process still stops its window studies and closes the store.
+    signal.signal(signal.SIGTERM, lambda *_: sys.exit(0))
+    store = Store(cfg.store.url, create=False)
+    app = create_app(cfg, store=store, secret=shared["secret"], hosts=shared["hosts"],
+                     cache_dir=shared["cache_dir"], slots=shared["slots"])
+    _render_index(app, shared["secret"])
+    server = create_server(app.server, sockets=[listener], threads=SERVER_THREADS,
                            ident="comove")
     try:
         server.run()
+    except KeyboardInterrupt:
+        pass
     finally:
         server.close()
         app.jobs.shutdown()  # no window study outlives the server
         store.close()
+
+
+def _render_index(app, secret: str | None) -> None:
+    """Render the page once before serving: Dash registers the script bundles it serves
+    while rendering it, and another server process may have answered the browser's first
+    request (without this, that process refuses every script)."""
+    headers = {"Host": LOOPBACK_HOSTS[0]}
+    if secret:
+        token = base64.b64encode(f"comove:{secret}".encode()).decode()
+        headers["Authorization"] = f"Basic {token}"
+    response = app.server.test_client().get("/", headers=headers)
+    if response.status_code != 200:
+        raise RuntimeError(f"the dashboard page did not render (HTTP {response.status_code})")
+
+
+def _supervise(cfg: Config, listener: socket.socket, shared: dict, processes: int) -> None:
+    """Start ``processes`` server processes, replace any that dies, stop them all on
+    Ctrl+C or SIGTERM."""
+    import multiprocess
+
+    context = multiprocess.get_context("fork")  # the socket and job slots are inherited
+
+    def start() -> tuple:
+        child = context.Process(target=_serve_here, args=(cfg, listener, shared),
+                                name="comove-server")
+        child.start()
+        return child, time.monotonic()
+
+    previous = signal.signal(signal.SIGTERM, lambda *_: sys.exit(0))
+    children = [start() for _ in range(processes)]
+    try:
+        while True:
+            time.sleep(0.5)
+            for k, (child, started) in enumerate(children):
+                if child.is_alive():
+                    continue
+                if time.monotonic() - started < QUICK_EXIT_SECONDS:
+                    raise InputError(f"a server process stopped right after starting (exit "
+                                     f"code {child.exitcode}); see the lines above")
+                print(f"server process {child.pid} stopped (exit code {child.exitcode}); "
+                      "starting another", flush=True)
+                children[k] = start()
+    except KeyboardInterrupt:
+        pass
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+        for child, _ in children:
+            if child.is_alive():
+                child.terminate()
+        for child, _ in children:
+            child.join(timeout=15)
+            if child.is_alive():
+                child.kill()
+                child.join(timeout=5)
 
 
 def prepare_demo(folder: str | os.PathLike = DEMO_FOLDER, store_url: str | None = None,
@@ -148,6 +254,6 @@ def prepare_demo(folder: str | os.PathLike = DEMO_FOLDER, store_url: str | None 
 
 def demo(port: int = 8050, *, open_browser: bool = True, store_url: str | None = None) -> None:
     """``comove demo``: the demo store (built on first use), then the dashboard on 127.0.0.1."""
-    _check_port("127.0.0.1", port)
+    _listen("127.0.0.1", port).close()  # refuse a busy port before building the store
     cfg = prepare_demo(store_url=store_url)
     serve(cfg, "127.0.0.1", port, open_browser=open_browser)

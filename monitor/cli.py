@@ -211,6 +211,9 @@ def _add_serve(sub) -> None:
                    help="a host name the dashboard answers to besides the loopback names and "
                         "the bind address (e.g. a team's name behind a reverse proxy); "
                         "repeatable. Requests naming any other host get 400")
+    p.add_argument("--processes", type=int, default=None, metavar="N",
+                   help="server processes answering side by side (default: one per core, at "
+                        "most 4); 1 serves from this process alone")
 
 
 # ----------------------------------------------------------------------------- commands
@@ -446,9 +449,10 @@ def _export_timeline(args: argparse.Namespace, cfg: Config) -> int:
 
 def _cmd_serve(args: argparse.Namespace, cfg: Config) -> int:
     # The dashboard lives outside the library (monitor/ does not depend on dash).
-    from callbacks.serve import serve
+    from callbacks.serve import DEFAULT_PROCESSES, serve
 
-    serve(cfg, args.host, args.port, server_names=tuple(args.server_name))
+    processes = DEFAULT_PROCESSES if args.processes is None else args.processes
+    serve(cfg, args.host, args.port, server_names=tuple(args.server_name), processes=processes)
     return 0
 
 
