@@ -118,6 +118,8 @@ def main() -> None:
     ap.add_argument("--window", type=int, default=250)
     ap.add_argument("--clients", type=int, default=10)
     ap.add_argument("--rounds", type=int, default=3)
+    ap.add_argument("--processes", type=int, default=None,
+                    help="server processes (default: the server's own, one per core)")
     ap.add_argument("--cold", action="store_true",
                     help="every request of every client different (another Board date, pair, "
                          "asset and address each time): no response is served from the cache")
@@ -127,7 +129,8 @@ def main() -> None:
     config.write_text(f'[store]\nurl = "{args.store}"\n[rolling]\nwindow = {args.window}\n')
     server = subprocess.Popen(
         [sys.executable, "-c", "import sys; from monitor.cli import main; sys.exit(main())",
-         "serve", "--port", str(port), "--config", str(config)], cwd=ROOT,
+         "serve", "--port", str(port), "--config", str(config),
+         *([] if args.processes is None else ["--processes", str(args.processes)])], cwd=ROOT,
         env={**os.environ, "PYTHONPATH": str(ROOT)}, stdout=subprocess.DEVNULL,
         stderr=subprocess.STDOUT)
     base = f"http://127.0.0.1:{port}"
@@ -171,7 +174,7 @@ def main() -> None:
             many = run(base, [all_plans], args.clients, args.rounds)
         print(f"store {args.store}: {len(pairs)} pairs; {args.rounds} rounds per client; "
               f"{'cold: every request different' if args.cold else 'the same requests'}; "
-              "waitress (8 threads) on 127.0.0.1")
+              f"waitress, {args.processes or 'default'} server process(es) on 127.0.0.1")
         print(f"{'request':34s} {'1 client p50':>12s} {'p95':>7s} "
               f"{f'{args.clients} clients p50':>17s} {'p95':>7s} {'ratio':>6s}")
         for name in one:
