@@ -81,24 +81,30 @@ def test_loopback_app_serves_without_credentials(dash_store):
 
 
 
-def test_comove_serve_answers_on_a_production_wsgi_server(dash_store):
-    """`comove serve` as a user starts it: a real process on a free port, HTTP 200 from the
-    page, and no Flask development-server warning (it runs on waitress)."""
+def _comove_serve(port: int, store_url: str, *args: str):
+    """`comove serve` as a user starts it: a process of its own, output captured, no secret."""
     import os
     import subprocess
     import sys
-    import time
-    import urllib.request
     from pathlib import Path
 
     root = Path(__file__).resolve().parents[2]
-    port = free_port()
     env = {**os.environ, "PYTHONPATH": str(root), "PYTHONUNBUFFERED": "1"}
     env.pop(SECRET_ENV, None)
-    proc = subprocess.Popen(
+    return subprocess.Popen(
         [sys.executable, "-c", "import sys; from monitor.cli import main; sys.exit(main())",
-         "serve", "--port", str(port), "--store", dash_store.url],
+         "serve", "--port", str(port), "--store", store_url, *args],
         cwd=root, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+
+
+def test_comove_serve_answers_on_a_production_wsgi_server(dash_store):
+    """`comove serve` as a user starts it: a real process on a free port, HTTP 200 from the
+    page, and no Flask development-server warning (it runs on waitress)."""
+    import time
+    import urllib.request
+
+    port = free_port()
+    proc = _comove_serve(port, dash_store.url)
     try:
         status, body, deadline = None, "", time.monotonic() + 60
         while time.monotonic() < deadline and proc.poll() is None:
@@ -226,25 +232,15 @@ def test_responses_are_reused_until_the_store_changes(dash_store, tmp_path):
 def test_several_server_processes_answer_side_by_side_and_stop_together(dash_store):
     """`comove serve --processes 2`: two server processes accept on one port, concurrent
     requests are all answered, and SIGTERM to the command stops every one of them."""
-    import os
     import signal
-    import subprocess
-    import sys
     import time
     import urllib.request
     from concurrent.futures import ThreadPoolExecutor
-    from pathlib import Path
 
     import psutil
 
-    root = Path(__file__).resolve().parents[2]
     port = free_port()
-    env = {**os.environ, "PYTHONPATH": str(root), "PYTHONUNBUFFERED": "1"}
-    env.pop(SECRET_ENV, None)
-    proc = subprocess.Popen(
-        [sys.executable, "-c", "import sys; from monitor.cli import main; sys.exit(main())",
-         "serve", "--port", str(port), "--store", dash_store.url, "--processes", "2"],
-        cwd=root, env=env, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+    proc = _comove_serve(port, dash_store.url, "--processes", "2")
     url = f"http://127.0.0.1:{port}/_dash-layout"
 
     def get(address):
