@@ -84,9 +84,10 @@ from monitor.views.common import (
     StoreView,
     binomial_band,
     figure,
+    on_row,
     parse_date,
     rounded_for_plot,
-    row_axes,
+    row_span,
     stacked_layout,
     tau_band,
 )
@@ -888,10 +889,6 @@ def summary_figure(summary: pd.DataFrame, as_of: pd.Timestamp | None = None) -> 
         "Cross-pair means", "Share of pairs in alert",
         "Pairs counted (carried: latest window from an earlier date)"))
 
-    def on(row: int, trace: dict) -> dict:
-        xa, ya = row_axes(row)
-        return {**trace, "x": x, "xaxis": xa, "yaxis": ya}
-
     lines = [("kendall_tau", "Kendall's tau", BLUE, "solid"),
              ("tail_lower_emp", "lower tail, nonparametric", VERMILION, "solid"),
              ("tail_lower_avg", "lower tail, model-averaged", VERMILION, "dash"),
@@ -899,36 +896,35 @@ def summary_figure(summary: pd.DataFrame, as_of: pd.Timestamp | None = None) -> 
              ("tail_upper_emp", "upper tail, nonparametric", SKY, "solid"),
              ("tail_upper_avg", "upper tail, model-averaged", SKY, "dash"),
              ("tail_upper", "upper tail, selected family", SKY, "dot")]
-    traces = [on(1, {"type": "scatter", "y": summary[col].to_numpy(), "name": name,
-                     "mode": "lines", "line": {"color": colour, "dash": dash, "width": 1.4},
-                     "hovertemplate": f"{name} %{{y:.3f}}<extra></extra>"})
+    traces = [on_row(1, {"x": x, "y": summary[col].to_numpy(), "name": name, "mode": "lines",
+                         "line": {"color": colour, "dash": dash, "width": 1.4},
+                         "hovertemplate": f"{name} %{{y:.3f}}<extra></extra>"})
               for col, name, colour, dash in lines
               # e.g. averaged tails of a store written before they existed
               if col in summary and not summary[col].isna().all()]
     n = summary["n_pairs"].to_numpy(dtype=float)
     for tail, colour in (("lower", ORANGE), ("upper", PURPLE)):
         alerts = summary[f"n_alert_{tail}"].to_numpy(dtype=float)
-        traces.append(on(2, {
-            "type": "scatter", "y": alerts / n, "name": f"in {tail}-tail alert",
-            "mode": "lines", "line": {"color": colour, "width": 1.4},
-            "customdata": np.c_[alerts, n],
+        traces.append(on_row(2, {
+            "x": x, "y": alerts / n, "name": f"in {tail}-tail alert", "mode": "lines",
+            "line": {"color": colour, "width": 1.4}, "customdata": np.c_[alerts, n],
             "hovertemplate": (f"{tail}-tail alert %{{y:.1%}} (%{{customdata[0]:.0f}} of "
                               "%{customdata[1]:.0f} pairs)<extra></extra>")}))
-    traces.append(on(3, {"type": "scatter", "y": summary["n_pairs"].to_numpy(),
-                         "name": "pairs counted", "mode": "lines",
-                         "line": {"color": MUTED, "width": 1.4, "shape": "hv"},
-                         "hovertemplate": "%{y:.0f} pairs counted<extra></extra>"}))
+    traces.append(on_row(3, {"x": x, "y": summary["n_pairs"].to_numpy(),
+                             "name": "pairs counted", "mode": "lines",
+                             "line": {"color": MUTED, "width": 1.4, "shape": "hv"},
+                             "hovertemplate": "%{y:.0f} pairs counted<extra></extra>"}))
     carried = (summary["n_carried"].to_numpy() if "n_carried" in summary
                else np.zeros(len(summary), dtype=int))
-    traces.append(on(3, {"type": "bar", "y": carried, "name": "of them carried forward",
-                         "marker": {"color": ORANGE},
-                         "hovertemplate": "%{y:.0f} carried forward<extra></extra>"}))
+    traces.append(on_row(3, {"type": "bar", "x": x, "y": carried,
+                             "name": "of them carried forward", "marker": {"color": ORANGE},
+                             "hovertemplate": "%{y:.0f} carried forward<extra></extra>"}))
     if as_of is not None:
         day = pd.Timestamp(as_of).strftime("%Y-%m-%d")
         layout["shapes"] = [
-            {"type": "line", "x0": day, "x1": day, "xref": row_axes(row)[0], "y0": 0,
-             "y1": 1, "yref": f"{row_axes(row)[1]} domain",
-             "line": {"color": MUTED, "width": 1, "dash": "dash"}} for row in (1, 2, 3)]
+            row_span(row, {"type": "line", "x0": day, "x1": day,
+                           "line": {"color": MUTED, "width": 1, "dash": "dash"}})
+            for row in (1, 2, 3)]
     layout["yaxis2"].update(tickformat=".0%", rangemode="tozero")
     layout["yaxis3"].update(rangemode="tozero")
     fig = figure(traces, figure_layout(

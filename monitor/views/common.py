@@ -27,8 +27,9 @@ from monitor.settings import Settings
 from monitor.stats.empirical import tail_share_interval
 from monitor.stats.rolling import RollingSettings
 
-__all__ = ["LEVEL", "StoreView", "binomial_band", "blank_figure", "figure", "parse_date",
-           "parse_pair", "rounded_for_plot", "row_axes", "stacked_layout", "tau_band"]
+__all__ = ["LEVEL", "StoreView", "binomial_band", "blank_figure", "figure", "on_row",
+           "parse_date", "parse_pair", "rounded_for_plot", "row_axes", "row_span",
+           "stacked_layout", "tau_band"]
 
 #: Whether :func:`figure` has plotly check every property. Off when serving: for a 30-asset
 #: heatmap with hover text, the checks (and the copies they make) cost 15 times the rest of
@@ -271,6 +272,20 @@ def row_axes(row: int, *, layout: bool = False) -> tuple[str, str]:
     suffix = "" if row == 1 else str(row)
     kind = "axis" if layout else ""
     return f"x{kind}{suffix}", f"y{kind}{suffix}"
+
+
+def on_row(row: int, trace: dict) -> dict:
+    """A trace dictionary drawn on row ``row`` of :func:`stacked_layout` (a scatter unless
+    it says otherwise)."""
+    x_axis, y_axis = row_axes(row)
+    return {"type": "scatter", **trace, "xaxis": x_axis, "yaxis": y_axis}
+
+
+def row_span(row: int, shape: dict) -> dict:
+    """A shape dictionary spanning the full height of row ``row`` of :func:`stacked_layout`
+    (a line or band at x positions of its own)."""
+    x_axis, y_axis = row_axes(row)
+    return {**shape, "xref": x_axis, "y0": 0, "y1": 1, "yref": f"{y_axis} domain"}
 
 
 def stacked_layout(row_heights: list[float], spacing: float,

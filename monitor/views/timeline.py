@@ -46,8 +46,10 @@ from monitor.views.common import (
     StoreView,
     binomial_band,
     figure,
+    on_row,
     rounded_for_plot,
     row_axes,
+    row_span,
     stacked_layout,
     tau_band,
 )
@@ -306,17 +308,11 @@ def translucent(colour: str, alpha: float) -> str:
     return f"rgba({r},{g},{b},{alpha})"
 
 
-def _on(row: int, trace: dict) -> dict:
-    """A trace dictionary drawn on row ``row`` of the timeline (a scatter unless it says)."""
-    x_axis, y_axis = row_axes(row)
-    return {"type": "scatter", **trace, "xaxis": x_axis, "yaxis": y_axis}
-
-
 def _band(x, low, high, colour: str, name: str, row: int, group: str,
           showlegend: bool = True) -> list[dict]:
-    return [_on(row, {"x": x, "y": high, "mode": "lines", "line": {"width": 0},
+    return [on_row(row, {"x": x, "y": high, "mode": "lines", "line": {"width": 0},
                       "hoverinfo": "skip", "showlegend": False, "legendgroup": group}),
-            _on(row, {"x": x, "y": low, "mode": "lines", "line": {"width": 0},
+            on_row(row, {"x": x, "y": low, "mode": "lines", "line": {"width": 0},
                       "fill": "tonexty", "fillcolor": translucent(colour, 0.2), "name": name,
                       "legendgroup": group, "hoverinfo": "skip", "showlegend": showlegend})]
 
@@ -441,7 +437,7 @@ def _tau_row(f: pd.DataFrame, x: np.ndarray) -> list[dict]:
     tau_colour = SERIES_COLOURS["tau"]
     return [*_band(x, f["tau_low"].to_numpy(), f["tau_high"].to_numpy(), tau_colour,
                    "tau 95% band", 1, "tau"),
-            _on(1, {"x": x, "y": f["kendall_tau"].to_numpy(), "mode": "lines",
+            on_row(1, {"x": x, "y": f["kendall_tau"].to_numpy(), "mode": "lines",
                     "name": "Kendall's tau", "line": {"color": tau_colour, "width": 1.5},
                     "legendgroup": "tau", "customdata": np.c_[f["tau_low"], f["tau_high"]],
                     "hovertemplate": "tau %{y:.3f} (95%: %{customdata[0]:.3f} to "
@@ -453,7 +449,7 @@ def _fallback_marks(f: pd.DataFrame, x: np.ndarray) -> list[dict]:
     hit = f["fallback"].to_numpy(dtype=bool)
     if not hit.any():
         return []
-    return [_on(1, {
+    return [on_row(1, {
         "x": x[hit], "y": f["kendall_tau"].to_numpy()[hit], "mode": "markers",
         "name": "window holds EWMA-t fallback residuals", "legendgroup": "fallback",
         "marker": {"symbol": "x-thin", "size": 7, "color": MUTED, "line": {"width": 1}},
@@ -471,12 +467,12 @@ def _tail_rows(f: pd.DataFrame, x: np.ndarray, q: float) -> list[dict]:
         low, high = f[f"tail_{tail}_low"].to_numpy(), f[f"tail_{tail}_high"].to_numpy()
         traces += _band(x, low, high, emp_colour, "nonparametric 95% band (Wilson)", row,
                         "emp-band", showlegend=first)
-        traces += [_on(row, {
+        traces += [on_row(row, {
             "x": x, "y": f[f"tail_{tail}_emp"].to_numpy(), "mode": "lines",
             "name": "nonparametric C(q,q)/q", "line": {"color": emp_colour, "width": 1.2},
             "legendgroup": "emp", "showlegend": first, "customdata": np.c_[low, high],
             "hovertemplate": f"{tail} nonparametric %{{y:.3f}} (95%: %{{customdata[0]:.3f}} "
-                             "to %{customdata[1]:.3f})<extra></extra>"}), _on(row, {
+                             "to %{customdata[1]:.3f})<extra></extra>"}), on_row(row, {
             "x": x, "y": f[f"tail_{tail}_avg"].to_numpy(), "mode": "lines",
             "name": "model-averaged (Akaike weights)",
             "line": {"color": model_colour, "width": 1.5}, "legendgroup": "averaged",
@@ -485,21 +481,21 @@ def _tail_rows(f: pd.DataFrame, x: np.ndarray, q: float) -> list[dict]:
             # The selected family's own coefficient jumps between 0 and a large value as the
             # choice flips between tail-free and tail-dependent families: a click in the
             # legend shows it.
-            _on(row, {
+            on_row(row, {
                 "x": x, "y": f[f"tail_{tail}"].to_numpy(), "mode": "lines",
                 "name": "model-implied (selected family)",
                 "line": {"color": model_colour, "width": 1, "dash": "dot"},
                 "legendgroup": "model", "showlegend": first, "visible": "legendonly",
                 "hovertemplate": f"{tail} selected family %{{y:.3f}} (no stored s.e.)"
                                  "<extra></extra>"}),
-            _on(row, {
+            on_row(row, {
                 "x": x, "y": f["gauss_tail_q"].to_numpy(), "mode": "lines",
                 "name": "Gaussian at the same tau",
                 "line": {"color": SERIES_COLOURS["gaussian_same_tau"], "width": 1,
                          "dash": "dot"}, "legendgroup": "gauss", "showlegend": first,
                 "hovertemplate": "Gaussian same-tau %{y:.3f}<extra></extra>"}),
             # C_n(q,q)/q is a finite-level figure: an independent pair reads q, not 0.
-            _on(row, {
+            on_row(row, {
                 "x": [x[0], x[-1]], "y": [q, q], "mode": "lines",
                 "name": f"independent pair (= q = {q:g})",
                 "line": {"color": MUTED, "width": 1, "dash": "dash"},
@@ -509,7 +505,7 @@ def _tail_rows(f: pd.DataFrame, x: np.ndarray, q: float) -> list[dict]:
 
 def _key(row: int, name: str, group: str, title: str, marker: dict) -> dict:
     """A legend-only entry: a coloured square naming a colour of the strip or shading."""
-    return _on(row, {"x": [None], "y": [None], "mode": "markers", "name": name,
+    return on_row(row, {"x": [None], "y": [None], "mode": "markers", "name": name,
                      "legendgroup": group, "legendgrouptitle": {"text": title},
                      "marker": {"symbol": "square", "size": 11, **marker}})
 
@@ -518,7 +514,7 @@ def _strip_row(f: pd.DataFrame, x: np.ndarray) -> list[dict]:
     """Row 4: the family/rotation/state strip, and legend-only keys for its colours and for
     the episode shading."""
     z, labels, scale, text = _strip(f)
-    traces = [_on(4, {"type": "heatmap", "x": x, "y": list(STRIP_ROWS), "z": z, "text": text,
+    traces = [on_row(4, {"type": "heatmap", "x": x, "y": list(STRIP_ROWS), "z": z, "text": text,
                       "colorscale": scale, "zmin": -0.5, "zmax": len(labels) - 0.5,
                       "showscale": False, "hovertemplate": "%{y}: %{text}<extra></extra>",
                       "ygap": 1})]
@@ -545,11 +541,10 @@ def _episode_shading(episodes: pd.DataFrame) -> list[dict]:
     shapes = []
     for e in episodes.itertuples(index=False):
         for row in ((1, 2) if e.tail == "lower" else (1, 3)):
-            x_axis, y_axis = row_axes(row)
-            shapes.append({"type": "rect", "x0": e.start, "x1": e.end, "xref": x_axis,
-                           "y0": 0, "y1": 1, "yref": f"{y_axis} domain", "layer": "below",
-                           "line": {"width": 0},
-                           "fillcolor": translucent(EPISODE_COLOURS[e.tail], 0.14)})
+            shapes.append(row_span(row, {
+                "type": "rect", "x0": e.start, "x1": e.end, "layer": "below",
+                "line": {"width": 0},
+                "fillcolor": translucent(EPISODE_COLOURS[e.tail], 0.14)}))
     return shapes
 
 
