@@ -29,6 +29,7 @@ from monitor.data.store import (
     returns,
     values_differ,
 )
+from monitor.data.store_metrics import HEAVY_TAIL_LEVEL
 
 D = [dt.date(2021, 3, day) for day in (1, 2, 3, 4, 5, 8, 9)]
 
@@ -339,6 +340,70 @@ def test_metrics_of_an_earlier_window_end_and_tail_level_counts(store_url):
         assert got["n_ends"] == len(part)
         assert got["n_tail_lower_avg"] == int((part["tail_lower_avg"] >= 0.3).sum())
         assert got["n_tail_upper_avg"] == int((part["tail_upper_avg"] >= 0.3).sum())
+
+
+def _heavy_counts(frame: pd.DataFrame, first, last) -> tuple[int, int, int]:
+    """Counted by hand: window ends in [first, last] with both averaged tails, and of them
+    those at or above the store's level, per tail."""
+    part = frame[(frame["date"] >= first) & (frame["date"] <= last)]
+    known = part["tail_lower_avg"].notna() & part["tail_upper_avg"].notna()
+    return (int(known.sum()), int((known & (part["tail_lower_avg"] >= HEAVY_TAIL_LEVEL)).sum()),
+            int((known & (part["tail_upper_avg"] >= HEAVY_TAIL_LEVEL)).sum()))
+
+
+def test_running_counts_of_heavy_tails_give_a_years_counts_by_difference(store_url):
+    """Each metric row carries running counts of its pair's window ends with heavy averaged
+    tails: written with new rows (continuing a pair's last row across appends, restarting
+    when a pair is replaced), recounted in one statement for an older store's rows, and a
+    range's counts are their difference; the same as counting the rows by hand."""
+    days = pd.bdate_range("2022-01-03", periods=30)
+    a, b = _metric_frame(days, 11), _metric_frame(days[7:], 12)
+    for frame in (a, b):  # around the level, with some windows lacking averaged tails
+        frame["tail_lower_avg"] = np.linspace(0.02, 0.2, len(frame))[::-1]
+        frame.loc[frame.index[::5], "tail_upper_avg"] = np.nan
+    key = [("ALDER", "BIRCH"), ("ALDER", "CEDAR")]
+
+    def counted(store, first, last) -> dict:
+        got = store.tail_level_counts("r", first.date(), last.date(), HEAVY_TAIL_LEVEL)
+        return {(x, y): (n, lo, hi) for x, y, n, lo, hi in got.itertuples(index=False)}
+
+    def by_hand(first, last) -> dict:
+        return {k: _heavy_counts(f, first, last) for k, f in zip(key, (a, b), strict=True)}
+
+    with Store(store_url) as store:
+        # Two appends (the second continues each pair's last row) ...
+        for part in (slice(0, 18), slice(18, None)):
+            with store.transaction() as conn:
+                store.save_metrics(conn, "r", [
+                    (*key[0], a[(a["date"] >= days[part][0]) & (a["date"] <= days[part][-1])],
+                     {}, 0.3, False),
+                    (*key[1], b[(b["date"] >= days[part][0]) & (b["date"] <= days[part][-1])],
+                     {}, 0.3, False)])
+        assert not store.runs_missing("r")
+        assert store._counts_from_runs("r", days[0].date(), days[-1].date()) is not None
+        ranges = [(days[0], days[-1]), (days[3], days[12]), (days[10], days[25]),
+                  (days[20], days[20])]
+        for first, last in ranges:
+            assert counted(store, first, last) == by_hand(first, last), (first, last)
+        runs = execute(store_url, "SELECT run_averaged, run_heavy_lower, run_heavy_upper "
+                                  "FROM metrics ORDER BY asset_a, asset_b, date")
+        # ... an older store's rows (no counts) still count right, from the rows ...
+        execute(store_url, "UPDATE metrics SET run_averaged = NULL, run_heavy_lower = NULL, "
+                           "run_heavy_upper = NULL")
+        assert store.runs_missing("r")
+        assert store._counts_from_runs("r", days[0].date(), days[-1].date()) is None
+        assert counted(store, *ranges[2]) == by_hand(*ranges[2])
+        # ... and one statement recounts them as they were written.
+        assert store.recount_runs("r") == len(a) + len(b)
+        assert not store.runs_missing("r")
+        assert execute(store_url, "SELECT run_averaged, run_heavy_lower, run_heavy_upper "
+                                  "FROM metrics ORDER BY asset_a, asset_b, date") == runs
+        # A replaced pair counts from its new first row.
+        with store.transaction() as conn:
+            store.save_metrics(conn, "r", [(*key[1], b.iloc[4:], {}, 0.3, True)])
+        b = b.iloc[4:]
+        for first, last in ranges:
+            assert counted(store, first, last) == by_hand(first, last), (first, last)
 
 
 def test_metrics_timelines_resume_points_and_continued_state_runs(store_url):

@@ -148,6 +148,12 @@ metrics = sa.Table(
         "tail_lower_emp", "tail_upper_emp", "tail_lower_emp_se", "tail_upper_emp_se",
         "gauss_tail_q", "loglik_best_lower", "loglik_best_upper", "llr_lower", "llr_upper",
         "tail_lower_avg", "tail_upper_avg")],
+    # Running counts over the pair's window ends up to and including this one: of those
+    # with both model-averaged tails computed, and of those, with the lower / upper one at
+    # least HEAVY_TAIL_LEVEL (monitor.data.store_metrics). A year's count is the difference
+    # of two rows. NULL in rows of an older store until the next update recounts them.
+    *[sa.Column(name, sa.Integer) for name in (
+        "run_averaged", "run_heavy_lower", "run_heavy_upper")],
 )
 
 pair_state = sa.Table(

@@ -4,6 +4,12 @@ window end, tau and warm starts), with the cross-pair reads of the timeline the 
 signals step make.
 
 Tables (:mod:`monitor.data.schema`): ``metrics``, ``pair_state``.
+
+Each metric row also carries running counts of the pair's window ends (:data:`RUN_COLUMNS`):
+those with both model-averaged tails computed, and of them those with the lower or the upper
+one at least :data:`HEAVY_TAIL_LEVEL`. How many of a year's window ends had a heavy tail is
+then the difference of two rows (:meth:`MetricStore.tail_runs_as_of`), not a count over the
+year's rows: the Board needs it for every pair on every date it shows.
 """
 
 from __future__ import annotations
@@ -30,6 +36,48 @@ from monitor.data.store_base import (
 
 #: A pair's metrics to store: ``(asset_a, asset_b, frame, warm_starts, last_tau, replace_all)``.
 PairMetrics = tuple[str, str, pd.DataFrame, dict[Any, Any], float, bool]
+
+#: The model-averaged tail coefficient counted as heavy by the running counts (a store's
+#: counts hold for this level: changing it needs the counts recounted).
+HEAVY_TAIL_LEVEL = 0.1
+#: The running counts of each metric row, in the order (averaged, heavy lower, heavy upper).
+RUN_COLUMNS = ("run_averaged", "run_heavy_lower", "run_heavy_upper")
+
+
+def _run_indicators(lower: Any, upper: Any) -> tuple[Any, Any, Any]:
+    """What each running count adds for a window end with these model-averaged tails (numpy
+    arrays or SQL expressions): both computed; computed and lower heavy; computed and upper
+    heavy. One definition for the counts written with new rows and those recounted."""
+    if isinstance(lower, np.ndarray):
+        known = np.isfinite(lower) & np.isfinite(upper)
+        return (known, known & (np.nan_to_num(lower) >= HEAVY_TAIL_LEVEL),
+                known & (np.nan_to_num(upper) >= HEAVY_TAIL_LEVEL))
+    known = sa.and_(lower.is_not(None), upper.is_not(None))
+    heavy_lower = sa.and_(known, lower >= HEAVY_TAIL_LEVEL)
+    heavy_upper = sa.and_(known, upper >= HEAVY_TAIL_LEVEL)
+    return (sa.case((known, 1), else_=0), sa.case((heavy_lower, 1), else_=0),
+            sa.case((heavy_upper, 1), else_=0))
+
+
+def _running_counts(frame: pd.DataFrame, sizes: list[int], bases: np.ndarray
+                    ) -> dict[str, np.ndarray]:
+    """:data:`RUN_COLUMNS` for the rows of ``frame``: consecutive blocks of ``sizes`` rows,
+    one block per pair in date order, each continuing from its pair's counts in ``bases``
+    (one row per pair, NaN where unknown: the block's counts are then unknown too). Values
+    are Python ints, or None where unknown."""
+    lengths = np.asarray(sizes)
+    starts = np.r_[0, np.cumsum(lengths)[:-1]]
+    out = {}
+    indicators = _run_indicators(
+        pd.to_numeric(frame["tail_lower_avg"]).to_numpy(dtype=float),
+        pd.to_numeric(frame["tail_upper_avg"]).to_numpy(dtype=float))
+    for k, (name, hit) in enumerate(zip(RUN_COLUMNS, indicators, strict=True)):
+        total = np.cumsum(hit, dtype=float)
+        before = np.r_[0.0, total][starts]
+        counts = total - np.repeat(before, lengths) + np.repeat(bases[:, k], lengths)
+        out[name] = np.array([None if not np.isfinite(v) else int(v) for v in counts.tolist()],
+                             dtype=object)
+    return out
 
 
 def _records(frame: pd.DataFrame, extra: dict[str, Any]) -> list[dict[str, Any]]:
@@ -102,6 +150,45 @@ class MetricStore(StoreBase):
             return conn.execute(sa.select(sa.exists().where(where))).scalar_one()
 
     @staticmethod
+    def _last_runs(conn: sa.Connection, settings_key: str
+                   ) -> dict[tuple[str, str], tuple[float, ...]]:
+        """Per pair with a rolling state, the running counts of its last stored row (NaN
+        where that row has none: an older store's)."""
+        m, p = metrics.c, pair_state.c
+        stmt = (sa.select(m.asset_a, m.asset_b, *[m[c] for c in RUN_COLUMNS])
+                .select_from(pair_state.join(metrics, sa.and_(
+                    m.settings == p.settings, m.asset_a == p.asset_a, m.asset_b == p.asset_b,
+                    m.date == p.last_date)))
+                .where(p.settings == settings_key))
+        return {(a, b): tuple(np.nan if v is None else float(v) for v in runs)
+                for a, b, *runs in conn.execute(stmt)}
+
+    def runs_missing(self, settings_key: str) -> bool:
+        """Whether some pair's last stored row has no running counts (rows of an older
+        store; :meth:`recount_runs` fills them). Rows are counted from their pair's first
+        window end on, so a last row with counts means all of the pair's have them."""
+        with self.engine.connect() as conn:
+            return any(np.isnan(v).any() for v in
+                       self._last_runs(conn, settings_key).values())
+
+    def recount_runs(self, settings_key: str) -> int:
+        """Write the running counts of every metric row under the key from its pair's
+        stored rows (one statement; rows of an older store have none). Returns the rows
+        written."""
+        m = metrics.c
+        counted = (sa.select(m.asset_a, m.asset_b, m.date, *[
+            sa.func.sum(hit).over(partition_by=[m.asset_a, m.asset_b], order_by=m.date)
+            .label(name) for name, hit in zip(
+                RUN_COLUMNS, _run_indicators(m.tail_lower_avg, m.tail_upper_avg), strict=True)])
+            .where(m.settings == settings_key).subquery("counted"))
+        stmt = (metrics.update()
+                .where(m.settings == settings_key, m.asset_a == counted.c.asset_a,
+                       m.asset_b == counted.c.asset_b, m.date == counted.c.date)
+                .values({name: counted.c[name] for name in RUN_COLUMNS}))
+        with self.transaction() as conn:
+            return int(conn.execute(stmt).rowcount)
+
+    @staticmethod
     def save_pair_metrics(conn: sa.Connection, settings_key: str, a: str, b: str,
                           frame: pd.DataFrame, warm: dict, last_tau: float,
                           replace_all: bool = False) -> None:
@@ -138,14 +225,21 @@ class MetricStore(StoreBase):
             # Every date of the universe summary may have used the replaced rows.
             conn.execute(universe_daily.delete().where(universe_daily.c.settings.startswith(
                 f"{settings_key}|", autoescape=True)))
-        live = [(a, b, frame) for a, b, frame, *_ in items if not frame.empty]
+        live = [(a, b, frame, replace_all) for a, b, frame, *_, replace_all in items
+                if not frame.empty]
         rows = []
         if live:
             # One frame for all pairs: converting it costs about as much as one pair's.
-            both = pd.concat([f for *_, f in live], ignore_index=True)
-            sizes = [len(f) for *_, f in live]
-            both["asset_a"] = np.repeat([a for a, _, _ in live], sizes)
-            both["asset_b"] = np.repeat([b for _, b, _ in live], sizes)
+            both = pd.concat([f for _, _, f, _ in live], ignore_index=True)
+            sizes = [len(f) for _, _, f, _ in live]
+            both["asset_a"] = np.repeat([a for a, _, _, _ in live], sizes)
+            both["asset_b"] = np.repeat([b for _, b, _, _ in live], sizes)
+            last = MetricStore._last_runs(conn, settings_key)
+            bases = np.array([(0.0, 0.0, 0.0) if replace_all
+                              else last.get((a, b), (0.0, 0.0, 0.0))
+                              for a, b, _, replace_all in live], dtype=float).reshape(-1, 3)
+            for name, values in _running_counts(both, sizes, bases).items():
+                both[name] = values
             rows = _records(both, {"settings": settings_key})
         states = []
         now = utc_now()
@@ -263,6 +357,10 @@ class MetricStore(StoreBase):
             ``asset_a, asset_b, n_ends`` (window ends with both columns computed: rows of
             an older comove with NULL there are not counted) and ``n_<column>`` per column.
         """
+        if columns == ("tail_lower_avg", "tail_upper_avg") and level == HEAVY_TAIL_LEVEL:
+            counted = self._counts_from_runs(settings_key, first, last)
+            if counted is not None:
+                return counted
         m = metrics.c
         a, b = columns
         known = sa.and_(m[a].is_not(None), m[b].is_not(None))
@@ -286,6 +384,26 @@ class MetricStore(StoreBase):
         for c in ("n_ends", f"n_{a}", f"n_{b}"):
             frame[c] = pd.to_numeric(frame[c]).fillna(0).astype(np.int64)
         return frame
+
+    def _counts_from_runs(self, settings_key: str, first: dt.date, last: dt.date
+                          ) -> pd.DataFrame | None:
+        """:meth:`tail_level_counts` of the model-averaged tails at :data:`HEAVY_TAIL_LEVEL`
+        as the difference of two rows' running counts per pair (an index seek each: the
+        pair's last row by ``last`` and its last row before ``first``); None when a row
+        needed has no counts (an older store's, before ``comove update`` recounts them)."""
+        cols = ["date", *RUN_COLUMNS]
+        now = self.metrics_as_of(settings_key, last, cols)
+        now = now[now["date"] >= pd.Timestamp(first)].reset_index(drop=True)
+        then = self.metrics_as_of(settings_key, first - dt.timedelta(days=1), RUN_COLUMNS)
+        if now[list(RUN_COLUMNS)].isna().any().any() or then[list(RUN_COLUMNS)].isna().any().any():
+            return None
+        both = now.merge(then, on=["asset_a", "asset_b"], how="left", suffixes=("", "_then"))
+        names = ("n_ends", "n_tail_lower_avg", "n_tail_upper_avg")
+        out = both[["asset_a", "asset_b"]].copy()
+        for name, run in zip(names, RUN_COLUMNS, strict=True):
+            out[name] = (pd.to_numeric(both[run]).to_numpy(dtype=np.int64)
+                         - pd.to_numeric(both[f"{run}_then"]).fillna(0).to_numpy(dtype=np.int64))
+        return out
 
     def last_window(self, settings_key: str, a: str, b: str
                     ) -> tuple[dt.date, dt.date] | None:
