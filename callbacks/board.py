@@ -1,13 +1,14 @@
 """Callbacks of the Board page: the date, the horizon and the tail source in; change,
-level and excess matrices, ranking and the universe summary out (all computed by
-:func:`monitor.views.board.board_data`)."""
+level and excess matrices and the ranking out (all computed by
+:func:`monitor.views.board.board_data`). The universe summary over time comes once per page
+load (it does not change with the date); a change of date only moves its date marker."""
 
 from __future__ import annotations
 
 from functools import partial
 from urllib.parse import quote
 
-from dash import Input, Output
+from dash import Input, Output, Patch, State, no_update
 
 from layouts import ids
 from layouts.components import filter_action, message, shape_columns
@@ -20,19 +21,20 @@ from monitor.views.board import (
     QUANTITIES,
     TAIL_SOURCES,
     board_data,
+    board_range,
     change_figure,
+    date_marker,
     excess_figure,
     matrix_figure,
     ranking_table,
-    summary_figure,
+    universe_figure,
 )
-from monitor.views.common import blank_figure
+from monitor.views.common import blank_figure, for_browser
 
 #: Outputs of :func:`show_board`, in order.
 OUTPUTS = ((ids.BOARD_MATRIX_TAU, "figure"), (ids.BOARD_MATRIX_LOWER, "figure"),
            (ids.BOARD_MATRIX_UPPER, "figure"), (ids.BOARD_RANKING, "data"),
-           (ids.BOARD_RANKING, "columns"), (ids.BOARD_SUMMARY, "figure"),
-           (ids.BOARD_CHANGE_TAU, "figure"), (ids.BOARD_CHANGE_LOWER, "figure"),
+           (ids.BOARD_RANKING, "columns"), (ids.BOARD_CHANGE_TAU, "figure"), (ids.BOARD_CHANGE_LOWER, "figure"),
            (ids.BOARD_CHANGE_UPPER, "figure"), (ids.BOARD_EXCESS_LOWER, "figure"),
            (ids.BOARD_EXCESS_UPPER, "figure"), (ids.BOARD_CHANGE_NOTE, "children"),
            (ids.BOARD_NOTE, "children"), (ids.BOARD_MESSAGE, "children"),
@@ -85,12 +87,12 @@ def show_board(view, date: str | None, source: str | None,
         data = board_data(view, date or None, horizon)
     except InputError as exc:
         blank = blank_figure()
-        return (blank, blank, blank, [], [], blank, blank, blank, blank, blank, blank, "", "",
+        return (blank, blank, blank, [], [], blank, blank, blank, blank, blank, "", "",
                 message(str(exc), kind="problem"), [], filter_action(0))
     source = source if source in TAIL_SOURCES else DEFAULT_TAIL_SOURCE
-    figures = [matrix_figure(data, q, source) for q in QUANTITIES]
-    changes = [change_figure(data, q, source) for q in QUANTITIES]
-    excess = [excess_figure(data, t) for t in ("lower", "upper")]
+    figures = [for_browser(matrix_figure(data, q, source)) for q in QUANTITIES]
+    changes = [for_browser(change_figure(data, q, source)) for q in QUANTITIES]
+    excess = [for_browser(excess_figure(data, t)) for t in ("lower", "upper")]
     rows, columns, hidden, filtering = _table(data)
     counts = data.pairs["state"].value_counts()
     standing = int(data.pairs["standing"].fillna("").ne("").sum())
@@ -107,8 +109,36 @@ def show_board(view, date: str | None, source: str | None,
             + (f" {data.averaged_missing} pair(s) were stored by an older comove: their "
                "model-averaged tails are not computed by this version."
                if data.averaged_missing else ""))
-    return (*figures, rows, columns, summary_figure(data.summary, data.as_of), *changes,
-            *excess, _change_note(data), note, "", hidden, filtering)
+    return (*figures, rows, columns, *changes, *excess, _change_note(data), note, "", hidden,
+            filtering)
+
+
+def show_universe(view) -> dict:
+    """The universe summary over time as the page receives it, marked at the latest date (a
+    blank figure when none is stored)."""
+    try:
+        return for_browser(universe_figure(view))
+    except InputError:
+        return blank_figure().to_plotly_json()
+
+
+def marked(summary: dict, date: str | None) -> dict:
+    """``summary`` (from :func:`show_universe`) with its date marker on ``date`` (the latest
+    when None); its data are shared, not copied."""
+    if date is None or not summary.get("data"):
+        return summary
+    return {**summary, "layout": {**summary["layout"], "shapes": date_marker(date)}}
+
+
+def move_marker(view, date: str | None):
+    """A patch moving the universe summary's date marker to ``date`` (the latest stored date
+    when None): a few hundred bytes instead of the whole summary again."""
+    bounds = board_range(view)
+    if bounds is None:
+        return no_update
+    patch = Patch()
+    patch["layout"]["shapes"] = date_marker(date or bounds[1])
+    return patch
 
 
 def register(app, view) -> None:
@@ -118,3 +148,13 @@ def register(app, view) -> None:
                   Input(ids.BOARD_TAIL_SOURCE, "value"), Input(ids.BOARD_HORIZON, "value"))
     def board(date, source, horizon):
         return app.responses("board", partial(show_board, view), date, source, horizon)
+
+    @app.callback(Output(ids.BOARD_SUMMARY, "figure"), Input(ids.BOARD_UNIVERSE, "data"),
+                  State(ids.BOARD_DATE, "date"))
+    def universe(_range, date):
+        return marked(app.responses("universe", partial(show_universe, view)), date)
+
+    @app.callback(Output(ids.BOARD_SUMMARY, "figure", allow_duplicate=True),
+                  Input(ids.BOARD_DATE, "date"), prevent_initial_call=True)
+    def marker(date):
+        return move_marker(view, date)

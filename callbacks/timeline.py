@@ -14,7 +14,7 @@ from layouts import ids
 from layouts.components import filter_action, message, records
 from monitor.common.errors import InputError
 from monitor.common.wording import finite_level_note
-from monitor.views.common import blank_figure, parse_pair
+from monitor.views.common import blank_figure, for_browser, parse_pair
 from monitor.views.timeline import (
     episodes_table,
     pair_history,
@@ -56,7 +56,7 @@ def show_pair(view, pair_text: str | None) -> tuple:
                       if n))
     data, columns = records(episodes_table(history))
     first, end = (d.strftime("%Y-%m-%d") for d in (f["date"].iloc[0], f["date"].iloc[-1]))
-    return (timeline_figure(history), note, data, columns, "", first, end,
+    return (for_browser(timeline_figure(history)), note, data, columns, "", first, end,
             filter_action(len(data)))
 
 

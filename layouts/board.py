@@ -137,6 +137,8 @@ def layout(view, query: dict[str, str]) -> html.Div:
               note=EXCESS_NOTE),
         panel("Pairs by state and divergence", ranking, note=DIVERGENCE_NOTE),
         panel("Universe over time", graph(ids.BOARD_SUMMARY, filename="board-universe"),
+              dcc.Store(id=ids.BOARD_UNIVERSE, data=None if bounds is None else [
+                  b.strftime("%Y-%m-%d") for b in bounds]),
               note="Cross-pair averages on each date and the share of pairs in alert per "
                    "tail. A pair without a window ending that day (one asset had no price) "
                    f"counts with its latest window for up to {UNIVERSE_STALE_LIMIT} dates, so "

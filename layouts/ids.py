@@ -19,6 +19,8 @@ BOARD_MATRIX_LOWER = "board-matrix-lower"
 BOARD_MATRIX_UPPER = "board-matrix-upper"
 BOARD_RANKING = "board-ranking"
 BOARD_SUMMARY = "board-summary"
+#: The stored range of dates, set when the page renders: loads the universe summary once.
+BOARD_UNIVERSE = "board-universe-range"
 BOARD_NOTE = "board-note"
 BOARD_HORIZON = "board-horizon"
 BOARD_EXCESS_LOWER = "board-excess-lower"

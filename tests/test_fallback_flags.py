@@ -19,6 +19,7 @@ from monitor.engine.pipeline import run_update
 from monitor.views.common import StoreView
 from monitor.views.drilldown import study_pair
 from monitor.views.timeline import pair_history, timeline_figure
+from tests.dashboard.plotted import as_figure
 
 
 def _garch(n: int, rng: np.random.Generator, w: float = 0.05, a: float = 0.12,
@@ -94,7 +95,7 @@ def test_the_timeline_marks_windows_holding_fallback_residuals(flagged):
     note = history.fallback_note()
     assert "EWMA-t fallback" in note and "BIRCH" in note and "GARCH refused" in note
     assert f"{int(history.frame['fallback'].sum())} window(s)" in note
-    marks = [t for t in timeline_figure(history).data
+    marks = [t for t in as_figure(timeline_figure(history)).data
              if t.name == "window holds EWMA-t fallback residuals"]
     assert len(marks) == 1 and len(marks[0].x) == int(history.frame["fallback"].sum())
 

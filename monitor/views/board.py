@@ -61,7 +61,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-import plotly.graph_objects as go
 from numpy.typing import ArrayLike, NDArray
 from scipy.cluster import hierarchy
 from scipy.spatial.distance import squareform
@@ -79,8 +78,10 @@ from monitor.common.palette import (
     VERMILION,
     figure_layout,
 )
+from monitor.data.store_metrics import HEAVY_TAIL_LEVEL
 from monitor.stats.signals import STATES, TAILS, states_on, universe_key
 from monitor.views.common import (
+    FigureDict,
     StoreView,
     binomial_band,
     figure,
@@ -107,6 +108,7 @@ __all__ = [
     "change_se",
     "change_z",
     "cluster_order",
+    "date_marker",
     "divergence",
     "excess_figure",
     "matrix_figure",
@@ -117,6 +119,7 @@ __all__ = [
     "standing_labels",
     "summary_figure",
     "tail_column",
+    "universe_figure",
     "worse_state",
 ]
 
@@ -141,7 +144,7 @@ CHANGE_COLUMNS = ("kendall_tau", "tail_lower_emp", "tail_upper_emp", "tail_lower
 SE_COLUMNS = {"kendall_tau": "kendall_tau_se", "tail_lower_emp": "tail_lower_emp_se",
               "tail_upper_emp": "tail_upper_emp_se"}
 #: Standing tail-heaviness: the model-averaged coefficient at least this ...
-STANDING_LEVEL = 0.1
+STANDING_LEVEL = HEAVY_TAIL_LEVEL
 #: ... on at least this share of the window ends of the last year ...
 STANDING_SHARE = 0.8
 #: ... (calendar days up to the date; a trading year is 252 window ends at step 1).
@@ -456,9 +459,6 @@ class BoardData:
         divergence_upper, divergence``, the changes over the horizon
         (:func:`pair_changes`: ``date_then``, ``change_*``) and the standing label
         (``standing``, :func:`standing_labels`).
-    summary : DataFrame
-        The stored universe summary over time
-        (:meth:`monitor.data.store.Store.read_universe`).
     tail_q : float
     provenance : str
     horizon : str
@@ -474,7 +474,6 @@ class BoardData:
     last_date: pd.Timestamp
     assets: tuple[str, ...]
     pairs: pd.DataFrame
-    summary: pd.DataFrame
     tail_q: float
     provenance: str
     horizon: str = DEFAULT_HORIZON
@@ -493,7 +492,10 @@ class BoardData:
 
     def matrix(self, column: str) -> pd.DataFrame:
         """Asset-by-asset matrix of a column of :attr:`pairs`, in cluster order."""
-        return pair_matrix(self.pairs, self.assets, column)
+        i, j = _positions(self)
+        out = np.full((len(self.assets), len(self.assets)), np.nan)
+        out[i, j] = out[j, i] = pd.to_numeric(self.pairs[column]).to_numpy(dtype=float)
+        return pd.DataFrame(out, index=list(self.assets), columns=list(self.assets))
 
 
 def board_range(view: StoreView) -> tuple[pd.Timestamp, pd.Timestamp] | None:
@@ -537,21 +539,23 @@ def board_data(view: StoreView, as_of: object = None, horizon: str = DEFAULT_HOR
 
     Notes
     -----
-    Six reads: the universe summary (one row per date), the latest window end, one metric
-    row per pair now and one a horizon earlier (:meth:`monitor.data.store.Store.metrics_as_of`,
-    an index seek per pair), the state runs around the date, and the per-pair counts of the
-    last year's averaged tails (one grouped query over a year of window ends). Divergence,
+    Six reads: the stored range of dates (two index seeks), the latest window end, one
+    metric row per pair now and one a horizon earlier
+    (:meth:`monitor.data.store.Store.metrics_as_of`, an index seek per pair), the state runs
+    around the date, and the per-pair counts of the last year's averaged tails (one grouped
+    query over a year of window ends). The universe summary over time is read apart
+    (:func:`universe_figure`): it does not change with the date. Divergence,
     changes, labels, ranking and ordering are in the module docstring.
     """
     if horizon not in HORIZONS:
         raise InputError(f"horizon: {horizon!r} is not one of {', '.join(HORIZONS)}")
     store = view.store
-    summary = store.read_universe(universe_key(view.signals_key))
+    stored = board_range(view)
     latest = store.latest_window_end(view.rolling_key)
-    if latest is None or summary.empty:
+    if latest is None or stored is None:
         raise InputError("board: no signals stored under the current settings yet "
                          "(run 'comove update')")
-    first, last = summary.index[0], max(summary.index[-1], pd.Timestamp(latest))
+    first, last = stored[0], max(stored[1], pd.Timestamp(latest))
     day = last if as_of is None or as_of == "" else parse_date(as_of, "board date")
     if not first <= day <= last:
         raise InputError(f"board date: {day.date()} is outside the stored window ends "
@@ -589,7 +593,7 @@ def board_data(view: StoreView, as_of: object = None, horizon: str = DEFAULT_HOR
     rows["standing"] = standing_labels(counts, _TRADING_YEAR // step).to_numpy()
     assets = sorted(set(rows["asset_a"]) | set(rows["asset_b"]))
     order = cluster_order(pair_matrix(rows, assets, "kendall_tau"))
-    return BoardData(day, first, last, order, rank_pairs(rows), summary, q, view.settings.provenance(),
+    return BoardData(day, first, last, order, rank_pairs(rows), q, view.settings.provenance(),
                      horizon, back, back * step)
 
 
@@ -658,25 +662,51 @@ def ranking_table(data: BoardData) -> pd.DataFrame:
     })
 
 
-def _fmt(values: pd.Series, spec: str = "{:.3f}", missing: str = "n/a") -> pd.Series:
-    """Numbers as text, ``missing`` where there is none."""
-    x = pd.to_numeric(values).astype(float)
-    return pd.Series([missing if not np.isfinite(v) else spec.format(v) for v in x],
-                     index=values.index, dtype=object)
-
-
-def _cells(data: BoardData, text: pd.Series) -> np.ndarray:
-    """Per-pair text laid out as the asset-by-asset matrix (blank on the diagonal)."""
-    p = data.pairs
-    frame = p[["asset_a", "asset_b"]].assign(code=np.arange(len(p)))
-    codes = pair_matrix(frame, data.assets, "code").to_numpy()
-    out = np.full(codes.shape, "", dtype=object)
-    ok = ~np.isnan(codes)
-    out[ok] = text.to_numpy(dtype=object)[codes[ok].astype(int)]
+def _fmt(values: pd.Series, spec: str = "{:.3f}", missing: str = "n/a") -> np.ndarray:
+    """Numbers as text, ``missing`` where there is none (an object array, so that the hover
+    lines are joined element by element in numpy rather than through pandas)."""
+    x = pd.to_numeric(values).to_numpy(dtype=float)
+    out = np.array([spec.format(v) for v in x.tolist()], dtype=object)
+    out[~np.isfinite(x)] = missing
     return out
 
 
-def _tail_text(data: BoardData, tail: str, source: str) -> pd.Series:
+def _text(values: pd.Series, missing: str = "") -> np.ndarray:
+    """A text column as an object array, ``missing`` where it has none."""
+    return values.astype(object).where(values.notna(), missing).to_numpy(dtype=object)
+
+
+def _dates(values: pd.Series, missing: str = "n/a") -> np.ndarray:
+    return _text(values.dt.strftime("%Y-%m-%d"), missing)
+
+
+def _positions(data: BoardData) -> tuple[np.ndarray, np.ndarray]:
+    """Row and column of each pair (in the order of ``data.pairs``) in the matrices."""
+    idx = {a: k for k, a in enumerate(data.assets)}
+    p = data.pairs
+    i, j = ([idx[a] for a in p[c].to_numpy(dtype=object)] for c in ("asset_a", "asset_b"))
+    return np.array(i, dtype=int), np.array(j, dtype=int)
+
+
+def _cells(data: BoardData, text: np.ndarray) -> np.ndarray:
+    """Per-pair text laid out as the asset-by-asset matrix (blank on the diagonal)."""
+    i, j = _positions(data)
+    out = np.full((len(data.assets), len(data.assets)), "", dtype=object)
+    out[i, j] = out[j, i] = text
+    return out
+
+
+def _pair_names(data: BoardData) -> np.ndarray:
+    p = data.pairs
+    return _text(p["asset_a"]) + " / " + _text(p["asset_b"])
+
+
+def _standing_lines(data: BoardData) -> np.ndarray:
+    label = _text(data.pairs["standing"])
+    return np.where(label == "", "", "<br>" + label)
+
+
+def _tail_text(data: BoardData, tail: str, source: str) -> np.ndarray:
     """Hover line of a pair's tail figure from one source, with its uncertainty."""
     p = data.pairs
     if source == "nonparametric":
@@ -690,7 +720,7 @@ def _tail_text(data: BoardData, tail: str, source: str) -> pd.Series:
         return (f"{tail} tail, model-averaged (Akaike weights) "
                 + _fmt(p[f"tail_{tail}_avg"], missing=NOT_COMPUTED)
                 + "<br>no stored s.e.; selected family "
-                + p["family"].astype(str) + " gives " + _fmt(p[f"tail_{tail}"]))
+                + _text(p["family"]) + " gives " + _fmt(p[f"tail_{tail}"]))
     return (f"{tail} tail, selected family's model-implied " + _fmt(p[f"tail_{tail}"])
             + " (no stored s.e.; Drill-down gives bootstrap intervals)")
 
@@ -698,21 +728,21 @@ def _tail_text(data: BoardData, tail: str, source: str) -> pd.Series:
 def _hover(data: BoardData, quantity: str, source: str) -> np.ndarray:
     """Per-cell hover lines: value, its interval or why there is none, and provenance."""
     p = data.pairs
-    pair = p["asset_a"] + " / " + p["asset_b"]
-    fam = p["family"].astype(str) + " " + p["rotation"].astype(str) + "°"
-    end = " · window ending " + p["date"].dt.strftime("%Y-%m-%d") + " · " + fam
+    fam = _text(p["family"]) + " " + p["rotation"].astype(str).to_numpy(dtype=object) + "°"
+    end = " · window ending " + _dates(p["date"]) + " · " + fam
     if quantity == "kendall_tau":
-        text = (pair + "<br>Kendall's tau " + _fmt(p["kendall_tau"])
+        text = (_pair_names(data) + "<br>Kendall's tau " + _fmt(p["kendall_tau"])
                 + " (95%: " + _fmt(p["tau_low"]) + " to " + _fmt(p["tau_high"]) + ")")
     else:
-        text = pair + "<br>" + _tail_text(data, quantity.removeprefix("tail_"), source)
-    label = p["standing"].fillna("").map(lambda x: f"<br>{x}" if x else "")
-    return _cells(data, text + label + "<br>state " + p["state"].fillna("no state") + end)
+        text = (_pair_names(data) + "<br>"
+                + _tail_text(data, quantity.removeprefix("tail_"), source))
+    return _cells(data, text + _standing_lines(data) + "<br>state "
+                  + _text(p["state"], "no state") + end)
 
 
 def _heatmap_figure(data: BoardData, z: np.ndarray, hover: np.ndarray, title: str, *,
                     colorscale, zmin: float, zmax: float, cell_format: str,
-                    note: str | None = None) -> go.Figure:
+                    note: str | None = None) -> FigureDict:
     labels = list(data.assets)
     heat = {"type": "heatmap", "z": z, "x": labels, "y": labels, "text": hover,
             "hovertemplate": "%{text}<extra></extra>", "colorscale": colorscale,
@@ -750,7 +780,7 @@ def _missing_note(data: BoardData, quantity: str, source: str) -> str | None:
 
 
 def matrix_figure(data: BoardData, quantity: str, source: str = DEFAULT_TAIL_SOURCE
-                  ) -> go.Figure:
+                  ) -> FigureDict:
     """Heatmap of one quantity over every pair, assets in cluster order.
 
     Parameters
@@ -763,7 +793,7 @@ def matrix_figure(data: BoardData, quantity: str, source: str = DEFAULT_TAIL_SOU
 
     Returns
     -------
-    plotly Figure
+    FigureDict
         Diagonal blank; tau on the diverging scale over [-1, 1], tails on the sequential
         scale over [0, 1]; hover gives the value, its 95 % interval where one is stored,
         the standing label, state, window end and family. Pairs whose averaged tails were
@@ -784,7 +814,7 @@ def matrix_figure(data: BoardData, quantity: str, source: str = DEFAULT_TAIL_SOU
                            note=_missing_note(data, quantity, source))
 
 
-def excess_figure(data: BoardData, tail: str) -> go.Figure:
+def excess_figure(data: BoardData, tail: str) -> FigureDict:
     """Heatmap of a tail's excess over the Gaussian copula with the same tau.
 
     Parameters
@@ -794,7 +824,7 @@ def excess_figure(data: BoardData, tail: str) -> go.Figure:
 
     Returns
     -------
-    plotly Figure
+    FigureDict
         ``(C_n(q,q)/q - C_Ga(q,q)/q) / se`` per pair (:func:`divergence`, the units of the
         ranking) on the diverging scale over +-:data:`EXCESS_RANGE` standard errors: a
         pair whose tails are heavier than its centre implies shows red whether or not its
@@ -806,13 +836,12 @@ def excess_figure(data: BoardData, tail: str) -> go.Figure:
     p = data.pairs
     col = f"divergence_{tail}"
     z = data.matrix(col).replace([np.inf, -np.inf], np.nan).to_numpy()
-    label = p["standing"].fillna("").map(lambda x: f"<br>{x}" if x else "")
-    text = (p["asset_a"] + " / " + p["asset_b"] + f"<br>{tail}-tail excess over Gaussian "
+    text = (_pair_names(data) + f"<br>{tail}-tail excess over Gaussian "
             + _fmt(p[col], "{:+.1f}") + " s.e.<br>C(q,q)/q " + _fmt(p[f"tail_{tail}_emp"])
             + " vs Gaussian at tau " + _fmt(p["kendall_tau"], "{:.2f}") + ": "
             + _fmt(p["gauss_tail_q"]) + "<br>model-averaged tail "
-            + _fmt(p[f"tail_{tail}_avg"], missing=NOT_COMPUTED) + label
-            + "<br>window ending " + p["date"].dt.strftime("%Y-%m-%d"))
+            + _fmt(p[f"tail_{tail}_avg"], missing=NOT_COMPUTED) + _standing_lines(data)
+            + "<br>window ending " + _dates(p["date"]))
     title = (f"{tail.capitalize()} tail: excess over Gaussian at same tau "
              f"(s.e., q = {data.tail_q:g})")
     return _heatmap_figure(data, z, _cells(data, text), title, colorscale=DIVERGING,
@@ -820,7 +849,7 @@ def excess_figure(data: BoardData, tail: str) -> go.Figure:
 
 
 def change_figure(data: BoardData, quantity: str, source: str = DEFAULT_TAIL_SOURCE
-                  ) -> go.Figure:
+                  ) -> FigureDict:
     """Heatmap of each pair's change of one quantity over the board's horizon.
 
     Parameters
@@ -832,7 +861,7 @@ def change_figure(data: BoardData, quantity: str, source: str = DEFAULT_TAIL_SOU
 
     Returns
     -------
-    plotly Figure
+    FigureDict
         ``x_t - x_{t-h}`` on the diverging scale over +-:data:`CHANGE_RANGE` (fixed, so
         horizons compare); hover: both values and dates, the change's standard error and
         z where one is stored (tau, nonparametric tails; :func:`change_se`), else why not.
@@ -843,11 +872,11 @@ def change_figure(data: BoardData, quantity: str, source: str = DEFAULT_TAIL_SOU
     change = f"change_{col}"
     z = data.matrix(change).to_numpy()
     then = _fmt(pd.to_numeric(p[col]) - pd.to_numeric(p[change]))
-    text = (p["asset_a"] + " / " + p["asset_b"] + "<br>"
+    text = (_pair_names(data) + "<br>"
             + ("Kendall's tau" if quantity == "kendall_tau"
                else f"{quantity.removeprefix('tail_')} tail, {_SOURCE_WORDS[source]}")
-            + " " + then + " on " + p["date_then"].dt.strftime("%Y-%m-%d").fillna("n/a")
-            + " → " + _fmt(p[col]) + " on " + p["date"].dt.strftime("%Y-%m-%d")
+            + " " + then + " on " + _dates(p["date_then"])
+            + " → " + _fmt(p[col]) + " on " + _dates(p["date"])
             + "<br>change " + _fmt(p[change], "{:+.3f}"))
     if col in SE_COLUMNS:
         text = (text + " (s.e. " + _fmt(p[f"{change}_se"]) + ", z "
@@ -865,7 +894,17 @@ def change_figure(data: BoardData, quantity: str, source: str = DEFAULT_TAIL_SOU
                            note=_missing_note(data, quantity, source))
 
 
-def summary_figure(summary: pd.DataFrame, as_of: pd.Timestamp | None = None) -> go.Figure:
+def date_marker(as_of: object) -> list[dict]:
+    """The shapes marking the board's date on the universe summary: a dashed line across
+    each of its three rows (:func:`summary_figure`); the page moves them when the date
+    changes instead of sending the whole summary again."""
+    day = pd.Timestamp(as_of).strftime("%Y-%m-%d")
+    return [row_span(row, {"type": "line", "x0": day, "x1": day,
+                           "line": {"color": MUTED, "width": 1, "dash": "dash"}})
+            for row in (1, 2, 3)]
+
+
+def summary_figure(summary: pd.DataFrame, as_of: pd.Timestamp | None = None) -> FigureDict:
     """The universe over time.
 
     Parameters
@@ -877,7 +916,7 @@ def summary_figure(summary: pd.DataFrame, as_of: pd.Timestamp | None = None) -> 
 
     Returns
     -------
-    plotly Figure
+    FigureDict
         Top: cross-pair means of Kendall's tau and of both tails (nonparametric solid,
         model-averaged dashed, selected family dotted). Middle: the share of pairs in alert
         per tail. Bottom: the pairs counted each date and, of them, those carried forward
@@ -920,14 +959,38 @@ def summary_figure(summary: pd.DataFrame, as_of: pd.Timestamp | None = None) -> 
                              "name": "of them carried forward", "marker": {"color": ORANGE},
                              "hovertemplate": "%{y:.0f} carried forward<extra></extra>"}))
     if as_of is not None:
-        day = pd.Timestamp(as_of).strftime("%Y-%m-%d")
-        layout["shapes"] = [
-            row_span(row, {"type": "line", "x0": day, "x1": day,
-                           "line": {"color": MUTED, "width": 1, "dash": "dash"}})
-            for row in (1, 2, 3)]
+        layout["shapes"] = date_marker(as_of)
     layout["yaxis2"].update(tickformat=".0%", rangemode="tozero")
     layout["yaxis3"].update(rangemode="tozero")
     fig = figure(traces, figure_layout(
         **layout, height=560, hovermode="x unified", bargap=0,
         legend={"orientation": "h", "y": -0.1, "x": 0, "font": {"size": 11}}))
     return fig
+
+
+def universe_figure(view: StoreView, as_of: object = None) -> FigureDict:
+    """The universe summary over time as stored (:func:`summary_figure`), the board's date
+    marked.
+
+    Parameters
+    ----------
+    view : StoreView
+    as_of : str, date or None
+        ``YYYY-MM-DD``; the latest stored date when None.
+
+    Returns
+    -------
+    FigureDict
+
+    Raises
+    ------
+    InputError
+        When no universe summary is stored under the current settings, or ``as_of`` is not
+        a date.
+    """
+    summary = view.store.read_universe(universe_key(view.signals_key))
+    if summary.empty:
+        raise InputError("board: no signals stored under the current settings yet "
+                         "(run 'comove update')")
+    day = summary.index[-1] if as_of is None or as_of == "" else parse_date(as_of, "board date")
+    return summary_figure(summary, day)

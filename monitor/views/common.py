@@ -8,13 +8,17 @@ criterion, marginal model and mode, signal thresholds; :class:`monitor.settings.
 
 from __future__ import annotations
 
+import base64
 import datetime as dt
+import functools
 import os
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
+import plotly.io as pio
 from numpy.typing import ArrayLike, NDArray
 from scipy import stats
 
@@ -27,15 +31,20 @@ from monitor.settings import Settings
 from monitor.stats.empirical import tail_share_interval
 from monitor.stats.rolling import RollingSettings
 
-__all__ = ["LEVEL", "StoreView", "binomial_band", "blank_figure", "figure", "on_row",
+__all__ = ["LEVEL", "FigureDict", "StoreView", "binomial_band", "blank_figure", "figure",
+           "for_browser", "on_row",
            "parse_date", "parse_pair", "rounded_for_plot", "row_axes", "row_span",
            "stacked_layout", "tau_band"]
 
 #: Whether :func:`figure` has plotly check every property. Off when serving: for a 30-asset
-#: heatmap with hover text, the checks (and the copies they make) cost 15 times the rest of
-#: building it. The test suite sets ``COMOVE_VALIDATE_FIGURES=1``, so that a misspelt
-#: property fails there.
+#: heatmap with hover text, plotly's figure object (its checks and the copies it makes of
+#: every array) costs several times the rest of building it. The test suite sets
+#: ``COMOVE_VALIDATE_FIGURES=1``, so that a misspelt property fails there.
 VALIDATE_FIGURES = os.environ.get("COMOVE_VALIDATE_FIGURES") == "1"
+
+#: A figure as a dictionary, ``{"data": [trace, ...], "layout": {...}}``: what plotly.js
+#: draws, what ``plotly.graph_objects.Figure`` accepts, and what a Dash graph takes.
+FigureDict = dict[str, Any]
 
 
 @dataclass(frozen=True, slots=True)
@@ -259,10 +268,73 @@ def rounded_for_plot(frame: pd.DataFrame, digits: int = 4) -> pd.DataFrame:
     return out
 
 
-def figure(traces: list[dict], layout: dict) -> go.Figure:
-    """A plotly figure of trace and layout dictionaries, checked by plotly only when
-    :data:`VALIDATE_FIGURES` is on (tests); it reads and updates as any other figure."""
-    return go.Figure({"data": traces, "layout": layout}, _validate=VALIDATE_FIGURES)
+def figure(traces: list[dict], layout: dict) -> FigureDict:
+    """A figure dictionary of trace and layout dictionaries (arrays as numpy arrays), checked
+    by plotly only when :data:`VALIDATE_FIGURES` is on (tests).
+
+    ``plotly.graph_objects.Figure(fig)`` reads it as any other figure; :func:`for_browser`
+    turns it into what a page sends.
+    """
+    fig = {"data": traces, "layout": layout}
+    if VALIDATE_FIGURES:
+        go.Figure(fig)  # raises on a misspelt or out-of-range property
+    return fig
+
+
+#: plotly.js element types of the typed arrays :func:`for_browser` sends (base64).
+_TYPED = {"f": ("f8", np.float64), "i": ("i4", np.int32), "u": ("u4", np.uint32),
+          "b": ("u1", np.uint8)}
+
+
+def _wire(value: Any) -> Any:
+    """``value`` ready for JSON: numeric arrays as plotly.js typed arrays (base64, with their
+    shape), other arrays as lists, dictionaries and lists element by element."""
+    if isinstance(value, pd.Series | pd.Index):
+        value = value.to_numpy()
+    if isinstance(value, np.ndarray):
+        kind = value.dtype.kind
+        if kind in _TYPED and value.size and (
+                kind not in "iu" or np.abs(value).max() < 2**31):
+            code, dtype = _TYPED[kind]
+            array = np.ascontiguousarray(value, dtype=dtype)
+            spec = {"dtype": code, "bdata": base64.b64encode(array).decode("ascii")}
+            if array.ndim > 1:
+                spec["shape"] = ", ".join(map(str, array.shape))
+            return spec
+        if kind == "M":
+            return np.datetime_as_string(value.astype("datetime64[us]")).tolist()
+        return [_wire(v) for v in value.tolist()] if kind == "O" else value.tolist()
+    if isinstance(value, dict):
+        return {k: _wire(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_wire(v) for v in value]
+    if isinstance(value, float) and not np.isfinite(value):
+        return None
+    if isinstance(value, np.generic):
+        return _wire(value.item())
+    return value
+
+
+@functools.cache
+def _template(name: str) -> dict:
+    return pio.templates[name].to_plotly_json()
+
+
+def for_browser(fig: FigureDict) -> FigureDict:
+    """A figure dictionary as a page sends it: arrays encoded as plotly.js reads them
+    (numbers as base64 typed arrays), with plotly's default template, which
+    ``plotly.graph_objects.Figure`` would otherwise add.
+
+    Notes
+    -----
+    Dash encodes a ``plotly.graph_objects.Figure`` through two deep copies and a walk of
+    every array element in Python; for the Board's eight 30 x 30 heatmaps with hover text
+    that was most of a response's cost. The result encodes to the same figure in the
+    browser (``tests/dashboard/test_figures.py``).
+    """
+    layout = _wire(fig.get("layout", {}))
+    layout.setdefault("template", _template(pio.templates.default))
+    return {"data": [_wire(t) for t in fig.get("data", [])], "layout": layout}
 
 
 def row_axes(row: int, *, layout: bool = False) -> tuple[str, str]:

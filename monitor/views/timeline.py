@@ -24,7 +24,6 @@ from urllib.parse import urlencode
 
 import numpy as np
 import pandas as pd
-import plotly.graph_objects as go
 from numpy.typing import ArrayLike
 
 from monitor.common.arrays import overlap_days
@@ -43,6 +42,7 @@ from monitor.common.palette import (
 from monitor.stats.rolling import degeneracy
 from monitor.stats.signals import STATES, TAILS, states_on
 from monitor.views.common import (
+    FigureDict,
     StoreView,
     binomial_band,
     figure,
@@ -390,7 +390,7 @@ def tau_axis_range(low: ArrayLike, high: ArrayLike, pad: float = 0.1,
     return max(-1.0, round(lo, 3)), min(1.0, round(hi, 3))
 
 
-def timeline_figure(history: PairHistory) -> go.Figure:
+def timeline_figure(history: PairHistory) -> FigureDict:
     """The pair's timeline: four rows sharing the date axis.
 
     Rows: Kendall's tau with its 95 % band; the lower and the upper tail, each with the
@@ -412,7 +412,7 @@ def timeline_figure(history: PairHistory) -> go.Figure:
 
     Returns
     -------
-    plotly Figure
+    FigureDict
         Traces in order: tau band (two traces) and tau; per tail the Wilson band (two), the
         nonparametric line, the model-averaged line, the selected family's line and the
         Gaussian same-tau line; the

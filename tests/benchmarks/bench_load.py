@@ -60,15 +60,17 @@ def _spec(dep: dict, inputs: list[dict], state: list[dict] | None = None) -> dic
 
 
 def requests_per_page(base: str, pair: str, asset: str, day: str | None = None,
-                      search: str = "") -> dict[str, list[dict]]:
+                      search: str = "", bounds: list[str] | None = None
+                      ) -> dict[str, list[dict]]:
     """The Dash requests of each page load: the router (with ``search`` as the address's
     query), then the page's main callback (Board on ``day``, Timeline of ``pair``, Inputs of
-    ``asset``)."""
+    ``asset``) and, for the Board, its universe summary (stored range ``bounds``)."""
     with urllib.request.urlopen(f"{base}/_dash-dependencies", timeout=60) as r:
         deps = json.load(r)
 
     def dep(first_output: str) -> dict:
-        return next(d for d in deps if d["output"].strip(".").startswith(first_output))
+        return next(d for d in deps if d["output"].strip(".").startswith(first_output)
+                    and "@" not in d["output"])  # not a duplicate output (a patch)
 
     router = dep("shell-nav.children")
     out = {}
@@ -79,6 +81,9 @@ def requests_per_page(base: str, pair: str, asset: str, day: str | None = None,
         {"id": "board-date", "property": "date", "value": day},
         {"id": "board-tail-source", "property": "value", "value": "nonparametric"},
         {"id": "board-horizon", "property": "value", "value": "1m"}]))
+    out["/"].append(_spec(dep("board-summary.figure"), [
+        {"id": "board-universe-range", "property": "data", "value": bounds}],
+        [{"id": "board-date", "property": "date", "value": day}]))
     out["/timeline"].append(_spec(dep("timeline-figure.figure"), [
         {"id": "timeline-pair", "property": "value", "value": pair}]))
     out["/inputs"].append(_spec(dep("inputs-residuals.figure"), [
@@ -93,7 +98,7 @@ def _client(base: str, plans: list[dict[str, list[dict]]], rounds: int
     for r in range(rounds):
         for page, payloads in plans[r % len(plans)].items():
             for k, payload in enumerate(payloads):
-                name = f"{page} {'page' if k == 0 else 'main callback'}"
+                name = f"{page} {('page', 'main callback', 'universe summary')[k]}"
                 times.setdefault(name, []).append(_post(base, payload))
     return times
 
@@ -160,7 +165,8 @@ def main() -> None:
             a, b = pairs[(len(pairs) // 2 + 7 * k) % len(pairs)]
             day = None if not args.cold else f"{days[-1 - 5 * k]:%Y-%m-%d}"
             return requests_per_page(base, f"{a}/{b}", assets[k % len(assets)], day,
-                                     f"?n={k}" if args.cold else "")
+                                     f"?n={k}" if args.cold else "",
+                                     [f"{days[0]:%Y-%m-%d}", f"{days[-1]:%Y-%m-%d}"])
 
         n = (args.clients + 1) * (args.rounds + 1) if args.cold else 1
         all_plans = [plan(k) for k in range(n)]

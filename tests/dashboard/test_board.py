@@ -19,7 +19,14 @@ import sqlalchemy as sa
 from scipy import stats
 from sqlalchemy.pool import NullPool
 
-from callbacks.board import OUTPUTS, register, show_board
+from callbacks.board import (
+    OUTPUTS,
+    marked,
+    move_marker,
+    register,
+    show_board,
+    show_universe,
+)
 from layouts import board as board_page
 from layouts import ids
 from monitor.common.errors import InputError
@@ -35,6 +42,7 @@ from monitor.views.board import (
     change_se,
     change_z,
     cluster_order,
+    date_marker,
     divergence,
     excess_figure,
     matrix_figure,
@@ -45,6 +53,7 @@ from monitor.views.board import (
 )
 from monitor.views.common import StoreView
 
+from .plotted import as_figure
 from .tree import find, text
 
 
@@ -266,13 +275,15 @@ def test_pair_matrix_and_ranking_on_a_small_frame():
 def test_board_callback_returns_the_figures_and_the_table(dash_store, view):
     app = dash.Dash(__name__)
     register(app, view)
-    (key,) = app.callback_map
+    key = next(k for k in app.callback_map if f"{ids.BOARD_MATRIX_TAU}.figure" in k)
     assert all(f"{i}.{p}" in key for i, p in OUTPUTS)
+    assert f"{ids.BOARD_SUMMARY}.figure" not in key  # sent once per page load, below
     assert [i["id"] for i in app.callback_map[key]["inputs"]] == [
         ids.BOARD_DATE, ids.BOARD_TAIL_SOURCE, ids.BOARD_HORIZON]
     day = board_data(view).as_of.strftime("%Y-%m-%d")
-    result = dict(zip([f"{i}.{p}" for i, p in OUTPUTS], show_board(view, day, "model"),
-                      strict=True))
+    result = {k: as_figure(v) if k.endswith(".figure") else v
+              for k, v in zip([f"{i}.{p}" for i, p in OUTPUTS], show_board(view, day, "model"),
+                              strict=True)}
     data = board_data(view, day)
     tau_fig = result[f"{ids.BOARD_MATRIX_TAU}.figure"]
     heat = tau_fig.data[0]
@@ -289,7 +300,7 @@ def test_board_callback_returns_the_figures_and_the_table(dash_store, view):
     i, j = data.assets.index(a), data.assets.index(b)
     assert "no stored s.e." in lower.text[i][j]
     # The toggle: nonparametric tails with their Wilson intervals in the hover.
-    emp = show_board(view, day, "nonparametric")[1].data[0]
+    emp = as_figure(show_board(view, day, "nonparametric")[1]).data[0]
     np.testing.assert_array_equal(np.array(emp.z, float),
                                   data.matrix("tail_lower_emp").to_numpy())
     assert "95%:" in emp.text[i][j]
@@ -306,14 +317,26 @@ def test_board_callback_returns_the_figures_and_the_table(dash_store, view):
     hidden = result[f"{ids.BOARD_RANKING}.hidden_columns"]
     assert "lower tail averaged" in hidden and "upper tail selected family" in hidden
     assert "divergence (z)" not in hidden and "lower tail nonparametric" not in hidden
-    summary = result[f"{ids.BOARD_SUMMARY}.figure"]
+    stored = view.store.read_universe(universe_key(view.signals_key))
+    summary = as_figure(show_universe(view))
     # tau, three figures per tail, two alert shares, pairs counted and carried.
     assert len(summary.data) == 11
     np.testing.assert_allclose(np.array(summary.data[0].y, float),
-                               data.summary["kendall_tau"].to_numpy(), atol=5e-5)
+                               stored["kendall_tau"].to_numpy(), atol=5e-5)
     counted = next(t for t in summary.data if t.name == "pairs counted")
-    np.testing.assert_array_equal(np.array(counted.y, float), data.summary["n_pairs"])
-    assert len(summary.layout.shapes) == 3  # the date marker on every row
+    np.testing.assert_array_equal(np.array(counted.y, float), stored["n_pairs"])
+    # The date marker on every row, at the latest date until the page says otherwise.
+    latest = f"{stored.index[-1]:%Y-%m-%d}"
+    assert [(s.x0, s.x1) for s in summary.layout.shapes] == [(latest, latest)] * 3
+    earlier = f"{stored.index[-40]:%Y-%m-%d}"
+    moved = as_figure(marked(show_universe(view), earlier))
+    assert [(s.x0, s.x1) for s in moved.layout.shapes] == [(earlier, earlier)] * 3
+    assert moved.data == summary.data
+    patch = move_marker(view, earlier).to_plotly_json()["operations"]
+    assert patch == [{"operation": "Assign", "location": ["layout", "shapes"],
+                      "params": {"value": date_marker(earlier)}}]
+    universe = next(k for k in app.callback_map if k.startswith(f"{ids.BOARD_SUMMARY}.figure"))
+    assert [i["id"] for i in app.callback_map[universe]["inputs"]] == [ids.BOARD_UNIVERSE]
     note = result[f"{ids.BOARD_NOTE}.children"]
     assert "window 120 days" in note and "real-time" in note and "6 pairs of 4 assets" in note
     assert result[f"{ids.BOARD_MESSAGE}.children"] == ""
@@ -463,32 +486,32 @@ def test_excess_and_change_matrices_and_the_averaged_source(view):
     a, b = data.pairs.iloc[0][["asset_a", "asset_b"]]
     i, j = data.assets.index(a), data.assets.index(b)
     for tail in ("lower", "upper"):
-        heat = excess_figure(data, tail).data[0]
+        heat = as_figure(excess_figure(data, tail)).data[0]
         np.testing.assert_array_equal(np.array(heat.z, float),
                                       data.matrix(f"divergence_{tail}").to_numpy())
         assert (heat.zmin, heat.zmax) == (-4, 4)
         assert [list(c) for c in heat.colorscale] == [list(c) for c in DIVERGING]
         assert "excess over Gaussian" in heat.text[i][j] and "s.e." in heat.text[i][j]
-    tau = change_figure(data, "kendall_tau").data[0]
+    tau = as_figure(change_figure(data, "kendall_tau")).data[0]
     np.testing.assert_array_equal(np.array(tau.z, float),
                                   data.matrix("change_kendall_tau").to_numpy())
     assert "z " in tau.text[i][j] and "correlation 0.47 assumed" in tau.text[i][j]  # 1-63/120
-    averaged = change_figure(data, "tail_lower", "averaged").data[0]
+    averaged = as_figure(change_figure(data, "tail_lower", "averaged")).data[0]
     np.testing.assert_array_equal(np.array(averaged.z, float),
                                   data.matrix("change_tail_lower_avg").to_numpy())
     assert "no stored s.e. for a model-based tail" in averaged.text[i][j]
-    level = matrix_figure(data, "tail_upper", "averaged").data[0]
+    level = as_figure(matrix_figure(data, "tail_upper", "averaged")).data[0]
     np.testing.assert_array_equal(np.array(level.z, float),
                                   data.matrix("tail_upper_avg").to_numpy())
     assert "model-averaged (Akaike weights)" in level.text[i][j]
     # The callback with the averaged source and a one-week horizon.
     out = dict(zip([f"{k}.{p}" for k, p in OUTPUTS], show_board(view, day, "averaged", "1w"),
                    strict=True))
-    lower = out[f"{ids.BOARD_MATRIX_LOWER}.figure"].data[0]
+    lower = as_figure(out[f"{ids.BOARD_MATRIX_LOWER}.figure"]).data[0]
     week = board_data(view, day, "1w")
     np.testing.assert_array_equal(np.array(lower.z, float),
                                   week.matrix("tail_lower_avg").to_numpy())
-    change = out[f"{ids.BOARD_CHANGE_TAU}.figure"]
+    change = as_figure(out[f"{ids.BOARD_CHANGE_TAU}.figure"])
     assert "over 1 week" in change.layout.title.text
     assert "Change over 1 week (5 window ends, 5 trading days)" in out[
         f"{ids.BOARD_CHANGE_NOTE}.children"]

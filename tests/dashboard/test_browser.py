@@ -102,3 +102,35 @@ def test_a_pair_and_range_give_the_window_study_and_the_report(served, dash_stor
     assert report.lstrip().lower().startswith("<!doctype html") and f"{a}" in report
     assert "not investment advice" in report
     assert served.get_logs() == []
+
+
+_SUMMARY = f"""const g = document.querySelector('#{ids.BOARD_SUMMARY} .js-plotly-plot');
+return g && g.data ? [g.data.length, g.data[0].x.length,
+                      (g.layout.shapes || []).map(s => s.x0)] : null;"""
+
+
+def _until(duo, script: str, check, timeout: float = 30):
+    end = time.monotonic() + timeout
+    while time.monotonic() < end:
+        got = duo.driver.execute_script(script)
+        if got is not None and check(got):
+            return got
+        time.sleep(0.2)
+    raise AssertionError(f"not reached in {timeout} s; last: {got!r}")
+
+
+def test_the_universe_summary_loads_once_and_a_new_date_moves_its_marker(served, view):
+    # The summary over time comes with the page; picking another date sends only a patch of
+    # its date marker (callbacks/board.py), which the browser applies to the drawn figure.
+    from monitor.stats.signals import universe_key
+
+    stored = view.store.read_universe(universe_key(view.signals_key))
+    latest, earlier = (f"{d:%Y-%m-%d}" for d in (stored.index[-1], stored.index[-30]))
+    served.driver.get(served.server_url + "/")
+    traces, points, marks = _until(served, _SUMMARY, lambda g: g[0] > 0)
+    assert (traces, points) == (11, len(stored)) and marks == [latest] * 3
+    served.driver.execute_script(
+        f"window.dash_clientside.set_props('{ids.BOARD_DATE}', {{date: '{earlier}'}});")
+    traces, points, marks = _until(served, _SUMMARY, lambda g: g[2] == [earlier] * 3)
+    assert (traces, points) == (11, len(stored))
+    assert served.get_logs() == []

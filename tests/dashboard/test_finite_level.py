@@ -24,6 +24,7 @@ from monitor.views.drilldown import study_pair, tail_figure, tail_table
 from monitor.views.report import report_html
 from monitor.views.timeline import pair_history, timeline_figure
 
+from .plotted import as_figure
 from .tree import text
 
 
@@ -51,10 +52,10 @@ def test_board_and_timeline_say_it_and_show_q(view, pair):
     assert f"an independent pair gives q = {q:g}" in note
     out = show_board(view, None, "nonparametric")
     assert note in out[-4]  # the board's note
-    cells = out[1].data[0].text  # the lower tail matrix's hover lines
+    cells = as_figure(out[1]).data[0].text  # the lower tail matrix's hover lines
     assert any(f"independent pair {q:g}" in str(c) for row in cells for c in row if c)
     history = pair_history(view, *pair)
-    fig = timeline_figure(history)
+    fig = as_figure(timeline_figure(history))
     lines = [t for t in fig.data if t.name == f"independent pair (= q = {q:g})"]
     assert len(lines) == 2 and all(list(t.y) == [q, q] for t in lines)
     assert "(finite level)" in fig.layout.annotations[1].text

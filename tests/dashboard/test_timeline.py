@@ -38,6 +38,7 @@ from monitor.views.timeline import (
     timeline_figure,
 )
 
+from .plotted import as_figure
 from .tree import find, text
 
 
@@ -114,7 +115,7 @@ def test_timeline_figure_traces(view):
     counts = {p: len(view.store.read_episodes(view.signals_key, p)) for p in pairs}
     a, b = max(pairs, key=lambda p: (counts[p], p))
     history = pair_history(view, a, b)
-    fig = timeline_figure(history)
+    fig = as_figure(timeline_figure(history))
     names = [t.name for t in fig.data]
     tau = fig.data[names.index("Kendall's tau")]
     # Plotted values are rounded to 4 decimals (the hover shows 3).
@@ -166,7 +167,7 @@ def test_show_pair_callback(view):
     assert len(keys) == 3 and all(f"{i}.{p}" in keys[0] for i, p in OUTPUTS)
     a, b = min(view.store.stored_pairs(view.rolling_key))
     out = dict(zip([f"{i}.{p}" for i, p in OUTPUTS], show_pair(view, f"{b}/{a}"), strict=True))
-    fig = out[f"{ids.TIMELINE_FIGURE}.figure"]
+    fig = as_figure(out[f"{ids.TIMELINE_FIGURE}.figure"])
     timeline = view.store.read_timeline(view.rolling_key, a, b)
     tau = next(t for t in fig.data if t.name == "Kendall's tau")
     np.testing.assert_allclose(np.array(tau.y, float), timeline["kendall_tau"], atol=5e-5)
@@ -220,7 +221,7 @@ def test_family_colours_are_not_state_colours_and_tau_is_not_a_tail_colour(view)
     assert not states & {c.upper() for c in FAMILY_COLOURS.values()}
     assert len(set(FAMILY_COLOURS.values())) == len(FAMILY_COLOURS)  # one colour a family
     a, b = min(view.store.stored_pairs(view.rolling_key))
-    fig = timeline_figure(pair_history(view, a, b))
+    fig = as_figure(timeline_figure(pair_history(view, a, b)))
     by_name = {t.name: t for t in fig.data if t.name}
     tau = by_name["Kendall's tau"].line.color
     tails = {by_name["nonparametric C(q,q)/q"].line.color,
@@ -244,7 +245,7 @@ def test_timeline_tau_axis_and_rotation_strip(view):
 
     a, b = min(view.store.stored_pairs(view.rolling_key))
     history = pair_history(view, a, b)
-    fig = timeline_figure(history)
+    fig = as_figure(timeline_figure(history))
     f = history.frame
     lo, hi = fig.layout.yaxis.range
     assert (lo, hi) == tau_axis_range(f["tau_low"].round(4), f["tau_high"].round(4))
@@ -254,7 +255,7 @@ def test_timeline_tau_axis_and_rotation_strip(view):
     k = len(frame)
     frame["family"] = np.where(np.arange(k) < k // 2, "clayton", "gumbel")
     frame["rotation"] = np.select([np.arange(k) < k // 4, np.arange(k) < k // 2], [0, 180], 90)
-    fig = timeline_figure(replace(history, frame=frame))
+    fig = as_figure(timeline_figure(replace(history, frame=frame)))
     heat = next(t for t in fig.data if t.type == "heatmap")
     z = np.asarray(heat.z, dtype=float)
     rot_codes = z[1]
