@@ -37,6 +37,7 @@ from monitor.stats.signals import (
     hysteresis,
     pair_signals,
     robust_z_against_history,
+    states_on,
     universe_summary,
 )
 
@@ -670,3 +671,33 @@ def test_no_episode_opens_on_a_tail_the_models_do_not_see():
     old = pair_signals(frame.drop(columns="tail_lower_avg"), s)
     # The sum reaches the entry level 1 on the second day (0.5 a day from 0).
     assert old.episodes[0].onset == frame["date"].iloc[1]
+
+
+def test_states_on_finds_the_run_covering_each_date_as_a_scan_of_the_runs_does():
+    # Reference: for each row, a plain scan of its pair's runs of each tail for one with
+    # first_date <= date <= last_date (runs of a pair and tail do not overlap).
+    rng = np.random.default_rng(5)
+    days = pd.bdate_range("2021-01-04", periods=120)
+    pairs = [("ASH", "BEECH"), ("ASH", "CEDAR"), ("BEECH", "CEDAR"), ("ELM", "FIR")]
+    runs = []
+    for a, b in pairs[:3]:  # ELM/FIR has no runs at all
+        for tail in ("lower", "upper"):
+            cuts = np.sort(rng.choice(np.arange(1, 119), size=6, replace=False))
+            for lo, hi in zip(cuts[:-1:2], cuts[1::2], strict=True):  # gaps between runs
+                runs.append((a, b, tail, days[lo], days[hi], str(rng.choice(STATES))))
+    runs = pd.DataFrame(runs, columns=["asset_a", "asset_b", "tail", "first_date",
+                                       "last_date", "state"]).sample(frac=1, random_state=1)
+    rows = pd.DataFrame([(a, b, d) for a, b in pairs for d in days[::3]],
+                        columns=["asset_a", "asset_b", "date"]).sample(frac=1, random_state=2)
+    got = states_on(runs, rows)
+    assert list(got.index) == list(rows.index)
+    for tail in ("lower", "upper"):
+        want = []
+        for a, b, d in rows.itertuples(index=False):
+            cover = runs[(runs["asset_a"] == a) & (runs["asset_b"] == b) & (runs["tail"] == tail)
+                         & (runs["first_date"] <= d) & (d <= runs["last_date"])]
+            want.append(cover["state"].iloc[0] if len(cover) else None)
+        assert got[f"state_{tail}"].tolist() == [w if w is not None else pd.NA for w in want]
+    assert got["state_lower"].notna().sum() > 20  # the test covers hits and misses
+    empty = states_on(runs.iloc[:0], rows)
+    assert empty.isna().all().all() and len(empty) == len(rows)

@@ -15,6 +15,7 @@ year's rows: the Board needs it for every pair on every date it shows.
 from __future__ import annotations
 
 import datetime as dt
+import functools
 import json
 from collections.abc import Iterable
 from typing import Any
@@ -102,16 +103,19 @@ def _records(frame: pd.DataFrame, extra: dict[str, Any]) -> list[dict[str, Any]]
             for row in zip(*columns, strict=True)]
 
 
-def _timeline_statements() -> tuple[sa.Select[Any], sa.Select[Any]]:
-    """A pair's metric rows in date order: all of them, and those from the ``p_n``-th
-    window end before ``p_d`` on (all when it has fewer)."""
+@functools.cache
+def _timeline_statements(columns: tuple[str, ...] | None = None
+                         ) -> tuple[sa.Select[Any], sa.Select[Any]]:
+    """A pair's metric rows in date order (``columns``, default every column of the rolling
+    engine): all of them, and those from the ``p_n``-th window end before ``p_d`` on (all
+    when it has fewer)."""
     from monitor.stats.rolling import METRIC_COLUMNS
 
     # Dates come through as the driver gives them (ISO text on SQLite) and are converted
     # per column: several times faster than converting value by value, which matters when
     # every pair's timeline is read daily.
     cols = [raw_date(metrics.c[c]) if c in ("date", "start") else metrics.c[c]
-            for c in METRIC_COLUMNS]
+            for c in (columns or METRIC_COLUMNS)]
     whole = sa.select(*cols).where(of_pair(metrics)).order_by(metrics.c.date)
     first = (sa.select(metrics.c.date)
              .where(of_pair(metrics), metrics.c.date <= sa.bindparam("p_d"))
@@ -119,9 +123,6 @@ def _timeline_statements() -> tuple[sa.Select[Any], sa.Select[Any]]:
              .scalar_subquery())
     newest = whole.where(metrics.c.date >= sa.func.coalesce(first, dt.date(1, 1, 1)))
     return whole, newest
-
-
-_SELECT_TIMELINE, _SELECT_TIMELINE_FROM = _timeline_statements()
 
 
 class MetricStore(StoreBase):
@@ -263,26 +264,29 @@ class MetricStore(StoreBase):
         return len(rows)
 
     def read_timeline(self, settings_key: str, a: str, b: str, *,
-                      context_from: dt.date | None = None, context_rows: int = 0
-                      ) -> pd.DataFrame:
-        """A pair's stored metric rows, oldest first (columns of the rolling engine).
+                      context_from: dt.date | None = None, context_rows: int = 0,
+                      columns: Iterable[str] | None = None) -> pd.DataFrame:
+        """A pair's stored metric rows, oldest first (the columns of the rolling engine, or
+        only ``columns`` of them: a page that shows a few reads a few).
 
         With ``context_from``, only the newest rows: those from ``context_rows`` window
         ends up to and including ``context_from`` on (all rows when it has fewer before).
         """
         from monitor.stats.rolling import METRIC_COLUMNS
 
+        names = tuple(METRIC_COLUMNS if columns is None else columns)
+        whole, newest = _timeline_statements(None if columns is None else names)
         params: dict[str, Any] = {"p_s": settings_key, "p_a": a, "p_b": b}
         if context_from is None:
-            stmt = _SELECT_TIMELINE
+            stmt = whole
         else:
-            stmt = _SELECT_TIMELINE_FROM
+            stmt = newest
             params.update(p_d=context_from, p_n=max(context_rows - 1, 0))
         with self.engine.connect() as conn:
             rows = conn.execute(stmt, params).fetchall()
-        data = list(zip(*rows, strict=True)) if rows else [()] * len(METRIC_COLUMNS)
+        data = list(zip(*rows, strict=True)) if rows else [()] * len(names)
         out = {}
-        for name, values in zip(METRIC_COLUMNS, data, strict=True):
+        for name, values in zip(names, data, strict=True):
             kind = metrics.c[name].type.python_type
             if kind is dt.date:  # ISO text (SQLite) or dates (PostgreSQL)
                 out[name] = np.array(values, dtype="datetime64[D]").astype("datetime64[us]")
@@ -291,7 +295,7 @@ class MetricStore(StoreBase):
                 out[name] = np.array(values, dtype=kind)
             else:
                 out[name] = pd.array(values, dtype="str")
-        return pd.DataFrame(out, columns=list(METRIC_COLUMNS))
+        return pd.DataFrame(out, columns=list(names))
 
     def metrics_as_of(self, settings_key: str, as_of: dt.date,
                       columns: Iterable[str], back: int = 0) -> pd.DataFrame:

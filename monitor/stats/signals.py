@@ -1125,22 +1125,33 @@ def states_on(runs: pd.DataFrame, rows: pd.DataFrame) -> pd.DataFrame:
         the run that covers each date, missing where no stored run covers it (signals not
         yet computed for that window end).
     """
-    keys = ["asset_a", "asset_b"]
-    # merge_asof wants identical key dtypes on both sides (also when one side is empty).
-    left = pd.DataFrame({"row": np.arange(len(rows)), "asset_a": rows["asset_a"].to_numpy(),
-                         "asset_b": rows["asset_b"].to_numpy(),
-                         "date": pd.to_datetime(rows["date"]).astype("datetime64[ns]").to_numpy()})
-    left = left.astype({"asset_a": str, "asset_b": str}).sort_values("date", kind="stable")
+    # Each pair a code, each (pair, date) one sortable number: a row's run is the last one
+    # of its pair starting on or before its date, if it has not ended by then (a binary
+    # search, not a merge of frames: the Timeline decodes 5,000 dates per request).
+    names = np.concatenate([rows["asset_a"].to_numpy(dtype=object) + "\0"
+                            + rows["asset_b"].to_numpy(dtype=object),
+                            runs["asset_a"].to_numpy(dtype=object) + "\0"
+                            + runs["asset_b"].to_numpy(dtype=object)])
+    codes = pd.factorize(names)[0].astype(np.int64)
+    row_code, run_code = codes[:len(rows)], codes[len(rows):]
+
+    def days(values) -> np.ndarray:
+        return pd.to_datetime(values).to_numpy(dtype="datetime64[D]").astype(np.int64)
+
+    span = np.int64(1) << 32
+    row_key = row_code * span + days(rows["date"])
     out = {}
     for tail in TAILS:
-        right = runs.loc[runs["tail"] == tail, [*keys, "first_date", "last_date", "state"]]
-        right = right.astype({"asset_a": str, "asset_b": str, "first_date": "datetime64[ns]",
-                              "last_date": "datetime64[ns]"})
-        right = right.sort_values("first_date", kind="stable")
-        hit = pd.merge_asof(left, right, left_on="date", right_on="first_date", by=keys,
-                            direction="backward")
-        state = hit["state"].where(hit["date"] <= hit["last_date"])
-        result = np.empty(len(rows), dtype=object)
-        result[hit["row"].to_numpy()] = state.to_numpy(dtype=object, na_value=None)
+        mine = (runs["tail"] == tail).to_numpy()
+        first = run_code[mine] * span + days(runs.loc[mine, "first_date"])
+        order = np.argsort(first, kind="stable")
+        first = first[order]
+        last = (run_code[mine] * span + days(runs.loc[mine, "last_date"]))[order]
+        state = runs.loc[mine, "state"].to_numpy(dtype=object)[order]
+        k = np.searchsorted(first, row_key, side="right") - 1
+        safe = np.maximum(k, 0)
+        hit = (k >= 0) & (row_key <= last[safe]) if len(first) else np.zeros(len(rows), bool)
+        result = np.full(len(rows), None, dtype=object)
+        result[hit] = state[safe[hit]]
         out[f"state_{tail}"] = pd.array(result, dtype="string")
     return pd.DataFrame(out, index=rows.index)

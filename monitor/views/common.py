@@ -303,11 +303,14 @@ def _wire(value: Any) -> Any:
             return spec
         if kind == "M":
             return np.datetime_as_string(value.astype("datetime64[us]")).tolist()
-        return [_wire(v) for v in value.tolist()] if kind == "O" else value.tolist()
+        if kind != "O" or set(map(type, value.flat)) <= {str}:  # text: as it is
+            return value.tolist()
+        return [_wire(v) for v in value.tolist()]
     if isinstance(value, dict):
         return {k: _wire(v) for k, v in value.items()}
     if isinstance(value, list | tuple):
-        return [_wire(v) for v in value]
+        return (list(value) if set(map(type, value)) <= {str}
+                else [_wire(v) for v in value])
     if isinstance(value, float) and not np.isfinite(value):
         return None
     if isinstance(value, np.generic):

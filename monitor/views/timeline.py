@@ -214,15 +214,14 @@ def pair_history(view: StoreView, a: str, b: str) -> PairHistory:
     the stored runs (:func:`monitor.engine.pipeline.states_on`), so they are those of the last
     ``comove update``; a window end newer than the last signal update has no state.
     """
-    timeline = view.store.read_timeline(view.rolling_key, a, b)
-    if timeline.empty:
+    frame = view.store.read_timeline(view.rolling_key, a, b, columns=(
+        "date", "start", "n", "kendall_tau", "kendall_tau_se", "family", "rotation",
+        "converged", "tail_lower", "tail_upper", "tail_lower_avg", "tail_upper_avg",
+        "tail_lower_emp", "tail_upper_emp", "gauss_tail_q"))
+    if frame.empty:
         raise InputError(f"pair {a}/{b}: no rolling metrics stored under the current settings "
                          "(run 'comove update')")
     q = view.rolling.tail_q
-    frame = timeline[["date", "start", "n", "kendall_tau", "kendall_tau_se", "family",
-                      "rotation", "converged", "tail_lower", "tail_upper", "tail_lower_avg",
-                      "tail_upper_avg", "tail_lower_emp", "tail_upper_emp",
-                      "gauss_tail_q"]].copy()
     for col in ("kendall_tau", "kendall_tau_se", "tail_lower", "tail_upper", "tail_lower_avg",
                 "tail_upper_avg", "tail_lower_emp", "tail_upper_emp", "gauss_tail_q"):
         frame[col] = pd.to_numeric(frame[col]).astype(float)
@@ -239,22 +238,20 @@ def pair_history(view: StoreView, a: str, b: str) -> PairHistory:
     fallbacks = view.store.fallback_spans(view.marginal_key, (a, b))
     frame["fallback"] = overlap_days(frame["start"], frame["date"], fallbacks["first"],
                                      fallbacks["last"])
-    rets = view.store.read_returns([a, b])
-    frame["degenerate"] = degeneracy(frame["kendall_tau"],
-                                     *(_zero_share(rets[x], frame) for x in (a, b)), a, b)
+    frame["degenerate"] = degeneracy(frame["kendall_tau"], *(
+        _zero_share(*view.store.return_days(x), frame) for x in (a, b)), a, b)
     spans = episode_spans(view.store.read_episodes(view.signals_key, (a, b)),
                           frame["date"].iloc[-1])
     return PairHistory((a, b), frame, family_runs(frame), spans, q, view.settings.provenance(),
                        fallbacks)
 
 
-def _zero_share(returns: pd.Series, frame: pd.DataFrame) -> np.ndarray:
-    """Share of an asset's returns that are exactly 0 within each window [start, date]."""
-    r = returns.dropna()
-    zeros = np.concatenate([[0], np.cumsum(r.to_numpy() == 0)])
-    days = r.index.to_numpy()
-    lo = np.searchsorted(days, frame["start"].to_numpy(), side="left")
-    hi = np.searchsorted(days, frame["date"].to_numpy(), side="right")
+def _zero_share(days: np.ndarray, zero: np.ndarray, frame: pd.DataFrame) -> np.ndarray:
+    """Share of an asset's returns that are exactly 0 within each window [start, date], from
+    its return dates and zero marks (:meth:`monitor.data.store.Store.return_days`)."""
+    zeros = np.concatenate([[0], np.cumsum(zero)])
+    lo = np.searchsorted(days, frame["start"].to_numpy().astype("datetime64[D]"), side="left")
+    hi = np.searchsorted(days, frame["date"].to_numpy().astype("datetime64[D]"), side="right")
     return (zeros[hi] - zeros[lo]) / np.maximum(hi - lo, 1)
 
 
