@@ -974,3 +974,24 @@ columns = { date = "Datum", asset = "Symbol", value = "Schluss" }
     with pytest.raises(InputError, match=r"'1\.100,0' is not a finite number; give "
                                          r"decimal = ',' thousands = '\.'$"):
         read_configured_sources(load_config(path))
+
+
+def test_return_days_kept_between_reads_follow_the_next_ingest(store_url, tmp_path):
+    # The Timeline keeps each asset's return days until the store's fingerprint changes:
+    # a later ingest (a new day, a price that did not move) shows in the next read.
+    first = tmp_path / "first.csv"
+    first.write_text("date,ASPEN,BIRCH\n2024-01-02,10,20\n2024-01-03,10,21\n"
+                     "2024-01-04,11,21\n", encoding="utf-8")
+    later = tmp_path / "later.csv"
+    later.write_text("date,ASPEN,BIRCH\n2024-01-05,11,22\n", encoding="utf-8")
+    ingest(store_url, first)
+    with Store(store_url) as store:
+        days, zero = store.return_days("ASPEN")
+        assert store.return_days("ASPEN")[0] is days  # kept, not read again
+        assert [str(d) for d in days] == ["2024-01-03", "2024-01-04"]
+        assert zero.tolist() == [True, False]  # log(10/10) is exactly 0
+        ingest(store_url, later)
+        days, zero = store.return_days("ASPEN")
+        assert [str(d) for d in days] == ["2024-01-03", "2024-01-04", "2024-01-05"]
+        assert zero.tolist() == [True, False, True]
+        assert store.return_days("NOPE")[0].size == 0
