@@ -21,8 +21,9 @@ The tables and the helpers of an ingest are importable from here too.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Hashable
 from pathlib import Path
-from typing import Self
+from typing import Any, Self
 
 import numpy as np
 import sqlalchemy as sa
@@ -104,9 +105,9 @@ class Store(PriceStore, ResidualStore, MetricStore, SignalStore, UniverseStore,
             raise InputError(f"--store / store.url: {url!r} is not a database URL") from None
         self.url = url
         self.shown_url = shown_url(url)
-        #: Per asset, its return days as last read, with the store fingerprint then
-        #: (:meth:`return_days`).
-        self._return_days: dict[str, tuple[tuple, np.ndarray, np.ndarray]] = {}
+        #: Values derived from the store, each with the store fingerprint it was computed
+        #: under (:meth:`kept`).
+        self._kept: dict[Hashable, tuple[tuple, Any]] = {}
         if parsed.get_backend_name() == "sqlite" and parsed.database not in (None, "", ":memory:"):
             path = Path(parsed.database)
             if not path.exists():
@@ -148,27 +149,40 @@ class Store(PriceStore, ResidualStore, MetricStore, SignalStore, UniverseStore,
         with self.engine.connect() as conn:
             return tuple(conn.execute(stmt).one())
 
+    def kept(self, name: Hashable, compute: Callable[[], Any]) -> Any:
+        """``compute()``, computed once per store fingerprint (:meth:`data_version`) and kept
+        under ``name`` until the store changes: for what a page derives from the whole store
+        and shows to every user alike (an asset's return days, the Inputs page's tables).
+        Two threads asking at once may both compute it; the value is the same."""
+        version = self.data_version()
+        held = self._kept.get(name)
+        if held is not None and held[0] == version:
+            return held[1]
+        value = compute()
+        self._kept[name] = (version, value)
+        return value
+
     def return_days(self, asset: str) -> tuple[np.ndarray, np.ndarray]:
         """The asset's return dates (``datetime64[D]``, ascending) and whether each return is
         exactly 0 (a price that did not move): what a zero-return share over any window needs,
-        without reading the values into a wide frame. Kept per asset until the store's
-        fingerprint (:meth:`data_version`) changes: a Timeline reads two assets' 5,000 days
-        each time it is drawn, and they change only with an ingest."""
-        version = self.data_version()
-        kept = self._return_days.get(asset)
-        if kept is not None and kept[0] == version:
-            return kept[1], kept[2]
-        # Plain SQL text: no per-row result processing (a third of the time otherwise);
-        # the same statement on SQLite (dates as ISO text) and PostgreSQL (dates).
-        stmt = sa.text("SELECT date, value = 0 FROM returns WHERE asset = :asset "
-                       "ORDER BY date")
+        without reading the values into a wide frame. Kept until the store's fingerprint
+        changes (:meth:`kept`): a Timeline reads two assets' 5,000 days each time it is
+        drawn, and they change only with an ingest."""
+        return self.kept(("return days", asset), lambda: self._read_return_days(asset))
+
+    def _read_return_days(self, asset: str) -> tuple[np.ndarray, np.ndarray]:
+        # One row, the dates joined by the database and each marked "z" where the return is
+        # exactly 0: a string to split, not 5,000 rows to fetch (4x faster).
+        mark = sa.case((returns.c.value == 0, "z"), else_="")
+        text = sa.cast(returns.c.date, sa.String(10)).concat(mark)
+        stmt = sa.select(sa.func.aggregate_strings(text, ",")).where(returns.c.asset == asset)
         with self.engine.connect() as conn:
-            rows = conn.execute(stmt, {"asset": asset}).all()
-        days, zero = zip(*rows, strict=True) if rows else ((), ())
-        out = (read_only(np.array(days, dtype="datetime64[D]")),
-               read_only(np.array(zero, dtype=bool)))
-        self._return_days[asset] = (version, *out)
-        return out
+            joined = conn.execute(stmt).scalar()
+        items = joined.split(",") if joined else []
+        zero = np.fromiter((x[-1] == "z" for x in items), bool, len(items))
+        days = np.array([x[:10] for x in items], dtype="datetime64[D]")
+        order = np.argsort(days, kind="stable")  # the database joins them in no set order
+        return read_only(days[order]), read_only(zero[order])
 
     def close(self) -> None:
         """Close the store's pooled connections."""
