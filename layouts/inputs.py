@@ -12,6 +12,7 @@ from dash import dcc, html
 
 from monitor.common.errors import InputError
 from monitor.settings import settings_words
+from monitor.views.common import for_browser
 from monitor.views.inputs import (
     PARAMETER_NAMES,
     coverage_figure,
@@ -54,9 +55,8 @@ MARGINAL_SECONDARY = (*PARAMETER_NAMES, "lb_lags", "first_residual", "last_resid
 
 def layout(view, query: dict[str, str]) -> html.Div:
     """The page for ``view``; ``query`` may name the asset whose diagnostics open."""
-    store, key = view.store, view.marginal_key
-    models = marginal_table(store, key)
-    assets = list(models["asset"])
+    assets, panels = view.store.kept(("inputs page", view.marginal_key),
+                                     lambda: _store_panels(view))
     problem, asset = None, None
     try:
         asset = parse_inputs_query(query, assets)
@@ -64,33 +64,12 @@ def layout(view, query: dict[str, str]) -> html.Div:
         problem = str(exc)
     if asset is None and assets:
         asset = assets[0]
-    presence = read_presence(store)
-    coverage = coverage_table(presence)
-    revisions = revision_table(store)
-    mode = mode_label(key)
     return html.Div([
         html.H2("Inputs", style={"margin": "4px 0"}),
-        html.P(f"Stored returns and their marginal models; {settings_words(key)}.",
-               style=NOTE_STYLE),
+        html.P("Stored returns and their marginal models; "
+               f"{settings_words(view.marginal_key)}.", style=NOTE_STYLE),
         message(problem, kind="problem") if problem else None,
-        panel("Coverage", _coverage(coverage, presence),
-              note="Per asset: first and last stored log return, their number, and the dates "
-                   "of the union calendar (every date on which some asset has a return) "
-                   "between the two without a return: holidays of the asset's market or gaps "
-                   "of the feed, kept as such, never filled."),
-        panel("Ingests", typed_table(ids.INPUTS_INGESTS, ingest_table(store), page_size=10,
-                                     secondary=("id", "checksum")),
-              note="Every storing ingest, newest first (outcome, rows, values, checksum and "
-                   "the gaps it found). A refused file changes nothing in the store; "
-                   "'comove ingest' prints the reason, naming file, row or date and column."),
-        panel("Revisions", _revisions(revisions),
-              note="Stored values replaced by an ingest run with --accept-revisions; the "
-                   "results derived from them were dropped and recomputed."),
-        panel("Marginal models", _models(models),
-              note=f"The model of every asset at its latest refit ({mode}): BIC choice among "
-                   "constant or AR(1) mean x GARCH(1,1) or GJR-GARCH(1,1) x Student-t or "
-                   "skew-t; parameters on percent returns; Ljung-Box p-values (LB) of the "
-                   "latest refit's standardised residuals z and of z^2, as stored."),
+        *panels,
         panel("Residual diagnostics", _diagnostics_controls(assets, asset),
               html.P(id=ids.INPUTS_NOTE, style=NOTE_STYLE),
               graph(ids.INPUTS_RESIDUALS, filename="comove-residuals"),
@@ -110,13 +89,44 @@ def layout(view, query: dict[str, str]) -> html.Div:
     ])
 
 
+def _store_panels(view) -> tuple[list[str], tuple[html.Div, ...]]:
+    """The filtered assets and the panels that show the store alike to every user (coverage,
+    ingests, revisions, marginal models): the page keeps them until the store changes
+    (:meth:`monitor.data.store.Store.kept`), so that a desk opening the page after the
+    morning update reads the store once."""
+    store, key = view.store, view.marginal_key
+    models = marginal_table(store, key)
+    presence = read_presence(store)
+    return list(models["asset"]), (
+        panel("Coverage", _coverage(coverage_table(presence), presence),
+              note="Per asset: first and last stored log return, their number, and the dates "
+                   "of the union calendar (every date on which some asset has a return) "
+                   "between the two without a return: holidays of the asset's market or gaps "
+                   "of the feed, kept as such, never filled."),
+        panel("Ingests", typed_table(ids.INPUTS_INGESTS, ingest_table(store), page_size=10,
+                                     secondary=("id", "checksum")),
+              note="Every storing ingest, newest first (outcome, rows, values, checksum and "
+                   "the gaps it found). A refused file changes nothing in the store; "
+                   "'comove ingest' prints the reason, naming file, row or date and column."),
+        panel("Revisions", _revisions(revision_table(store)),
+              note="Stored values replaced by an ingest run with --accept-revisions; the "
+                   "results derived from them were dropped and recomputed."),
+        panel("Marginal models", _models(models),
+              note=f"The model of every asset at its latest refit ({mode_label(key)}): BIC "
+                   "choice among constant or AR(1) mean x GARCH(1,1) or GJR-GARCH(1,1) x "
+                   "Student-t or skew-t; parameters on percent returns; Ljung-Box p-values "
+                   "(LB) of the latest refit's standardised residuals z and of z^2, as "
+                   "stored."))
+
+
 def _coverage(coverage, presence) -> html.Div:
     if coverage.empty:
         return message("No returns stored yet: run 'comove ingest' first.")
     return html.Div([
         typed_table(ids.INPUTS_COVERAGE, coverage, labels=COVERAGE_LABELS, page_size=12,
                     percent=("missing_share",)),
-        graph(ids.INPUTS_COVERAGE_FIGURE, coverage_figure(monthly_coverage(presence)),
+        graph(ids.INPUTS_COVERAGE_FIGURE,
+              for_browser(coverage_figure(monthly_coverage(presence)).to_plotly_json()),
               filename="comove-coverage"),
     ])
 

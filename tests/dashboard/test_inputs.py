@@ -150,6 +150,28 @@ def test_page_of_a_store_without_marginals(tmp_path):
     assert any("No stored value has been revised." in t for t in texts(root))
 
 
+def test_page_reads_the_store_once_per_fingerprint_and_follows_the_next_ingest(tmp_path):
+    # Coverage, ingests, revisions and models show every user the same store: the page keeps
+    # them until the store changes (a desk opening it after the morning update reads the
+    # store once), and an ingest shows in the next load.
+    prices = _gappy_prices()
+    url, _ = _store_with(tmp_path, prices.iloc[:30])
+    later = tmp_path / "later.csv"
+    prices.iloc[30:].to_csv(later, float_format="%.12g", date_format="%Y-%m-%d")
+    with Store(url, create=False) as store:
+        view = StoreView.open(Config(store=StoreConfig(url=url)), store)
+        first = page.layout(view, {})
+        again = page.layout(view, {"asset": "NOPE"})
+        assert find(again, ids.INPUTS_COVERAGE) is find(first, ids.INPUTS_COVERAGE)  # kept
+        assert any(t.startswith("query: asset='NOPE'") for t in texts(again))
+        assert len(find(first, ids.INPUTS_INGESTS).data) == 1
+        ingest_sources(store, [read_file_source(later, "prices")])
+        after = page.layout(view, {})
+    assert len(find(after, ids.INPUTS_INGESTS).data) == 2
+    coverage = pd.DataFrame(find(after, ids.INPUTS_COVERAGE).data)
+    assert coverage["last"].max().startswith(f"{prices.index[-1]:%Y-%m-%d}")
+
+
 # ---------------------------------------------------------------------- marginal models
 def test_marginal_table_equals_what_is_stored(view):
     table = marginal_table(view.store, view.marginal_key).set_index("asset")
