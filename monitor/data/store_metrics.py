@@ -349,11 +349,15 @@ class MetricStore(StoreBase):
 
     def tail_level_counts(self, settings_key: str, first: dt.date, last: dt.date,
                           level: float, columns: tuple[str, str] = ("tail_lower_avg",
-                                                                    "tail_upper_avg")
-                          ) -> pd.DataFrame:
+                                                                    "tail_upper_avg"),
+                          latest: pd.DataFrame | None = None) -> pd.DataFrame:
         """Per pair with a stored rolling state, how many of its window ends in
         ``[first, last]`` have each of two tail columns at or above ``level``: one grouped
         query over those dates (pairs with none are left out).
+
+        For the model-averaged tails at :data:`HEAVY_TAIL_LEVEL`, the counts are differences
+        of the rows' running counts instead; ``latest``, when given, holds the pairs' rows by
+        ``last`` (:meth:`metrics_as_of` with ``date`` and :data:`RUN_COLUMNS`) already read.
 
         Returns
         -------
@@ -362,7 +366,7 @@ class MetricStore(StoreBase):
             an older comove with NULL there are not counted) and ``n_<column>`` per column.
         """
         if columns == ("tail_lower_avg", "tail_upper_avg") and level == HEAVY_TAIL_LEVEL:
-            counted = self._counts_from_runs(settings_key, first, last)
+            counted = self._counts_from_runs(settings_key, first, last, latest)
             if counted is not None:
                 return counted
         m = metrics.c
@@ -389,14 +393,14 @@ class MetricStore(StoreBase):
             frame[c] = pd.to_numeric(frame[c]).fillna(0).astype(np.int64)
         return frame
 
-    def _counts_from_runs(self, settings_key: str, first: dt.date, last: dt.date
-                          ) -> pd.DataFrame | None:
+    def _counts_from_runs(self, settings_key: str, first: dt.date, last: dt.date,
+                          latest: pd.DataFrame | None = None) -> pd.DataFrame | None:
         """:meth:`tail_level_counts` of the model-averaged tails at :data:`HEAVY_TAIL_LEVEL`
         as the difference of two rows' running counts per pair (an index seek each: the
         pair's last row by ``last`` and its last row before ``first``); None when a row
         needed has no counts (an older store's, before ``comove update`` recounts them)."""
-        cols = ["date", *RUN_COLUMNS]
-        now = self.metrics_as_of(settings_key, last, cols)
+        now = (self.metrics_as_of(settings_key, last, ["date", *RUN_COLUMNS])
+               if latest is None else latest)
         now = now[now["date"] >= pd.Timestamp(first)].reset_index(drop=True)
         then = self.metrics_as_of(settings_key, first - dt.timedelta(days=1), RUN_COLUMNS)
         if now[list(RUN_COLUMNS)].isna().any().any() or then[list(RUN_COLUMNS)].isna().any().any():

@@ -78,7 +78,7 @@ from monitor.common.palette import (
     VERMILION,
     figure_layout,
 )
-from monitor.data.store_metrics import HEAVY_TAIL_LEVEL
+from monitor.data.store_metrics import HEAVY_TAIL_LEVEL, RUN_COLUMNS
 from monitor.stats.signals import STATES, TAILS, states_on, universe_key
 from monitor.views.common import (
     FigureDict,
@@ -560,7 +560,7 @@ def board_data(view: StoreView, as_of: object = None, horizon: str = DEFAULT_HOR
     if not first <= day <= last:
         raise InputError(f"board date: {day.date()} is outside the stored window ends "
                          f"({first.date()} to {last.date()})")
-    rows = store.metrics_as_of(view.rolling_key, day.date(), BOARD_COLUMNS)
+    rows = store.metrics_as_of(view.rolling_key, day.date(), (*BOARD_COLUMNS, *RUN_COLUMNS))
     if rows.empty:
         raise InputError(f"board date: no pair has a window ending by {day.date()}")
     for col in BOARD_COLUMNS:
@@ -587,7 +587,8 @@ def board_data(view: StoreView, as_of: object = None, horizon: str = DEFAULT_HOR
     rows = pd.concat([rows, changes.drop(columns=["asset_a", "asset_b"])], axis=1)
     counts = store.tail_level_counts(view.rolling_key,
                                      (day - pd.Timedelta(days=STANDING_DAYS - 1)).date(),
-                                     day.date(), STANDING_LEVEL)
+                                     day.date(), STANDING_LEVEL,
+                                     latest=rows[["asset_a", "asset_b", "date", *RUN_COLUMNS]])
     counts = rows[["asset_a", "asset_b"]].merge(counts, on=["asset_a", "asset_b"],
                                                 how="left").fillna(0)
     rows["standing"] = standing_labels(counts, _TRADING_YEAR // step).to_numpy()
