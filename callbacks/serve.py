@@ -45,6 +45,9 @@ from .jobs import job_slots
 
 #: Worker threads of each server process (waitress's default is 4).
 SERVER_THREADS = 8
+#: Bytes of a response waitress holds in memory before it spills to a temporary file (its
+#: default is 1 MB; a Board or a Timeline response is 2 to 3 MB).
+OUTPUT_IN_MEMORY = 64 * 2**20
 #: Server processes by default: one per core, at most 4.
 DEFAULT_PROCESSES = max(1, min(4, os.cpu_count() or 1))
 #: A server process that stops within this many seconds of starting is not replaced: the
@@ -159,6 +162,7 @@ def _serve_here(cfg: Config, listener: socket.socket, shared: dict) -> None:
                      cache_dir=shared["cache_dir"], slots=shared["slots"])
     _render_index(app, shared["secret"])
     server = create_server(app.server, sockets=[listener], threads=SERVER_THREADS,
+                           outbuf_overflow=OUTPUT_IN_MEMORY,
                            ident="comove")
     try:
         server.run()
